@@ -1,0 +1,30 @@
+"""The ``feasibility`` command: one click group, one module per group of subcommands.
+
+Bad input exits with status 2 and a message naming the field; no traceback.
+"""
+
+from __future__ import annotations
+
+import click
+
+__all__ = ["main"]
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(package_name="feasibility")
+def main() -> None:
+    """Technical feasibility checks of telescope proposals over a whole semester."""
+
+
+def _register() -> None:
+    """Attach every subcommand module's commands to :func:`main`. Each module exposes ``register(main)``."""
+    from importlib import import_module
+
+    for name in _COMMAND_MODULES:
+        import_module(f"feasibility.cli.{name}").register(main)
+
+
+# One line per module; a module registers its own commands.
+_COMMAND_MODULES: list[str] = []
+
+_register()

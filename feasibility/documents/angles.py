@@ -1,0 +1,66 @@
+"""Parsing of right ascension and declination as proposers write them.
+
+astropy's :class:`~astropy.coordinates.Angle` does the sexagesimal parsing; this
+module only decides the unit (hours for a right ascension string, degrees for
+everything else) and the range.
+"""
+
+from __future__ import annotations
+
+import math
+
+__all__ = ["parse_declination", "parse_right_ascension"]
+
+
+def parse_right_ascension(value: object) -> float:
+    """Return a right ascension in degrees, in [0, 360).
+
+    A number is degrees; a string is sexagesimal hours ('05:35:17.3', '5h35m17.3s')
+    unless it ends in 'd' or 'deg'.
+    """
+    degrees = _parse(value, default_unit="hourangle")
+    if not 0.0 <= degrees < 360.0:
+        raise ValueError(f"right ascension must lie in [0, 360) degrees or [0, 24) hours, got {degrees:g} degrees")
+    return degrees
+
+
+def parse_declination(value: object) -> float:
+    """Return a declination in degrees, in [-90, +90]."""
+    degrees = _parse(value, default_unit="deg")
+    if not -90.0 <= degrees <= 90.0:
+        raise ValueError(f"declination must lie between -90 and +90 degrees, got {degrees:g}")
+    return degrees
+
+
+def _parse(value: object, default_unit: str) -> float:
+    if isinstance(value, bool):
+        raise ValueError("expected an angle, got a boolean")
+    if isinstance(value, (int, float)):
+        number = float(value)
+    elif isinstance(value, str):
+        number = _parse_string(value.strip(), default_unit)
+    else:
+        raise ValueError(f"expected an angle as a number of degrees or a sexagesimal string, got {type(value).__name__}")
+    if not math.isfinite(number):
+        raise ValueError("angle must be finite")
+    return number
+
+
+def _parse_string(text: str, default_unit: str) -> float:
+    from astropy import units as u
+    from astropy.coordinates import Angle
+
+    if not text:
+        raise ValueError("angle is empty")
+    try:
+        float(text)
+    except ValueError:
+        pass
+    else:
+        return float(text)  # a plain number in a string is degrees
+    lowered = text.lower()
+    unit = u.deg if lowered.endswith(("d", "deg")) or "°" in text else getattr(u, default_unit)
+    try:
+        return float(Angle(text, unit=unit).to_value(u.deg))
+    except (ValueError, TypeError) as exc:
+        raise ValueError(f"cannot read {text!r} as an angle") from None

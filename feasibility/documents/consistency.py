@@ -1,0 +1,80 @@
+"""Checks that a proposal fits an observatory: its semester, instruments and setups exist.
+
+These are input errors (the proposal names something the observatory does not
+have), reported like validation errors with the field path.
+"""
+
+from __future__ import annotations
+
+from feasibility.documents.loading import DocumentError, Problem
+from feasibility.documents.observatory import Observatory
+from feasibility.documents.proposal import Proposal
+from feasibility.documents.schedule import InstrumentSchedule
+
+__all__ = ["proposal_problems", "require_consistent", "schedule_problems"]
+
+
+def proposal_problems(proposal: Proposal, observatory: Observatory) -> list[Problem]:
+    """Every place where ``proposal`` names a semester, instrument or setup that ``observatory`` lacks."""
+    problems: list[Problem] = []
+    if observatory.semester_named(proposal.semester) is None:
+        known = ", ".join(s.name for s in observatory.semesters)
+        problems.append(Problem("semester", f"{proposal.semester!r} is not a semester of {observatory.name} (known: {known})"))
+    for i, request in enumerate(proposal.requests):
+        where = f"requests[{i}]"
+        instrument = observatory.instrument_named(request.instrument)
+        if instrument is None:
+            known = ", ".join(x.name for x in observatory.instruments)
+            problems.append(Problem(f"{where}.instrument", f"unknown instrument {request.instrument!r} (known: {known})"))
+            continue
+        setup = request.setup
+        if instrument.kind == "imager":
+            if setup.filter is None:
+                problems.append(Problem(f"{where}.setup.filter", f"is required for the imager {instrument.name}"))
+            elif instrument.filter_named(setup.filter) is None:
+                known = ", ".join(f.name for f in instrument.filters)
+                problems.append(Problem(f"{where}.setup.filter", f"{instrument.name} has no filter {setup.filter!r} (known: {known})"))
+        else:
+            if setup.grating is None:
+                problems.append(Problem(f"{where}.setup.grating", f"is required for the spectrograph {instrument.name}"))
+            elif instrument.grating_named(setup.grating) is None:
+                known = ", ".join(g.name for g in instrument.gratings)
+                problems.append(Problem(f"{where}.setup.grating", f"{instrument.name} has no grating {setup.grating!r} (known: {known})"))
+            if setup.slit_arcsec is None:
+                problems.append(Problem(f"{where}.setup.slit_arcsec", f"is required for the spectrograph {instrument.name}"))
+            elif not any(abs(w - setup.slit_arcsec) < 1e-6 for w in instrument.slits_arcsec):
+                known = ", ".join(f"{w:g}" for w in instrument.slits_arcsec)
+                problems.append(Problem(f"{where}.setup.slit_arcsec", f"{instrument.name} has no {setup.slit_arcsec:g} arcsec slit (known: {known})"))
+            if setup.central_wavelength_nm is None:
+                problems.append(Problem(f"{where}.setup.central_wavelength_nm", f"is required for the spectrograph {instrument.name}"))
+        if request.brightness.band not in observatory.climate.bands:
+            known = ", ".join(observatory.climate.bands)
+            problems.append(Problem(f"{where}.brightness.band", f"unknown band {request.brightness.band!r} (known: {known})"))
+    return problems
+
+
+def schedule_problems(schedule: InstrumentSchedule, observatory: Observatory) -> list[Problem]:
+    """Every night of ``schedule`` outside its semester or naming an unknown instrument."""
+    problems: list[Problem] = []
+    semester = observatory.semester_named(schedule.semester)
+    if semester is None:
+        problems.append(Problem("semester", f"{schedule.semester!r} is not a semester of {observatory.name}"))
+    for i, entry in enumerate(schedule.nights):
+        if semester is not None and not semester.first_night <= entry.night <= semester.last_night:
+            problems.append(Problem(f"nights[{i}].night", f"{entry.night.isoformat()} is outside semester {semester.name}"))
+        if entry.instrument is not None and observatory.instrument_named(entry.instrument) is None:
+            problems.append(Problem(f"nights[{i}].instrument", f"unknown instrument {entry.instrument!r}"))
+    return problems
+
+
+def require_consistent(
+    proposal: Proposal, observatory: Observatory, schedule: InstrumentSchedule | None = None
+) -> None:
+    """Raise :class:`DocumentError` when the proposal (or schedule) does not fit the observatory."""
+    problems = proposal_problems(proposal, observatory)
+    if problems:
+        raise DocumentError(problems, "proposal")
+    if schedule is not None:
+        problems = schedule_problems(schedule, observatory)
+        if problems:
+            raise DocumentError(problems, "schedule")

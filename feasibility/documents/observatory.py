@@ -1,0 +1,232 @@
+"""The observatory description: site, telescope, climate, semesters and instruments.
+
+One YAML file, versioned by the store. Wavelengths are in nanometres, angles in
+degrees unless the field name says arcsec, times in seconds, rates per second.
+"""
+
+from __future__ import annotations
+
+from datetime import date
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+__all__ = [
+    "Band",
+    "Climate",
+    "Detector",
+    "Filter",
+    "Grating",
+    "HorizonPoint",
+    "Instrument",
+    "Observatory",
+    "Overheads",
+    "Semester",
+    "Site",
+    "Telescope",
+    "TWILIGHT_SUN_ALTITUDE_DEG",
+]
+
+#: Sun's centre altitude at the end of each twilight (U.S. Naval Observatory definitions).
+TWILIGHT_SUN_ALTITUDE_DEG: dict[str, float] = {"civil": -6.0, "nautical": -12.0, "astronomical": -18.0}
+
+
+class _Part(BaseModel):
+    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True)
+
+
+class HorizonPoint(_Part):
+    """One point of the local horizon profile: the lowest usable altitude towards an azimuth (from north, east positive)."""
+
+    azimuth_deg: float = Field(ge=0, le=360)
+    altitude_deg: float = Field(ge=-5, le=90)
+
+
+class Site(_Part):
+    """Where the telescope stands (WGS84 geodetic; longitude east positive)."""
+
+    name: str = Field(min_length=1)
+    latitude_deg: float = Field(ge=-90, le=90)
+    longitude_deg: float = Field(ge=-180, le=180)
+    elevation_m: float = Field(ge=-500, le=9000)
+    min_altitude_deg: float = Field(default=15.0, ge=0, le=89)
+    horizon: list[HorizonPoint] = Field(default_factory=list)
+
+
+class Telescope(_Part):
+    """The telescope's optics and mount limits."""
+
+    name: str = Field(min_length=1)
+    aperture_m: float = Field(gt=0, le=100)
+    central_obstruction: float = Field(default=0.0, ge=0, lt=1, description="Secondary's diameter over the primary's.")
+    min_altitude_deg: float = Field(default=15.0, ge=0, le=89, description="Lowest altitude the mount reaches.")
+    max_altitude_deg: float = Field(default=90.0, gt=0, le=90, description="Highest altitude the mount tracks (alt-az zenith gap).")
+    min_sun_separation_deg: float = Field(
+        default=45.0, ge=0, le=180,
+        description="Closest approach to the Sun's direction allowed by the observatory's safety rules.",
+    )
+
+
+class Band(_Part):
+    """Climate of one photometric band at the site: the dark-sky zenith brightness and the extinction."""
+
+    sky_mag_arcsec2: float = Field(ge=5, le=30, description="Dark-sky brightness at the zenith, Vega mag per square arcsecond.")
+    extinction_mag_per_airmass: float = Field(ge=0, le=5)
+    wavelength_nm: float = Field(gt=0, description="Effective wavelength of the band.")
+    zero_point_jy: float = Field(gt=0, description="Flux density of a Vega-system magnitude 0 in this band (Jy).")
+
+
+class Climate(_Part):
+    """The site's sky and weather statistics."""
+
+    bands: dict[str, Band] = Field(min_length=1)
+    median_seeing_arcsec: float = Field(gt=0, le=10, description="Median seeing at the zenith at 500 nm.")
+    usable_night_fraction: dict[int, float] = Field(
+        default_factory=lambda: {month: 1.0 for month in range(1, 13)},
+        description="Fraction of nights usable for observing, by calendar month (1-12).",
+    )
+
+    @model_validator(mode="after")
+    def _months(self) -> Climate:
+        for month, fraction in self.usable_night_fraction.items():
+            if not 1 <= month <= 12:
+                raise ValueError(f"usable_night_fraction: month {month} is not between 1 and 12")
+            if not 0.0 <= fraction <= 1.0:
+                raise ValueError(f"usable_night_fraction: month {month} has fraction {fraction}, not between 0 and 1")
+        return self
+
+
+class Semester(_Part):
+    """A semester: its name and first and last night (the local date on which each night begins)."""
+
+    name: str = Field(min_length=1, max_length=20)
+    first_night: date
+    last_night: date
+
+    @model_validator(mode="after")
+    def _ordered(self) -> Semester:
+        if self.last_night < self.first_night:
+            raise ValueError("'last_night' is before 'first_night'")
+        if (self.last_night - self.first_night).days > 400:
+            raise ValueError("a semester longer than 400 nights is not supported")
+        return self
+
+
+class Filter(_Part):
+    """An imager's filter. ``band`` names the climate band whose sky and extinction apply."""
+
+    name: str = Field(min_length=1)
+    band: str = Field(min_length=1)
+    wavelength_nm: float = Field(gt=0)
+    width_nm: float = Field(gt=0)
+    zero_point_jy: float = Field(gt=0, description="Flux density of a Vega-system magnitude 0 through this filter (Jy).")
+    throughput: float | None = Field(default=None, gt=0, le=1, description="Overrides the instrument's throughput.")
+
+
+class Grating(_Part):
+    """A spectrograph's grating (or grism)."""
+
+    name: str = Field(min_length=1)
+    resolving_power: float = Field(gt=0)
+    min_wavelength_nm: float = Field(gt=0)
+    max_wavelength_nm: float = Field(gt=0)
+    pixels_per_resolution_element: float = Field(default=2.5, gt=0, le=20)
+    throughput: float | None = Field(default=None, gt=0, le=1)
+
+    @model_validator(mode="after")
+    def _range(self) -> Grating:
+        if self.max_wavelength_nm <= self.min_wavelength_nm:
+            raise ValueError("'max_wavelength_nm' must exceed 'min_wavelength_nm'")
+        return self
+
+
+class Detector(_Part):
+    """The detector's noise, scale and well."""
+
+    read_noise_e: float = Field(ge=0)
+    dark_current_e_s_pix: float = Field(ge=0)
+    gain_e_adu: float = Field(gt=0)
+    pixel_scale_arcsec: float = Field(gt=0)
+    full_well_e: float = Field(gt=0)
+    slit_length_arcsec: float | None = Field(default=None, gt=0)
+
+
+class Overheads(_Part):
+    """Time spent not collecting light."""
+
+    readout_s: float = Field(ge=0, description="Per exposure.")
+    acquisition_s: float = Field(ge=0, description="Per visit (pointing, acquisition, set-up).")
+    visit_hours: float = Field(default=1.0, gt=0, le=24, description="Longest single visit before re-acquiring.")
+
+
+class Instrument(_Part):
+    """One instrument: an imager or a slit spectrograph."""
+
+    name: str = Field(min_length=1)
+    kind: Literal["imager", "slit_spectrograph"]
+    twilight: Literal["civil", "nautical", "astronomical"] = "astronomical"
+    min_wavelength_nm: float = Field(gt=0)
+    max_wavelength_nm: float = Field(gt=0)
+    filters: list[Filter] = Field(default_factory=list)
+    gratings: list[Grating] = Field(default_factory=list)
+    slits_arcsec: list[float] = Field(default_factory=list)
+    detector: Detector
+    throughput: float = Field(gt=0, le=1, description="Whole system, atmosphere excluded: telescope, instrument and detector.")
+    min_exposure_s: float = Field(gt=0)
+    max_exposure_s: float = Field(gt=0)
+    overheads: Overheads
+
+    @model_validator(mode="after")
+    def _consistent(self) -> Instrument:
+        if self.max_exposure_s < self.min_exposure_s:
+            raise ValueError("'max_exposure_s' is shorter than 'min_exposure_s'")
+        if self.max_wavelength_nm <= self.min_wavelength_nm:
+            raise ValueError("'max_wavelength_nm' must exceed 'min_wavelength_nm'")
+        if self.kind == "imager" and not self.filters:
+            raise ValueError("an imager needs at least one filter")
+        if self.kind == "slit_spectrograph" and not (self.gratings and self.slits_arcsec):
+            raise ValueError("a slit spectrograph needs at least one grating and one slit width")
+        return self
+
+    def filter_named(self, name: str) -> Filter | None:
+        """The filter called ``name`` (case-insensitive), or None."""
+        return next((f for f in self.filters if f.name.lower() == name.lower()), None)
+
+    def grating_named(self, name: str) -> Grating | None:
+        """The grating called ``name`` (case-insensitive), or None."""
+        return next((g for g in self.gratings if g.name.lower() == name.lower()), None)
+
+
+class Observatory(_Part):
+    """The whole observatory description."""
+
+    name: str = Field(min_length=1)
+    version: str = Field(default="1", min_length=1, max_length=40)
+    site: Site
+    telescope: Telescope
+    climate: Climate
+    semesters: list[Semester] = Field(min_length=1)
+    instruments: list[Instrument] = Field(min_length=1)
+
+    @model_validator(mode="after")
+    def _unique_names(self) -> Observatory:
+        for kind, names in (("semester", [s.name for s in self.semesters]), ("instrument", [i.name for i in self.instruments])):
+            duplicates = {n for n in names if names.count(n) > 1}
+            if duplicates:
+                raise ValueError(f"{kind} names used twice: {sorted(duplicates)}")
+        for instrument in self.instruments:
+            for item in instrument.filters:
+                if item.band not in self.climate.bands:
+                    raise ValueError(
+                        f"instrument {instrument.name!r} filter {item.name!r} names band {item.band!r}, "
+                        f"which climate.bands does not define"
+                    )
+        return self
+
+    def semester_named(self, name: str) -> Semester | None:
+        """The semester called ``name``, or None."""
+        return next((s for s in self.semesters if s.name == name), None)
+
+    def instrument_named(self, name: str) -> Instrument | None:
+        """The instrument called ``name`` (case-insensitive), or None."""
+        return next((i for i in self.instruments if i.name.lower() == name.lower()), None)

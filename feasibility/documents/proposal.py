@@ -1,0 +1,174 @@
+"""The proposal document: who asks, for which semester, and what each observation request needs."""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from typing import Annotated, Literal
+
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    field_validator,
+    model_validator,
+)
+
+from feasibility.documents.angles import parse_declination, parse_right_ascension
+
+__all__ = [
+    "Brightness",
+    "Constraints",
+    "Goal",
+    "ObservationRequest",
+    "Person",
+    "Proposal",
+    "Setup",
+    "Target",
+    "TimeWindow",
+]
+
+
+def _utc(value: datetime) -> datetime:
+    """Read naive times as UTC and keep every time timezone-aware."""
+    if value.tzinfo is None:
+        return value.replace(tzinfo=timezone.utc)
+    return value.astimezone(timezone.utc)
+
+
+UtcDatetime = Annotated[datetime, AfterValidator(_utc)]
+RightAscension = Annotated[float, BeforeValidator(parse_right_ascension)]
+Declination = Annotated[float, BeforeValidator(parse_declination)]
+
+
+class _Document(BaseModel):
+    """Base of every document part: unknown fields are errors, not silently dropped."""
+
+    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True)
+
+
+class Person(_Document):
+    """The principal investigator."""
+
+    name: str = Field(min_length=1, max_length=200)
+    email: str = Field(pattern=r"^[^@\s]+@[^@\s]+\.[^@\s]+$", max_length=320)
+    institution: str | None = Field(default=None, max_length=300)
+
+
+class Target(_Document):
+    """A sidereal target in ICRS. Right ascension in hours (sexagesimal) or degrees; declination in degrees."""
+
+    name: str = Field(min_length=1, max_length=200)
+    ra_deg: RightAscension = Field(
+        validation_alias="ra",
+        serialization_alias="ra",
+        description="Right ascension: 'hh:mm:ss.s' or 'hh mm ss.s' (hours) or a number of degrees.",
+    )
+    dec_deg: Declination = Field(
+        validation_alias="dec",
+        serialization_alias="dec",
+        description="Declination: '+dd:mm:ss.s' or a number of degrees, between -90 and +90.",
+    )
+    pm_ra_cosdec_mas_yr: float = Field(default=0.0, ge=-20000, le=20000)
+    pm_dec_mas_yr: float = Field(default=0.0, ge=-20000, le=20000)
+    epoch: float = Field(default=2000.0, ge=1800, le=2200, description="Julian epoch of the position.")
+
+    model_config = ConfigDict(extra="forbid", populate_by_name=True, str_strip_whitespace=True)
+
+
+class Setup(_Document):
+    """The instrument setup: a filter for an imager; a grating, slit and central wavelength for a spectrograph."""
+
+    filter: str | None = Field(default=None, min_length=1)
+    grating: str | None = Field(default=None, min_length=1)
+    slit_arcsec: float | None = Field(default=None, gt=0, le=30)
+    central_wavelength_nm: float | None = Field(default=None, gt=0, le=1e9)
+
+
+class Brightness(_Document):
+    """The target's brightness in one photometric band.
+
+    ``kind`` is ``point`` for a magnitude, ``surface`` for magnitudes per square arcsecond.
+    """
+
+    magnitude: float = Field(ge=-30, le=40)
+    band: str = Field(min_length=1, max_length=20, description="Photometric band of the magnitude, e.g. V or J.")
+    system: Literal["vega", "ab"] = "vega"
+    kind: Literal["point", "surface"] = "point"
+    error: float | None = Field(default=None, ge=0, le=5, description="Uncertainty of the magnitude.")
+
+
+class Goal(_Document):
+    """What the proposer wants: a signal-to-noise ratio, or a total exposure time."""
+
+    snr: float | None = Field(default=None, gt=0, le=1e5)
+    exposure_time_s: float | None = Field(default=None, gt=0, le=1e7)
+    wavelength_nm: float | None = Field(
+        default=None, gt=0, description="Where a spectrum's signal-to-noise is wanted (default: setup's central wavelength)."
+    )
+
+    @model_validator(mode="after")
+    def _exactly_one(self) -> Goal:
+        if (self.snr is None) == (self.exposure_time_s is None):
+            raise ValueError("give exactly one of 'snr' or 'exposure_time_s'")
+        return self
+
+
+class Constraints(_Document):
+    """Observing conditions the request needs."""
+
+    max_airmass: float = Field(default=2.0, ge=1.0, le=6.0)
+    min_moon_separation_deg: float = Field(default=30.0, ge=0, le=180)
+    max_moon_illumination: float | None = Field(default=None, ge=0, le=1)
+    sky: Literal["dark", "grey", "bright"] | None = Field(
+        default=None, description="Lunar time: dark (illumination ≤ 0.3 or Moon down), grey (≤ 0.7), bright (any)."
+    )
+    max_seeing_arcsec: float | None = Field(default=None, gt=0, le=10)
+
+
+class TimeWindow(_Document):
+    """A time-critical window: the request may only be observed between ``start`` and ``end`` (UTC)."""
+
+    start: UtcDatetime
+    end: UtcDatetime
+
+    @model_validator(mode="after")
+    def _ordered(self) -> TimeWindow:
+        if self.end <= self.start:
+            raise ValueError("'end' must be after 'start'")
+        return self
+
+
+class ObservationRequest(_Document):
+    """One target with one instrument setup, a brightness, a goal, hours and constraints."""
+
+    label: str = Field(min_length=1, max_length=80)
+    target: Target
+    instrument: str = Field(min_length=1)
+    setup: Setup = Field(default_factory=Setup)
+    brightness: Brightness
+    goal: Goal
+    hours_requested: float = Field(gt=0, le=2000)
+    constraints: Constraints = Field(default_factory=Constraints)
+    windows: list[TimeWindow] = Field(default_factory=list, max_length=200)
+
+
+class Proposal(_Document):
+    """What a proposer submits for one semester."""
+
+    id: str = Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
+    semester: str = Field(min_length=1, max_length=20)
+    title: str = Field(min_length=1, max_length=500)
+    pi: Person
+    requests: list[ObservationRequest] = Field(min_length=1, max_length=200)
+
+    @field_validator("requests")
+    @classmethod
+    def _unique_labels(cls, requests: list[ObservationRequest]) -> list[ObservationRequest]:
+        seen: set[str] = set()
+        for request in requests:
+            if request.label in seen:
+                raise ValueError(f"request label {request.label!r} is used twice")
+            seen.add(request.label)
+        return requests

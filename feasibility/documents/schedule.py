@@ -1,0 +1,55 @@
+"""The instrument schedule: which instrument is mounted on which night, and which nights are closed."""
+
+from __future__ import annotations
+
+from datetime import date
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+
+__all__ = ["InstrumentSchedule", "ScheduledNight"]
+
+
+class ScheduledNight(BaseModel):
+    """One night (named by the local date on which it begins)."""
+
+    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True)
+
+    night: date
+    instrument: str | None = Field(default=None, min_length=1)
+    status: Literal["open", "engineering", "shutdown"] = "open"
+    note: str | None = Field(default=None, max_length=500)
+
+    @model_validator(mode="after")
+    def _instrument_when_open(self) -> ScheduledNight:
+        if self.status == "open" and self.instrument is None:
+            raise ValueError("an open night needs an 'instrument'")
+        return self
+
+
+class InstrumentSchedule(BaseModel):
+    """The schedule of one semester. Nights not listed are closed."""
+
+    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True)
+
+    observatory: str = Field(min_length=1)
+    semester: str = Field(min_length=1, max_length=20)
+    version: str = Field(default="1", min_length=1, max_length=40)
+    nights: list[ScheduledNight] = Field(min_length=1)
+
+    @field_validator("nights")
+    @classmethod
+    def _one_entry_per_night(cls, nights: list[ScheduledNight]) -> list[ScheduledNight]:
+        seen: set[date] = set()
+        for entry in nights:
+            if entry.night in seen:
+                raise ValueError(f"night {entry.night.isoformat()} is listed twice")
+            seen.add(entry.night)
+        return sorted(nights, key=lambda e: e.night)
+
+    def instrument_on(self, night: date) -> str | None:
+        """The instrument mounted and open on ``night``, or None when closed or not listed."""
+        for entry in self.nights:
+            if entry.night == night:
+                return entry.instrument if entry.status == "open" else None
+        return None

@@ -1,0 +1,243 @@
+"""The database tables, as SQLAlchemy 2 typed mappings.
+
+Documents are stored as submitted (their JSON text) together with a content hash,
+so a verdict can always be traced to the exact proposal, observatory description
+and instrument schedule it was computed from. Versions are never overwritten.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from typing import Any
+
+from sqlalchemy import JSON, DateTime, Float, ForeignKey, Index, Integer, MetaData, String, Text, UniqueConstraint
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
+
+__all__ = [
+    "ApiToken",
+    "Base",
+    "CheckRun",
+    "FindingRow",
+    "ObservatoryVersion",
+    "ProposalRecord",
+    "ProposalVersion",
+    "RequestOutcome",
+    "ScheduleVersion",
+    "User",
+    "VerdictChange",
+    "WebhookDelivery",
+    "utcnow",
+]
+
+NAMING_CONVENTION = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+
+def utcnow() -> datetime:
+    """Now, timezone-aware in UTC."""
+    return datetime.now(timezone.utc)
+
+
+class Base(DeclarativeBase):
+    metadata = MetaData(naming_convention=NAMING_CONVENTION)
+    type_annotation_map = {datetime: DateTime(timezone=True), dict[str, Any]: JSON}
+
+
+class User(Base):
+    """A person or system that signs in or holds API tokens. Roles: reviewer, proposer, portal, admin."""
+
+    __tablename__ = "users"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    name: Mapped[str] = mapped_column(String(200), unique=True)
+    email: Mapped[str | None] = mapped_column(String(320))
+    role: Mapped[str] = mapped_column(String(20))
+    password_hash: Mapped[str | None] = mapped_column(String(300))
+    webhook_url: Mapped[str | None] = mapped_column(String(2000))
+    webhook_secret: Mapped[str | None] = mapped_column(String(200))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class ApiToken(Base):
+    """An API token, stored only as its SHA-256 hash."""
+
+    __tablename__ = "api_tokens"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    token_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    label: Mapped[str | None] = mapped_column(String(200))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    revoked_at: Mapped[datetime | None]
+
+    user: Mapped[User] = relationship()
+
+
+class ObservatoryVersion(Base):
+    """One uploaded observatory description."""
+
+    __tablename__ = "observatory_versions"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    name: Mapped[str] = mapped_column(String(200))
+    version_label: Mapped[str] = mapped_column(String(40))
+    content_hash: Mapped[str] = mapped_column(String(64), index=True)
+    document: Mapped[dict[str, Any]]
+    uploaded_by: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    uploaded_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class ScheduleVersion(Base):
+    """One uploaded instrument schedule for one semester."""
+
+    __tablename__ = "schedule_versions"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    semester: Mapped[str] = mapped_column(String(20), index=True)
+    version_label: Mapped[str] = mapped_column(String(40))
+    content_hash: Mapped[str] = mapped_column(String(64), index=True)
+    document: Mapped[dict[str, Any]]
+    uploaded_by: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    uploaded_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class ProposalRecord(Base):
+    """A proposal, by its id; its content lives in its versions."""
+
+    __tablename__ = "proposals"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    proposal_id: Mapped[str] = mapped_column(String(64), unique=True)
+    semester: Mapped[str] = mapped_column(String(20), index=True)
+    owner_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"), index=True)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+    versions: Mapped[list[ProposalVersion]] = relationship(back_populates="proposal", order_by="ProposalVersion.id")
+
+
+class ProposalVersion(Base):
+    """A proposal as submitted: the document, its content hash, who submitted it and when."""
+
+    __tablename__ = "proposal_versions"
+    __table_args__ = (UniqueConstraint("proposal_ref", "content_hash"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    proposal_ref: Mapped[int] = mapped_column(ForeignKey("proposals.id"), index=True)
+    content_hash: Mapped[str] = mapped_column(String(64))
+    document: Mapped[dict[str, Any]]
+    title: Mapped[str] = mapped_column(String(500))
+    pi_name: Mapped[str] = mapped_column(String(200))
+    instruments: Mapped[str] = mapped_column(String(500), doc="Comma-separated instrument names, for filtering.")
+    targets: Mapped[str] = mapped_column(Text, doc="Target names joined by newlines, for search.")
+    hours_requested: Mapped[float] = mapped_column(Float)
+    submitted_by: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    submitted_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+    proposal: Mapped[ProposalRecord] = relationship(back_populates="versions")
+
+
+class CheckRun(Base):
+    """One evaluation of one proposal version against one observatory and one schedule version.
+
+    The unique constraint on the three versions and the engine version makes the
+    worker's task idempotent: a second run of the same inputs finds the first.
+    """
+
+    __tablename__ = "check_runs"
+    __table_args__ = (
+        UniqueConstraint("proposal_version_id", "observatory_version_id", "schedule_key", "engine_version", name="uq_check_runs_inputs"),
+        Index("ix_check_runs_state_queued", "state", "queued_at"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    proposal_version_id: Mapped[int] = mapped_column(ForeignKey("proposal_versions.id"), index=True)
+    observatory_version_id: Mapped[int] = mapped_column(ForeignKey("observatory_versions.id"))
+    schedule_version_id: Mapped[int | None] = mapped_column(ForeignKey("schedule_versions.id"))
+    schedule_key: Mapped[int] = mapped_column(Integer, default=0, doc="schedule_version_id or 0, so the unique constraint works with no schedule.")
+    engine_version: Mapped[str] = mapped_column(String(40))
+    state: Mapped[str] = mapped_column(String(10), default="queued", doc="queued, running, done or failed")
+    reason: Mapped[str] = mapped_column(String(200), default="submitted", doc="Why the run was queued.")
+    priority: Mapped[int] = mapped_column(Integer, default=0, doc="0 for submissions, higher numbers run later.")
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    verdict: Mapped[str | None] = mapped_column(String(12), index=True)
+    result: Mapped[dict[str, Any] | None] = mapped_column(doc="The whole ProposalResult as JSON.")
+    error: Mapped[str | None] = mapped_column(Text)
+    queued_at: Mapped[datetime] = mapped_column(default=utcnow)
+    started_at: Mapped[datetime | None]
+    finished_at: Mapped[datetime | None]
+
+    proposal_version: Mapped[ProposalVersion] = relationship()
+    outcomes: Mapped[list[RequestOutcome]] = relationship(back_populates="run", cascade="all, delete-orphan", order_by="RequestOutcome.id")
+
+
+class RequestOutcome(Base):
+    """One observation request's verdict and key figures in one run, queryable."""
+
+    __tablename__ = "request_outcomes"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    run_id: Mapped[int] = mapped_column(ForeignKey("check_runs.id"), index=True)
+    label: Mapped[str] = mapped_column(String(80))
+    instrument: Mapped[str] = mapped_column(String(100), index=True)
+    target: Mapped[str] = mapped_column(String(200))
+    verdict: Mapped[str] = mapped_column(String(12), index=True)
+    hours_requested: Mapped[float | None] = mapped_column(Float)
+    hours_observable: Mapped[float | None] = mapped_column(Float)
+    hours_needed: Mapped[float | None] = mapped_column(Float)
+    snr_expected: Mapped[float | None] = mapped_column(Float)
+    figures: Mapped[dict[str, Any]]
+
+    run: Mapped[CheckRun] = relationship(back_populates="outcomes")
+    findings: Mapped[list[FindingRow]] = relationship(back_populates="outcome", cascade="all, delete-orphan", order_by="FindingRow.id")
+
+
+class FindingRow(Base):
+    """One finding of one request in one run."""
+
+    __tablename__ = "findings"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    outcome_id: Mapped[int] = mapped_column(ForeignKey("request_outcomes.id"), index=True)
+    check: Mapped[str] = mapped_column(String(40), index=True)
+    level: Mapped[str] = mapped_column(String(12), index=True)
+    message: Mapped[str] = mapped_column(Text)
+    suggestion: Mapped[str | None] = mapped_column(Text)
+    figures: Mapped[dict[str, Any]]
+
+    outcome: Mapped[RequestOutcome] = relationship(back_populates="findings")
+
+
+class VerdictChange(Base):
+    """A re-check that changed a proposal's verdict or a key figure of one of its requests."""
+
+    __tablename__ = "verdict_changes"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    proposal_ref: Mapped[int] = mapped_column(ForeignKey("proposals.id"), index=True)
+    previous_run_id: Mapped[int] = mapped_column(ForeignKey("check_runs.id"))
+    run_id: Mapped[int] = mapped_column(ForeignKey("check_runs.id"), unique=True)
+    verdict_before: Mapped[str] = mapped_column(String(12))
+    verdict_after: Mapped[str] = mapped_column(String(12))
+    details: Mapped[dict[str, Any]] = mapped_column(doc="Per request: figures before and after.")
+    recorded_at: Mapped[datetime] = mapped_column(default=utcnow, index=True)
+
+
+class WebhookDelivery(Base):
+    """A signed notice of changed verdicts for one portal, and how its delivery went."""
+
+    __tablename__ = "webhook_deliveries"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    change_id: Mapped[int] = mapped_column(ForeignKey("verdict_changes.id"))
+    body: Mapped[str] = mapped_column(Text)
+    state: Mapped[str] = mapped_column(String(10), default="pending", doc="pending, sent or failed")
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    last_error: Mapped[str | None] = mapped_column(Text)
+    next_attempt_at: Mapped[datetime] = mapped_column(default=utcnow)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
