@@ -63,4 +63,8 @@ def _parse_string(text: str, default_unit: str) -> float:
     try:
         return float(Angle(text, unit=unit).to_value(u.deg))
     except (ValueError, TypeError) as exc:
+        from astropy.coordinates import RangeError
+
+        if isinstance(exc, RangeError):
+            raise ValueError(f"{text!r} is out of range: {exc}") from None
         raise ValueError(f"cannot read {text!r} as an angle") from None
