@@ -1,0 +1,150 @@
+"""Commands for proposers: ``check`` a proposal, print a document's ``schema``, write the ``demo-files``.
+
+Exit codes of ``check``: 0 feasible, 3 marginal, 4 infeasible, 5 unchecked, 2 bad
+input (every problem on stderr, one line each, naming the field path).
+"""
+
+from __future__ import annotations
+
+import json
+from importlib.resources import files
+from importlib.resources.abc import Traversable
+from pathlib import Path
+
+import click
+from pydantic import BaseModel
+
+from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, load_document, parse_document
+from feasibility.documents.consistency import proposal_problems, schedule_problems
+from feasibility.documents.loading import Problem, json_schema
+
+__all__ = ["register"]
+
+BAD_INPUT = 2
+_SCHEMAS: dict[str, type[BaseModel]] = {"proposal": Proposal, "observatory": Observatory, "schedule": InstrumentSchedule}
+
+
+def register(main: click.Group) -> None:
+    """Attach ``check``, ``schema`` and ``demo-files`` to the ``feasibility`` group."""
+    main.add_command(check)
+    main.add_command(schema)
+    main.add_command(demo_files)
+
+
+@click.command("check")
+@click.argument("proposal_path", metavar="PROPOSAL", type=click.Path(dir_okay=False, path_type=Path))
+@click.option(
+    "--observatory", "observatory_path", metavar="FILE", type=click.Path(dir_okay=False, path_type=Path),
+    help="Observatory description (YAML or JSON). Default: the packaged demo observatory.",
+)
+@click.option(
+    "--schedule", "schedule_path", metavar="FILE", type=click.Path(dir_okay=False, path_type=Path),
+    help="Instrument schedule. Default: the packaged demo schedule of the proposal's semester, if any.",
+)
+@click.option("--json", "as_json", is_flag=True, help="Print the full result as JSON instead of the report.")
+@click.pass_context
+def check(
+    ctx: click.Context, proposal_path: Path, observatory_path: Path | None, schedule_path: Path | None, as_json: bool
+) -> None:
+    """Check the technical feasibility of the proposal in PROPOSAL (YAML or JSON)."""
+    try:
+        proposal, observatory, schedule, notes = _load_inputs(proposal_path, observatory_path, schedule_path)
+    except DocumentError as error:
+        click.echo(error.describe(), err=True)
+        ctx.exit(BAD_INPUT)
+
+    from feasibility.engine import check_proposal
+
+    result = check_proposal(proposal, observatory, schedule)
+    if as_json:
+        click.echo(json.dumps(result.model_dump(mode="json"), indent=2, ensure_ascii=False))
+    else:
+        from feasibility.report import render_report
+
+        click.echo(render_report(result, notes), nl=False)
+    ctx.exit(result.verdict.exit_code)
+
+
+@click.command("schema")
+@click.argument("document", type=click.Choice(sorted(_SCHEMAS)))
+def schema(document: str) -> None:
+    """Print the JSON Schema of a DOCUMENT: proposal, observatory or schedule."""
+    click.echo(json_schema(_SCHEMAS[document]))
+
+
+@click.command("demo-files")
+@click.argument("directory", metavar="DIR", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--force", is_flag=True, help="Overwrite files that already exist.")
+@click.pass_context
+def demo_files(ctx: click.Context, directory: Path, force: bool) -> None:
+    """Write the demo observatory, schedule and example proposals into DIR, to edit and check."""
+    wanted = _demo_files(directory)
+    existing = [path for path in wanted if path.exists()]
+    if existing and not force:
+        for path in existing:
+            click.echo(f"{path}: already exists; not overwritten (use --force to overwrite)", err=True)
+        ctx.exit(BAD_INPUT)
+    for path, source in wanted.items():
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_bytes(source.read_bytes())
+        click.echo(str(path))
+
+
+def _load_inputs(
+    proposal_path: Path, observatory_path: Path | None, schedule_path: Path | None
+) -> tuple[Proposal, Observatory, InstrumentSchedule | None, list[str]]:
+    """Read and cross-check the documents; raise :class:`DocumentError` naming every problem."""
+    proposal = load_document(Proposal, proposal_path)
+    if observatory_path is None:
+        observatory = parse_document(Observatory, _data("observatory.yaml").read_bytes(), "packaged observatory")
+    else:
+        observatory = load_document(Observatory, observatory_path)
+    problems = proposal_problems(proposal, observatory)
+    if problems:
+        raise DocumentError(problems, str(proposal_path))
+
+    notes: list[str] = []
+    schedule: InstrumentSchedule | None = None
+    if schedule_path is not None:
+        schedule = load_document(InstrumentSchedule, schedule_path)
+        name = str(schedule_path)
+    else:
+        packaged = _data(f"schedule-{proposal.semester}.yaml")
+        name = f"packaged schedule-{proposal.semester}.yaml"
+        if packaged.is_file():
+            schedule = parse_document(InstrumentSchedule, packaged.read_bytes(), name)
+            if schedule.observatory != observatory.name:
+                schedule = None
+    if schedule is None:
+        notes.append("no instrument schedule: every instrument is assumed mounted and the telescope open every night")
+    else:
+        problems = schedule_problems(schedule, observatory)
+        if schedule.observatory != observatory.name:
+            problems.append(Problem("observatory", f"{schedule.observatory!r} is not the observatory {observatory.name!r}"))
+        if schedule.semester != proposal.semester:
+            problems.append(
+                Problem("semester", f"{schedule.semester!r} is not the proposal's semester {proposal.semester!r}")
+            )
+        if problems:
+            raise DocumentError(problems, name)
+    return proposal, observatory, schedule, notes
+
+
+def _demo_files(directory: Path) -> dict[Path, Traversable]:
+    """Where each packaged demo file goes under ``directory``."""
+    data = _data("")
+    wanted: dict[Path, Traversable] = {}
+    for item in sorted(data.iterdir(), key=lambda t: t.name):
+        if item.is_file() and item.name.endswith(".yaml"):
+            wanted[directory / item.name] = item
+    proposals = data / "proposals"
+    for item in sorted(proposals.iterdir(), key=lambda t: t.name):
+        if item.is_file() and item.name.endswith(".yaml"):
+            wanted[directory / "proposals" / item.name] = item
+    return wanted
+
+
+def _data(name: str) -> Traversable:
+    """A file (or, with an empty name, the folder) of the packaged demo data."""
+    folder = files("feasibility") / "data"
+    return folder / name if name else folder

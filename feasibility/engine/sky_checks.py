@@ -1,0 +1,582 @@
+"""The sky checks of one observation request: visibility, moon, schedule and sun-safety.
+
+:func:`measure_sky` runs the request's target over the semester sky grid in plain
+NumPy (one matrix–vector product per instant gives the target's horizontal
+direction and its distance from the Moon) and reduces the instants to hours per
+night at each stage:
+
+1. *visible*: true night for the instrument's twilight, above the airmass limit,
+   the site's minimum altitude, the horizon profile and the telescope's lower
+   limit, below its upper limit, inside the request's time windows;
+2. *observable*: of those, the instants meeting the Moon constraints (they apply
+   only while the Moon is up);
+3. *usable*: of those, the nights the instrument is mounted and the telescope open.
+
+Each stage's hours are also given as *expected clear* hours: each night weighted
+by the site's usable-night fraction for its month.
+
+Levels (common-practice margins, shared by visibility, moon and schedule): a stage
+is ``infeasible`` when its hours, even with every night clear, fall short of the
+hours needed, or when its expected clear hours do; ``marginal`` when its expected
+clear hours are under 1.5 times the hours needed (a typical weather and
+overheads margin). A request with time windows is time-critical: bad weather
+there is a risk, not a certainty, so an expected-clear shortfall alone makes it
+``marginal``. Visibility and moon compare with the requested hours; schedule, the
+last stage, with the larger of the requested hours and the hours the goal needs
+(from the exposure checks), so it is also the overall time comparison.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from datetime import date, datetime, timezone
+
+import numpy as np
+from numpy.typing import NDArray
+
+from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest
+from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
+from feasibility.engine.airmass import airmass_at, altitude_for_airmass
+from feasibility.engine.conditions import Conditions, sky_band_for
+from feasibility.engine.moonsky import band_factor, dark_sky_nl, mag_from_nanolamberts, moonlight_nl
+from feasibility.engine.positions import target_vector
+from feasibility.engine.skygrid import NightSamples, SkyGrid
+from feasibility.results import Finding, Level
+
+__all__ = [
+    "GREY_ILLUMINATION",
+    "DARK_ILLUMINATION",
+    "MARGIN",
+    "SUN_MARGIN_DEG",
+    "SkyMeasure",
+    "level_for_hours",
+    "measure_sky",
+    "moon_finding",
+    "night_availability",
+    "schedule_finding",
+    "sun_safety_finding",
+    "visibility_finding",
+]
+
+#: Lunar time: dark when the Moon's illuminated fraction is at most this (or the Moon is down).
+DARK_ILLUMINATION = 0.3
+#: Grey time: illuminated fraction at most this (or the Moon is down).
+GREY_ILLUMINATION = 0.7
+#: Expected clear hours under this multiple of the hours needed make a stage marginal (common practice).
+MARGIN = 1.5
+#: A closest approach to the Sun within this many degrees beyond the telescope's limit is flagged.
+SUN_MARGIN_DEG = 5.0
+#: Sky brightness is the median over about this many usable instants (evenly spaced), to bound the cost.
+_SKY_SAMPLES = 300
+
+_MJD_UNIX_EPOCH = 40587.0
+_SKY_LIMIT = {"dark": DARK_ILLUMINATION, "grey": GREY_ILLUMINATION, "bright": 1.0}
+
+GRID_METHOD = (
+    "semester sky grid sampled every {step:g} min: ICRS to horizon rotation from ERFA (IAU 2006/2000A "
+    "precession-nutation, Earth rotation angle with UT1 from astropy's IERS table), held to astropy's "
+    "AltAz (no refraction) within 0.05 deg; Sun and Moon from ERFA epv00 and moon98 (Meeus)"
+)
+
+
+@dataclass
+class SkyMeasure:
+    """Everything the sky findings and the exposure checks need from one request's pass over the grid."""
+
+    hours_requested: float
+    twilight: str
+    sun_limit_deg: float
+    airmass_limit: float
+    min_altitude_deg: float
+    max_altitude_deg: float
+    step_minutes: float
+    has_windows: bool
+    schedule_given: bool
+    nights: list[date]
+    hours_night: NDArray[np.float64]
+    visible: NDArray[np.float64]
+    observable: NDArray[np.float64]
+    usable: NDArray[np.float64]
+    weather: NDArray[np.float64]
+    nights_scheduled: int
+    lowest_airmass: float
+    moon_separation_min_deg: float | None
+    sky_band: str
+    dark_sky_mag: float
+    sky_mag_median: float
+    conditions: Conditions
+    sun_separation_min_deg: float
+    sun_separation_min_all_deg: float
+    hours_sun_unsafe: float
+    min_sun_separation_limit_deg: float
+    moon_constraint: dict[str, object] = field(default_factory=dict)
+    night_curve: dict[str, object] = field(default_factory=dict)
+
+    total_visible: float = 0.0
+    total_observable: float = 0.0
+    total_usable: float = 0.0
+    clear_visible: float = 0.0
+    clear_observable: float = 0.0
+    clear_usable: float = 0.0
+
+    def __post_init__(self) -> None:
+        self.total_visible, self.clear_visible = float(self.visible.sum()), self.clear(self.visible)
+        self.total_observable, self.clear_observable = float(self.observable.sum()), self.clear(self.observable)
+        self.total_usable, self.clear_usable = float(self.usable.sum()), self.clear(self.usable)
+
+    def clear(self, per_night: NDArray[np.float64]) -> float:
+        """Expected clear hours: each night's hours times its month's usable-night fraction."""
+        return float(per_night @ self.weather)
+
+
+def night_availability(grid: SkyGrid, instrument: str, schedule: InstrumentSchedule | None) -> NDArray[np.bool_]:
+    """For each night of ``grid``, whether ``instrument`` is mounted and the telescope open (all True without a schedule)."""
+    if schedule is None:
+        return np.ones(grid.n_nights, dtype=bool)
+    wanted = instrument.lower()
+    n_nights = grid.n_nights
+    available = np.zeros(n_nights, dtype=bool)
+    for entry in schedule.nights:
+        index = (entry.night - grid.first_night).days
+        if 0 <= index < n_nights and entry.status == "open" and (entry.instrument or "").lower() == wanted:
+            available[index] = True
+    return available
+
+
+def measure_sky(
+    request: ObservationRequest,
+    observatory: Observatory,
+    instrument: Instrument,
+    grid: SkyGrid,
+    available: NDArray[np.bool_],
+    weather: NDArray[np.float64],
+    schedule_given: bool,
+) -> SkyMeasure:
+    """Run ``request``'s target over ``grid`` and reduce it to hours per night at each stage.
+
+    ``available`` (per night) comes from :func:`night_availability`, ``weather``
+    (per night) is the usable-night fraction of each night's month.
+    """
+    site, telescope, constraints = observatory.site, observatory.telescope, request.constraints
+    sun_limit = TWILIGHT_SUN_ALTITUDE_DEG[instrument.twilight]
+    view = grid.samples(sun_limit)
+    n_nights = grid.n_nights
+    step_hours = grid.step_hours
+
+    target = request.target
+    mid_jyear = 2000.0 + (float(grid.midnight_mjd[n_nights // 2]) - 51544.5) / 365.25
+    vector = target_vector(
+        target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch, mid_jyear
+    )
+
+    # Stage 1, visible: one product over all instants, then work on the surviving indices only.
+    sin_alt = view.up @ vector
+    min_alt = max(altitude_for_airmass(constraints.max_airmass), site.min_altitude_deg, telescope.min_altitude_deg)
+    max_alt = telescope.max_altitude_deg
+    above = sin_alt >= math.sin(math.radians(min_alt))
+    if max_alt < 90.0:
+        above &= sin_alt <= math.sin(math.radians(max_alt))
+    visible = np.flatnonzero(above)
+    if site.horizon and visible.size:
+        visible = _above_horizon_profile(observatory, view, vector, visible, sin_alt, min_alt)
+    if request.windows and visible.size:
+        visible = visible[_in_windows(request, view.mjd[visible])]
+
+    # Stage 2, observable: the Moon constraints, while the Moon is up.
+    moon_limit = _moon_illumination_limit(request)
+    cos_moon = np.take(view.moon, visible, axis=0) @ vector
+    moon_up = view.moon_up[visible]
+    moon_ok = ~moon_up | (
+        (cos_moon <= math.cos(math.radians(constraints.min_moon_separation_deg)))
+        & (view.moon_illumination[visible] <= moon_limit)
+    )
+    observable = visible[moon_ok]
+
+    # Stage 3, usable: nights the instrument is mounted and the telescope open.
+    nights_visible = view.night_index[visible]
+    nights_observable = nights_visible[moon_ok]
+    usable_ok = available[nights_observable]
+    usable = observable[usable_ok]
+    hours_visible = np.bincount(nights_visible, minlength=n_nights) * step_hours
+    hours_observable = np.bincount(nights_observable, minlength=n_nights) * step_hours
+    hours_usable = np.bincount(nights_observable[usable_ok], minlength=n_nights) * step_hours
+
+    band = sky_band_for(request, instrument, observatory)
+    climate_band = observatory.climate.bands[band]
+    highest = float(sin_alt.max())
+    lowest_airmass = airmass_at(math.degrees(math.asin(min(highest, 1.0)))) if highest > 0.0 else math.inf
+
+    chosen = usable if usable.size else observable
+    if chosen.size:
+        # The median commutes with the (monotonic) airmass of the altitude.
+        chosen_sin = sin_alt[chosen]
+        median_sin = _median(chosen_sin)
+        airmass_median = airmass_at(math.degrees(math.asin(min(median_sin, 1.0))))
+        airmass_min = airmass_at(math.degrees(math.asin(min(float(chosen_sin.max()), 1.0))))
+        sampled = chosen[:: max(1, chosen.size // _SKY_SAMPLES)]
+        zenith = 90.0 - np.degrees(np.arcsin(sin_alt[sampled]))
+        separation = np.degrees(np.arccos(np.clip(np.take(view.moon, sampled, axis=0) @ vector, -1.0, 1.0)))
+        k = climate_band.extinction_mag_per_airmass
+        dark_nl = dark_sky_nl(climate_band.sky_mag_arcsec2, k, zenith)
+        moon_nl = moonlight_nl(view.moon_phase_angle_deg[sampled], separation, 90.0 - view.moon_alt_deg[sampled], zenith, k)
+        moon_nl *= band_factor(band)
+        # Magnitudes fall as brightness grows: the median of the nL values gives the median magnitude.
+        sky_median = float(mag_from_nanolamberts(_median(dark_nl + moon_nl)))
+        dark_sky = float(mag_from_nanolamberts(_median(dark_nl)))
+    else:
+        airmass_median = airmass_min = lowest_airmass if math.isfinite(lowest_airmass) else constraints.max_airmass
+        zenith_deg = 90.0 - altitude_for_airmass(airmass_median)
+        sky_median = dark_sky = float(
+            mag_from_nanolamberts(dark_sky_nl(climate_band.sky_mag_arcsec2, climate_band.extinction_mag_per_airmass, zenith_deg))
+        )
+
+    moon_up_visible = cos_moon[moon_up]
+    moon_separation_min = (
+        float(np.degrees(np.arccos(min(1.0, float(moon_up_visible.max()))))) if moon_up_visible.size else None
+    )
+
+    cos_sun = grid.sun_vector_midnight @ vector
+    sun_limit_cos = math.cos(math.radians(telescope.min_sun_separation_deg))
+    if visible.size:
+        cos_sun_visible = cos_sun[nights_visible]
+        sun_min = float(np.degrees(np.arccos(min(1.0, float(cos_sun_visible.max())))))
+        sun_unsafe_hours = float(np.count_nonzero(cos_sun_visible > sun_limit_cos) * step_hours)
+    else:
+        sun_min, sun_unsafe_hours = math.nan, 0.0
+    sun_min_all = float(np.degrees(np.arccos(min(1.0, float(cos_sun.max())))))
+
+    conditions = Conditions(
+        hours_observable=observable.size * step_hours,
+        hours_usable=usable.size * step_hours,
+        airmass_median=airmass_median,
+        airmass_min=airmass_min,
+        sky_mag_arcsec2=sky_median,
+        sky_band=band,
+    )
+    return SkyMeasure(
+        hours_requested=request.hours_requested,
+        twilight=instrument.twilight,
+        sun_limit_deg=sun_limit,
+        airmass_limit=constraints.max_airmass,
+        min_altitude_deg=min_alt,
+        max_altitude_deg=max_alt,
+        step_minutes=grid.step_minutes,
+        has_windows=bool(request.windows),
+        schedule_given=schedule_given,
+        nights=grid.nights,
+        hours_night=grid.night_hours(sun_limit),
+        visible=hours_visible,
+        observable=hours_observable,
+        usable=hours_usable,
+        weather=weather,
+        nights_scheduled=int(available.sum()),
+        lowest_airmass=lowest_airmass,
+        moon_separation_min_deg=moon_separation_min,
+        sky_band=band,
+        dark_sky_mag=dark_sky,
+        sky_mag_median=sky_median,
+        conditions=conditions,
+        sun_separation_min_deg=sun_min,
+        sun_separation_min_all_deg=sun_min_all,
+        hours_sun_unsafe=sun_unsafe_hours,
+        min_sun_separation_limit_deg=telescope.min_sun_separation_deg,
+        moon_constraint={
+            "min_moon_separation_deg": constraints.min_moon_separation_deg,
+            "max_moon_illumination": moon_limit,
+            "sky": constraints.sky or "bright",
+        },
+        night_curve=_night_curve(grid, vector, hours_usable, hours_observable, hours_visible),
+    )
+
+
+def level_for_hours(clear: float, every_night_clear: float, needed: float, time_critical: bool) -> Level:
+    """The level of a stage from its expected clear hours and its hours with every night clear (module docstring)."""
+    if every_night_clear <= 0.0 or every_night_clear < needed:
+        return Level.INFEASIBLE
+    if clear < needed:
+        return Level.MARGINAL if time_critical else Level.INFEASIBLE
+    if clear < MARGIN * needed:
+        return Level.MARGINAL
+    return Level.FEASIBLE
+
+
+def visibility_finding(sky: SkyMeasure) -> Finding:
+    """The visibility check: hours above the limits in true night, within windows."""
+    hours, clear = sky.total_visible, sky.clear_visible
+    level = level_for_hours(clear, hours, sky.hours_requested, sky.has_windows)
+    nights = int(np.count_nonzero(sky.visible))
+    where = f"above airmass {sky.airmass_limit:g} (altitude {sky.min_altitude_deg:.1f}°) in {sky.twilight} night"
+    if sky.has_windows:
+        where += " within the time windows"
+    if hours <= 0.0:
+        if not math.isfinite(sky.lowest_airmass):
+            message = f"Never rises in {sky.twilight} night this semester."
+        elif sky.has_windows:
+            message = f"Not {where} at any time (lowest airmass in true night this semester {sky.lowest_airmass:.2f})."
+        elif sky.lowest_airmass > sky.airmass_limit:
+            message = f"Never {where}: its lowest airmass in true night is {sky.lowest_airmass:.2f}."
+        else:
+            message = f"Never {where} while clear of the site's horizon and the telescope's limits."
+    else:
+        message = (
+            f"{hours:.1f} h {where} over {nights} nights; {clear:.1f} h expected clear; "
+            f"{sky.hours_requested:g} h requested."
+        )
+    suggestion = None
+    if level is not Level.FEASIBLE:
+        if sky.has_windows:
+            suggestion = "Widen the time windows or relax the airmass limit."
+        elif math.isfinite(sky.lowest_airmass) and sky.lowest_airmass > sky.airmass_limit:
+            suggestion = f"Allow airmass up to {sky.lowest_airmass * 1.1:.1f}, or propose in a semester when the target is up at night."
+        else:
+            suggestion = "Relax the airmass limit, request fewer hours, or propose in a semester when the target is up longer at night."
+    return Finding(
+        check="visibility",
+        level=level,
+        message=message,
+        figures={
+            "hours_requested": sky.hours_requested,
+            "hours_visible": round(hours, 2),
+            "hours_visible_clear": round(clear, 2),
+            "nights_visible": nights,
+            "hours_true_night": round(float(sky.hours_night.sum()), 1),
+            "twilight": sky.twilight,
+            "sun_altitude_limit_deg": sky.sun_limit_deg,
+            "airmass_limit": sky.airmass_limit,
+            "min_altitude_deg": round(sky.min_altitude_deg, 2),
+            "max_altitude_deg": sky.max_altitude_deg,
+            "lowest_airmass": round(sky.lowest_airmass, 3) if math.isfinite(sky.lowest_airmass) else None,
+            "usable_night_fraction_mean": round(float(sky.weather.mean()), 3),
+        },
+        suggestion=suggestion,
+        method=(
+            GRID_METHOD.format(step=sky.step_minutes)
+            + "; airmass Kasten & Young (1989); twilight: Sun's centre at -6/-12/-18 deg (U.S. Naval Observatory); "
+            "expected clear hours weight each night by climate.usable_night_fraction of its month"
+        ),
+    )
+
+
+def moon_finding(sky: SkyMeasure) -> Finding:
+    """The moon check: of the visible hours, those meeting the Moon separation and illumination constraints."""
+    visible, hours, clear = sky.total_visible, sky.total_observable, sky.clear_observable
+    level = level_for_hours(clear, hours, sky.hours_requested, sky.has_windows)
+    constraint = sky.moon_constraint
+    lost = visible - hours
+    if visible <= 0.0:
+        message = "No visible hours (see visibility), so none to test against the Moon constraints."
+    else:
+        message = (
+            f"{hours:.1f} of {visible:.1f} visible hours meet the Moon constraints "
+            f"(at least {constraint['min_moon_separation_deg']:g}° away, illumination at most "
+            f"{constraint['max_moon_illumination']:g} while up); {clear:.1f} h expected clear; "
+            f"median sky {sky.sky_mag_median:.2f} mag/arcsec² in {sky.sky_band} (dark sky {sky.dark_sky_mag:.2f})."
+        )
+    suggestion = None
+    if level is not Level.FEASIBLE and lost > 0.0 and visible > 0.0:
+        suggestion = "Accept a brighter sky (grey or bright time) or a smaller Moon separation, if the signal-to-noise allows."
+    return Finding(
+        check="moon",
+        level=level,
+        message=message,
+        figures={
+            "hours_visible": round(visible, 2),
+            "hours_observable": round(hours, 2),
+            "hours_observable_clear": round(clear, 2),
+            "hours_lost_to_moon": round(lost, 2),
+            "min_moon_separation_deg": constraint["min_moon_separation_deg"],  # type: ignore[dict-item]
+            "max_moon_illumination": constraint["max_moon_illumination"],  # type: ignore[dict-item]
+            "sky": constraint["sky"],  # type: ignore[dict-item]
+            "moon_separation_min_deg": None if sky.moon_separation_min_deg is None else round(sky.moon_separation_min_deg, 1),
+            "sky_band": sky.sky_band,
+            "sky_mag_arcsec2": round(sky.sky_mag_median, 2),
+            "dark_sky_mag_arcsec2": round(sky.dark_sky_mag, 2),
+            "moon_brightening_mag": round(sky.dark_sky_mag - sky.sky_mag_median, 2),
+        },
+        suggestion=suggestion,
+        method=(
+            "Moon topocentric from ERFA moon98 on the semester grid; constraints apply while the Moon's centre is above "
+            "the horizon; dark: illumination <= 0.3 or Moon down, grey: <= 0.7; moonlit sky Krisciunas & Schaefer (1991) "
+            "eqs. 1-3, 15-20 added to the site's dark sky, carried from V with the Sun's colours (approximation)"
+        ),
+    )
+
+
+def schedule_finding(sky: SkyMeasure, hours_needed: float | None) -> Finding:
+    """The schedule check and the overall time comparison (see the module docstring)."""
+    observable, hours, clear = sky.total_observable, sky.total_usable, sky.clear_usable
+    need = sky.hours_requested
+    if hours_needed is not None and math.isfinite(hours_needed):
+        need = max(need, hours_needed)
+    level = level_for_hours(clear, hours, need, sky.has_windows)
+    nights = int(np.count_nonzero(sky.usable))
+    if sky.schedule_given:
+        where = f"on the {sky.nights_scheduled} nights the instrument is scheduled"
+    else:
+        where = "with no instrument schedule given (every night assumed available)"
+    if observable <= 0.0:
+        message = f"No observable hours (see visibility and moon) to place {where}"
+    else:
+        message = f"{hours:.1f} of {observable:.1f} observable hours fall {where}; {clear:.1f} h expected clear over {nights} nights"
+    if hours_needed is not None and math.isfinite(hours_needed) and hours_needed > sky.hours_requested:
+        message += f"; the goal needs {hours_needed:.1f} h with overheads ({sky.hours_requested:g} h requested)."
+    else:
+        message += f"; {need:g} h needed."
+    suggestion = None
+    if level is not Level.FEASIBLE:
+        if sky.schedule_given and hours < observable:
+            suggestion = "Ask the observatory whether the instrument can be scheduled on more nights when the target is observable."
+        elif hours_needed is not None and hours_needed > sky.hours_requested:
+            suggestion = "Lower the signal-to-noise goal or observe a brighter target; the time the goal needs is not available."
+    return Finding(
+        check="schedule",
+        level=level,
+        message=message,
+        figures={
+            "hours_observable": round(observable, 2),
+            "hours_usable": round(hours, 2),
+            "hours_usable_clear": round(clear, 2),
+            "nights_scheduled": sky.nights_scheduled,
+            "nights_usable": nights,
+            "hours_requested": sky.hours_requested,
+            "hours_needed": None if hours_needed is None or not math.isfinite(hours_needed) else round(hours_needed, 2),
+            "hours_compared": round(need, 2),
+            "time_ratio": round(clear / need, 3) if need > 0 else None,
+            "schedule_given": sky.schedule_given,
+        },
+        suggestion=suggestion,
+        method="instrument schedule nights (open, instrument mounted) intersected with the observable instants; "
+        "expected clear hours by climate.usable_night_fraction",
+    )
+
+
+def sun_safety_finding(sky: SkyMeasure) -> Finding:
+    """The sun-safety check: the closest approach to the Sun while the target is visible.
+
+    ``infeasible`` when the target is never visible farther from the Sun than the
+    telescope's limit, ``marginal`` when it comes closer than the limit plus
+    ``SUN_MARGIN_DEG`` at some visible time, else ``feasible``. Always defers to the
+    observatory's own safety rules and staff.
+    """
+    limit = sky.min_sun_separation_limit_deg
+    visible = sky.total_visible
+    closest = sky.sun_separation_min_deg if visible > 0.0 else sky.sun_separation_min_all_deg
+    defer = "The observatory's own Sun-safety rules and its staff decide; follow them."
+    if closest < limit:
+        if visible > 0.0 and sky.hours_sun_unsafe >= visible:
+            level = Level.INFEASIBLE
+        else:
+            level = Level.MARGINAL if visible > 0.0 else Level.FEASIBLE
+    elif closest < limit + SUN_MARGIN_DEG:
+        level = Level.MARGINAL if visible > 0.0 else Level.FEASIBLE
+    else:
+        level = Level.FEASIBLE
+    when = "while visible" if visible > 0.0 else "at local midnight over the semester (never visible)"
+    if closest < limit:
+        message = (
+            f"WARNING: the target comes within {closest:.1f}° of the Sun {when}, closer than the telescope's "
+            f"{limit:g}° limit ({sky.hours_sun_unsafe:.1f} visible hours). {defer}"
+        )
+        suggestion = "Do not point there: observe only when the target is farther from the Sun, or choose another semester."
+    elif closest < limit + SUN_MARGIN_DEG:
+        message = f"The target comes within {closest:.1f}° of the Sun {when}, near the telescope's {limit:g}° limit. {defer}"
+        suggestion = "Plan the observation for when the target is farthest from the Sun."
+    else:
+        message = f"Closest approach to the Sun {when}: {closest:.1f}° (limit {limit:g}°)."
+        suggestion = None
+    return Finding(
+        check="sun-safety",
+        level=level,
+        message=message,
+        figures={
+            "sun_separation_min_deg": round(closest, 2),
+            "sun_separation_min_semester_deg": round(sky.sun_separation_min_all_deg, 2),
+            "min_sun_separation_deg": limit,
+            "hours_closer_than_limit": round(sky.hours_sun_unsafe, 2),
+        },
+        suggestion=suggestion,
+        method="angular distance to the Sun's geocentric direction at each night's local midnight (ERFA epv00), "
+        "over the target's visible instants; the Sun moves under 0.6 deg in a night",
+    )
+
+
+def _median(values: NDArray[np.float64]) -> float:
+    """The upper median (no averaging of the two middle values; at grid sampling they differ negligibly)."""
+    middle = values.size // 2
+    return float(np.partition(values, middle)[middle])
+
+
+def _moon_illumination_limit(request: ObservationRequest) -> float:
+    constraints = request.constraints
+    limit = 1.0 if constraints.max_moon_illumination is None else constraints.max_moon_illumination
+    if constraints.sky is not None:
+        limit = min(limit, _SKY_LIMIT[constraints.sky])
+    return limit
+
+
+def _above_horizon_profile(
+    observatory: Observatory,
+    view: NightSamples,
+    vector: NDArray[np.float64],
+    candidates: NDArray[np.intp],
+    sin_alt: NDArray[np.float64],
+    min_alt: float,
+) -> NDArray[np.intp]:
+    """``candidates`` that also clear the site's horizon profile (linear in azimuth, wrapping at 360°).
+
+    Only instants lower than the profile's highest point need their azimuth, so
+    with the usual airmass limits the profile costs nothing.
+    """
+    points = sorted(observatory.site.horizon, key=lambda p: p.azimuth_deg)
+    top = max(p.altitude_deg for p in points)
+    if top <= min_alt:
+        return candidates
+    low = candidates[sin_alt[candidates] < math.sin(math.radians(top))]
+    if not low.size:
+        return candidates
+    azimuth = np.degrees(np.arctan2(np.take(view.east, low, axis=0) @ vector, np.take(view.north, low, axis=0) @ vector))
+    floor = np.interp(azimuth % 360.0, [p.azimuth_deg for p in points], [p.altitude_deg for p in points], period=360.0)
+    blocked = low[np.degrees(np.arcsin(sin_alt[low])) < floor]
+    return np.setdiff1d(candidates, blocked, assume_unique=True) if blocked.size else candidates
+
+
+def _in_windows(request: ObservationRequest, mjd: NDArray[np.float64]) -> NDArray[np.bool_]:
+    """Which of the instants ``mjd`` fall inside any of the request's time windows."""
+    inside = np.zeros(mjd.size, dtype=bool)
+    for window in request.windows:
+        inside |= (mjd >= _mjd(window.start)) & (mjd <= _mjd(window.end))
+    return inside
+
+
+def _mjd(moment: datetime) -> float:
+    return moment.astimezone(timezone.utc).timestamp() / 86400.0 + _MJD_UNIX_EPOCH
+
+
+def _night_curve(
+    grid: SkyGrid,
+    vector: NDArray[np.float64],
+    usable: NDArray[np.float64],
+    observable: NDArray[np.float64],
+    visible: NDArray[np.float64],
+) -> dict[str, object]:
+    """Altitudes of the target, the Moon and the Sun through one representative night (for plots).
+
+    The night is the one with the most usable hours, else observable, else visible
+    hours, else the semester's middle night. The Sun-below-horizon instants are used.
+    """
+    for hours in (usable, observable, visible):
+        if hours.any():
+            night = int(np.argmax(hours))
+            break
+    else:
+        night = grid.n_nights // 2
+    view = grid.samples(0.0)
+    lo, hi = np.searchsorted(view.night_index, [night, night + 1])
+    up = view.up[lo:hi] @ vector
+    shared = grid.night_sky_curve(night)
+    return {
+        "night": shared["night"],
+        **{name: list(shared[name]) for name in ("hours_from_midnight", "moon_alt_deg", "sun_alt_deg")},  # type: ignore[call-overload]
+        "target_alt_deg": np.round(np.degrees(np.arcsin(np.clip(up, -1.0, 1.0))), 2).tolist(),
+    }
