@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import contextlib
 import logging
+import re
 import warnings
 from collections.abc import Iterator
 
@@ -92,7 +93,7 @@ def log_astropy_warnings() -> Iterator[None]:
     for item in caught:
         if issubclass(item.category, (AstropyWarning, ErfaWarning)):
             text = str(item.message)
-            _log_once(f"{item.category.__name__}:{text[:80]}", "%s: %s", item.category.__name__, text)
+            _log_once(f"{item.category.__name__}:{re.sub(r'[0-9]+', '#', text)[:80]}", "%s: %s", item.category.__name__, text)
         else:
             warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
 

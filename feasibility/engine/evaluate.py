@@ -15,6 +15,7 @@ from __future__ import annotations
 import logging
 import math
 import re
+import threading
 from collections import OrderedDict
 from datetime import datetime, timezone
 from typing import Any
@@ -121,15 +122,17 @@ class _SemesterContext:
         cached = _AVAILABILITY.get(key)
         if cached is None or cached[0] is not self.schedule or cached[1] is not self.grid:
             cached = (self.schedule, self.grid, night_availability(self.grid, instrument, self.schedule))
-            _AVAILABILITY[key] = cached
-            while len(_AVAILABILITY) > _AVAILABILITY_SIZE:
-                _AVAILABILITY.popitem(last=False)
+            with _AVAILABILITY_LOCK:  # web workers run checks in threads
+                _AVAILABILITY[key] = cached
+                while len(_AVAILABILITY) > _AVAILABILITY_SIZE:
+                    _AVAILABILITY.popitem(last=False)
         return cached[2]
 
 
 #: Per-night availability by (grid, schedule object, instrument); identity-checked, a few dozen entries.
 _AVAILABILITY: OrderedDict[tuple[int, int, str], tuple[InstrumentSchedule | None, SkyGrid, NDArray[np.bool_]]] = OrderedDict()
 _AVAILABILITY_SIZE = 64
+_AVAILABILITY_LOCK = threading.Lock()
 
 
 def check_request(

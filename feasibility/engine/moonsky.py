@@ -28,6 +28,9 @@ Krisciunas, K. & Schaefer, B. E. 1991, PASP 103, 1033.
 
 from __future__ import annotations
 
+import functools
+import math
+
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
@@ -37,10 +40,13 @@ __all__ = [
     "dark_sky_nl",
     "mag_from_nanolamberts",
     "moon_brightness",
+    "moon_term",
+    "moonlight_from_term",
     "moonlight_nl",
     "nanolamberts_from_mag",
     "optical_path",
     "scattering_function",
+    "sky_components_nl",
     "sky_brightness_mag",
 ]
 
@@ -58,6 +64,9 @@ SOLAR_COLOUR_MINUS_V: dict[str, float] = {
 }
 
 Array = NDArray[np.float64]
+
+_LN10 = math.log(10.0)
+_F_RAYLEIGH = 10.0**5.36
 
 
 def nanolamberts_from_mag(mag_arcsec2: ArrayLike) -> Array:
@@ -79,22 +88,63 @@ def optical_path(zenith_deg: ArrayLike) -> Array:
 def scattering_function(separation_deg: ArrayLike) -> Array:
     """f(ρ) = f_R + f_M, Rayleigh plus Mie scattering (eqs. 16–19), ρ in degrees."""
     rho = np.asarray(separation_deg, dtype=float)
-    rayleigh = 10.0**5.36 * (1.06 + np.cos(np.radians(rho)) ** 2)
-    with np.errstate(divide="ignore"):
-        mie = np.where(rho >= 10.0, 10.0 ** (6.15 - rho / 40.0), 6.2e7 * np.maximum(rho, 1e-3) ** -2.0)
+    rayleigh = _F_RAYLEIGH * (1.06 + np.cos(np.radians(rho)) ** 2)
+    mie = np.where(rho >= 10.0, np.exp((6.15 - rho / 40.0) * _LN10), 6.2e7 / np.maximum(rho, 1e-3) ** 2)
     return rayleigh + mie
 
 
 def moon_brightness(phase_angle_deg: ArrayLike) -> Array:
     """I*, the Moon's illuminance in the model's units (eq. 20)."""
     alpha = np.abs(np.asarray(phase_angle_deg, dtype=float))
-    return 10.0 ** (-0.4 * (3.84 + 0.026 * alpha + 4e-9 * alpha**4))
+    return np.exp(-0.4 * _LN10 * (3.84 + 0.026 * alpha + 4e-9 * alpha**4))
 
 
 def dark_sky_nl(zenith_mag_arcsec2: float, extinction: float, zenith_deg: ArrayLike) -> Array:
     """The dark sky (nL) at zenith angle ``zenith_deg`` given its zenith brightness (eq. 2)."""
     x = optical_path(zenith_deg)
-    return nanolamberts_from_mag(zenith_mag_arcsec2) * 10.0 ** (-0.4 * extinction * (x - 1.0)) * x
+    return nanolamberts_from_mag(zenith_mag_arcsec2) * np.exp(-0.4 * _LN10 * extinction * (x - 1.0)) * x
+
+
+def moon_term(phase_angle_deg: ArrayLike, moon_zenith_deg: ArrayLike, extinction: float) -> Array:
+    """The target-independent part of eq. 15, I* 10^(−0.4 k X(Z_moon)); zero with the Moon below the horizon.
+
+    The sky grid caches it per instant and extinction, so a request only adds the
+    scattering function and its own path: see :func:`moonlight_from_term`.
+    """
+    moon_zenith = np.asarray(moon_zenith_deg, dtype=float)
+    term = moon_brightness(phase_angle_deg) * np.exp(-0.4 * _LN10 * extinction * optical_path(np.minimum(moon_zenith, 90.0)))
+    return np.where(moon_zenith < 90.0, term, 0.0)
+
+
+def moonlight_from_term(term: ArrayLike, separation_deg: ArrayLike, target_zenith_deg: ArrayLike, extinction: float) -> Array:
+    """Eq. 15 from :func:`moon_term`: f(ρ) × term × [1 − 10^(−0.4 k X(Z))] (nL, V band)."""
+    return scattering_function(separation_deg) * term * -np.expm1(-0.4 * _LN10 * extinction * optical_path(target_zenith_deg))
+
+
+def sky_components_nl(
+    zenith_mag_arcsec2: float, extinction: float, sin_altitude: ArrayLike, separation_deg: ArrayLike, term: ArrayLike
+) -> tuple[Array, Array]:
+    """Dark sky (eq. 2) and V-band moonlight (eq. 15, from :func:`moon_term`) in nL, through lookup tables.
+
+    The same equations as :func:`dark_sky_nl` and :func:`moonlight_from_term`,
+    tabulated once per extinction over sin(altitude) (2001 points) and over the
+    separation (0.01° steps to 15°, 0.1° beyond) and interpolated linearly: a handful of array
+    operations per request instead of some forty, agreeing with the direct
+    evaluation to better than 0.1 % (tested).
+    """
+    grid, dark_factor, path_factor = _zenith_tables(float(extinction))
+    sin_alt = np.asarray(sin_altitude, dtype=float)
+    dark = nanolamberts_from_mag(zenith_mag_arcsec2) * np.interp(sin_alt, grid, dark_factor)
+    scattering = np.interp(separation_deg, _RHO_TABLE, _SCATTERING_TABLE)
+    return dark, scattering * np.asarray(term, dtype=float) * np.interp(sin_alt, grid, path_factor)
+
+
+@functools.lru_cache(maxsize=64)
+def _zenith_tables(extinction: float) -> tuple[Array, Array, Array]:
+    sin_alt = np.linspace(0.0, 1.0, 2001)
+    x = optical_path(90.0 - np.degrees(np.arcsin(sin_alt)))
+    factor = -0.4 * _LN10 * extinction
+    return sin_alt, np.exp(factor * (x - 1.0)) * x, -np.expm1(factor * x)
 
 
 def moonlight_nl(
@@ -105,14 +155,7 @@ def moonlight_nl(
     extinction: float,
 ) -> Array:
     """Scattered moonlight (nL, V band) at the target (eq. 15); zero when the Moon is below the horizon."""
-    moon_zenith = np.asarray(moon_zenith_deg, dtype=float)
-    brightness = (
-        scattering_function(separation_deg)
-        * moon_brightness(phase_angle_deg)
-        * 10.0 ** (-0.4 * extinction * optical_path(np.minimum(moon_zenith, 90.0)))
-        * (1.0 - 10.0 ** (-0.4 * extinction * optical_path(target_zenith_deg)))
-    )
-    return np.where(moon_zenith < 90.0, brightness, 0.0)
+    return moonlight_from_term(moon_term(phase_angle_deg, moon_zenith_deg, extinction), separation_deg, target_zenith_deg, extinction)
 
 
 def sky_brightness_mag(
@@ -142,3 +185,7 @@ def band_factor(band: str) -> float:
     factor 10^(−0.4 (band − V)); 1 for a band without a known solar colour.
     """
     return 10.0 ** (-0.4 * SOLAR_COLOUR_MINUS_V.get(band, 0.0))
+
+
+_RHO_TABLE = np.concatenate([np.linspace(0.0, 15.0, 1501), np.linspace(15.1, 180.0, 1650)])  # finer where f(ρ) is steep
+_SCATTERING_TABLE = scattering_function(_RHO_TABLE)

@@ -12,6 +12,8 @@ coordinates), 17 (angular separation) and 48 (illuminated fraction of the Moon).
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
@@ -118,16 +120,20 @@ def target_vector(
     few decades the neglected terms stay far below the engine's 0.05° tolerance
     (checked against astropy's ``apply_space_motion`` in the tests).
     """
-    position = unit_vector(ra_deg, dec_deg)
+    ra, dec = math.radians(ra_deg), math.radians(dec_deg)
+    sin_ra, cos_ra, sin_dec, cos_dec = math.sin(ra), math.cos(ra), math.sin(dec), math.cos(dec)
+    x, y, z = cos_dec * cos_ra, cos_dec * sin_ra, sin_dec
     years = at_jyear - epoch_jyear
-    if years == 0.0 or (pm_ra_cosdec_mas_yr == 0.0 and pm_dec_mas_yr == 0.0):
-        return position
-    ra, dec = np.radians(ra_deg), np.radians(dec_deg)
-    towards_east = np.array([-np.sin(ra), np.cos(ra), 0.0])
-    towards_north = np.array([-np.sin(dec) * np.cos(ra), -np.sin(dec) * np.sin(ra), np.cos(dec)])
-    shift = np.radians(years / MAS_PER_DEG) * (pm_ra_cosdec_mas_yr * towards_east + pm_dec_mas_yr * towards_north)
-    moved = position + shift
-    return moved / np.linalg.norm(moved)
+    if years != 0.0 and (pm_ra_cosdec_mas_yr != 0.0 or pm_dec_mas_yr != 0.0):
+        scale = math.radians(years / MAS_PER_DEG)
+        east, north = pm_ra_cosdec_mas_yr * scale, pm_dec_mas_yr * scale
+        # Step along the local east (-sin α, cos α, 0) and north (-sin δ cos α, -sin δ sin α, cos δ) directions.
+        x += -east * sin_ra - north * sin_dec * cos_ra
+        y += east * cos_ra - north * sin_dec * sin_ra
+        z += north * cos_dec
+        norm = math.sqrt(x * x + y * y + z * z)
+        x, y, z = x / norm, y / norm, z / norm
+    return np.array([x, y, z])
 
 
 def phase_angle_deg(sun: ArrayLike, moon: ArrayLike) -> Array:

@@ -19,8 +19,13 @@ rotation. Polar motion (< 0.5″), annual and diurnal aberration (< 21″) and l
 deflection are left out and refraction is not applied (astropy's ``AltAz`` with
 ``pressure=0``): the tests hold the grid to astropy's ``SkyCoord.transform_to(AltAz)``
 within 0.05° over whole semesters (in practice about 0.006°). The Sun comes from
-``erfa.epv00`` and the Moon from ``erfa.moon98`` (Meeus' algorithm, as astropy's
-built-in ephemeris), made topocentric with the site's position.
+``erfa.epv00`` (evaluated hourly and interpolated) and the Moon from ``erfa.moon98``
+(Meeus' algorithm, as astropy's built-in ephemeris), both made topocentric with
+the site's position.
+
+:meth:`SkyGrid.samples` gives the instants below one twilight's Sun altitude as
+contiguous arrays (:class:`NightSamples`), the form the per-request hot path in
+:mod:`feasibility.engine.sky_checks` works on.
 
 Grids are cached in memory (least recently used, per process) and on disk as
 ``.npz`` under ``$FEASIBILITY_CACHE_DIR`` (default ``~/.cache/feasibility``),
@@ -42,6 +47,7 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
+from feasibility.engine.moonsky import moon_term
 from feasibility.engine.positions import enu_matrix, illuminated_fraction, phase_angle_deg, radec_from_vector, rot3
 from feasibility.offline import configure_offline, log_astropy_warnings, note_beyond_iers_table
 
@@ -98,10 +104,18 @@ class NightSamples:
     moon_illumination: Array
     moon_phase_angle_deg: Array
     moon_up: NDArray[np.bool_]
+    _moon_terms: dict[float, Array] = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def size(self) -> int:
         return int(self.mjd.size)
+
+    def moon_term(self, extinction: float) -> Array:
+        """Per instant, the target-independent part of the moonlit sky (:func:`moonsky.moon_term`), cached per extinction."""
+        term = self._moon_terms.get(extinction)
+        if term is None:
+            term = self._moon_terms[extinction] = moon_term(self.moon_phase_angle_deg, 90.0 - self.moon_alt_deg, extinction)
+        return term
 
 
 @dataclass
@@ -240,7 +254,7 @@ def cache_dir() -> Path:
     return Path(configured).expanduser() if configured else Path.home() / ".cache" / "feasibility"
 
 
-@functools.lru_cache(maxsize=16)
+@functools.lru_cache(maxsize=8)  # a grid with its views takes roughly 10-20 MB
 def _memory_cached(
     latitude_deg: float,
     longitude_deg: float,

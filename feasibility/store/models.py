@@ -207,6 +207,7 @@ class FindingRow(Base):
     level: Mapped[str] = mapped_column(String(12), index=True)
     message: Mapped[str] = mapped_column(Text)
     suggestion: Mapped[str | None] = mapped_column(Text)
+    method: Mapped[str | None] = mapped_column(Text, doc="How the figures were computed, with the published source.")
     figures: Mapped[dict[str, Any]]
 
     outcome: Mapped[RequestOutcome] = relationship(back_populates="findings")

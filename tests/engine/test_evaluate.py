@@ -58,14 +58,14 @@ def test_result_carries_figures_series_and_versions(demo_observatory: Observator
     assert result.engine_version == feasibility.__version__
     assert result.schedule_version == demo_schedule.version and result.observatory_version == demo_observatory.version
     request = result.requests[0]
-    assert REQUIRED_FIGURES <= set(request.figures)
+    assert REQUIRED_FIGURES <= set(request.figures)  # reference: /work/interfaces.md, RequestResult.figures
     checks = {f.check for f in request.findings}
     assert {"visibility", "moon", "schedule", "sun-safety", "sensitivity"} <= checks
     assert all(f.method for f in request.findings if f.check in {"visibility", "moon", "schedule", "sun-safety"})
     series = request.series
     assert len(series["nights"]) == len(series["hours_usable"]) == len(series["moon_illumination"]) == 183
     assert {"hours_from_midnight", "target_alt_deg", "moon_alt_deg", "sun_alt_deg", "night"} <= set(series["night_curve"])
-    assert request.verdict is worst([f.level for f in request.findings])
+    assert request.verdict is worst([f.level for f in request.findings])  # shared/VOCABULARY.md: verdict = worst finding
     json.dumps(result.model_dump(mode="json"))  # storable as JSON
 
 
@@ -84,7 +84,7 @@ def test_unknown_instrument_is_unchecked_and_others_still_run(demo_observatory: 
     good, odd = result.requests
     assert good.verdict is not Level.UNCHECKED
     assert odd.verdict is Level.UNCHECKED
-    assert "requests[1].instrument" in odd.findings[0].message
+    assert "requests[1].instrument" in odd.findings[0].message  # helper rules: errors name the field path
     assert result.verdict is worst([good.verdict, odd.verdict])
 
 

@@ -80,3 +80,25 @@ def test_other_bands_carry_the_suns_colour() -> None:
     assert moonsky.mag_from_nanolamberts(v_moon) == pytest.approx(v_total, abs=1e-3)
     # Reference (from memory): the Sun's V - R is about 0.36 (Johnson-Cousins), so moonlight is that much brighter in R.
     assert v_total - r_total == pytest.approx(0.36, abs=0.01)
+
+
+def test_cached_moon_term_gives_equation_15() -> None:
+    phase, separation, moon_zenith, zenith = np.array([10.0, 80.0, 30.0]), np.array([30.0, 60.0, 5.0]), np.array([20.0, 50.0, 95.0]), np.array([30.0, 10.0, 60.0])
+    term = moonsky.moon_term(phase, moon_zenith, 0.15)
+    # K&S eq. 15 split into its target-independent and target-dependent factors gives the same product.
+    assert moonsky.moonlight_from_term(term, separation, zenith, 0.15) == pytest.approx(
+        moonsky.scattering_function(separation) * moonsky.moon_brightness(phase)
+        * 10 ** (-0.4 * 0.15 * moonsky.optical_path(np.minimum(moon_zenith, 90.0)))
+        * (1 - 10 ** (-0.4 * 0.15 * moonsky.optical_path(zenith))) * (moon_zenith < 90.0)
+    )
+
+
+def test_tabulated_components_match_the_equations() -> None:
+    rng = np.random.default_rng(3)
+    altitude = rng.uniform(5.0, 90.0, 500)
+    separation = rng.uniform(1.0, 179.0, 500)
+    term = moonsky.moon_term(rng.uniform(0.0, 150.0, 500), rng.uniform(0.0, 89.0, 500), 0.12)
+    dark, moon = moonsky.sky_components_nl(21.6, 0.12, np.sin(np.radians(altitude)), separation, term)
+    # K&S eqs. 2 and 15 evaluated directly; the tables agree within 0.1 %.
+    assert dark == pytest.approx(moonsky.dark_sky_nl(21.6, 0.12, 90.0 - altitude), rel=1e-3)
+    assert moon == pytest.approx(moonsky.moonlight_from_term(term, separation, 90.0 - altitude, 0.12), rel=1e-3)

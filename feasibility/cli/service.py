@@ -1,0 +1,181 @@
+"""Commands that run and administer the service: ``serve``, ``db upgrade``, ``token create``, ``user create``."""
+
+from __future__ import annotations
+
+import sys
+from importlib import resources
+
+import click
+from sqlalchemy import func, select
+
+__all__ = ["register"]
+
+
+def register(main: click.Group) -> None:
+    """Attach this module's commands to the ``feasibility`` group."""
+    main.add_command(serve)
+    main.add_command(db_group)
+    main.add_command(token_group)
+    main.add_command(user_group)
+
+
+@click.command()
+@click.option("--host", default="127.0.0.1", show_default=True, help="Address to listen on.")
+@click.option("--port", default=5000, show_default=True, type=click.IntRange(0, 65535), help="Port to listen on (0: any free port).")
+@click.option("--workers", default=2, show_default=True, type=click.IntRange(1, 32), help="Embedded check workers (threads).")
+@click.option("--demo", is_flag=True, help="Also submit the packaged demo proposals.")
+def serve(host: str, port: int, workers: int, demo: bool) -> None:
+    """Run the service on this machine: store (SQLite by default), embedded workers, API and pages.
+
+    The store is upgraded and the demo observatory loaded when empty. With no
+    user yet, an admin token is made and printed once.
+    """
+    from werkzeug.serving import make_server
+
+    from feasibility.store.db import default_database_url
+    from feasibility.store.migrate import upgrade
+    from feasibility.web import create_app
+
+    url = default_database_url()
+    upgrade(url)
+    app = create_app({"EMBEDDED_WORKERS": workers})
+    with app.app_context():
+        _first_admin_token()
+        if demo:
+            _submit_demo_proposals()
+    dispatcher = app.extensions["feasibility.dispatch"]
+    if hasattr(dispatcher, "start"):
+        dispatcher.start()
+    server = make_server(host, port, app, threaded=True)
+    mode = "Celery workers via BROKER_URL" if app.config["BROKER_URL"] else f"{workers} embedded workers"
+    click.echo(f"Serving on http://{host}:{server.server_port}/  (API: /api/v1, store: {_safe(app.config['DATABASE_URL'])}, {mode})")
+    click.echo("Press Ctrl+C to stop.")
+    try:
+        server.serve_forever()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        server.server_close()
+        if hasattr(dispatcher, "shutdown"):
+            dispatcher.shutdown()
+
+
+@click.group("db")
+def db_group() -> None:
+    """The store's schema."""
+
+
+@db_group.command("upgrade")
+@click.option("--revision", default="head", show_default=True, help="Alembic revision to upgrade to.")
+@click.option("--no-demo", is_flag=True, help="Do not load the demo observatory into an empty store.")
+def db_upgrade(revision: str, no_demo: bool) -> None:
+    """Create or upgrade the tables of the store at DATABASE_URL (default: SQLite in ./instance)."""
+    from feasibility.store.db import default_database_url
+    from feasibility.store.migrate import upgrade
+    from feasibility.web import create_app
+
+    url = default_database_url()
+    upgrade(url, revision)
+    if not no_demo:
+        create_app({"SEED_DEMO": True})
+    click.echo(f"Store at {_safe(url)} is at revision {revision}.")
+
+
+@click.group("token")
+def token_group() -> None:
+    """API tokens."""
+
+
+@token_group.command("create")
+@click.option("--user", "user_name", required=True, help="The user the token belongs to (created if missing when --role is given).")
+@click.option("--role", type=click.Choice(["reviewer", "proposer", "portal", "admin"]), help="Role for a new user.")
+@click.option("--label", default=None, help="A note on what the token is for.")
+def token_create(user_name: str, role: str | None, label: str | None) -> None:
+    """Make an API token and print it once; only its hash is stored."""
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import User
+    from feasibility.web import create_app
+    from feasibility.web.auth import create_token, create_user
+
+    with create_app().app_context(), session_scope() as session:
+        user = session.scalar(select(User).where(User.name == user_name))
+        if user is None:
+            if role is None:
+                _fail(f"--user: no user named {user_name!r}; give --role to create one")
+            user = create_user(session, user_name, role)  # type: ignore[arg-type]
+        elif role is not None and role != user.role:
+            _fail(f"--role: {user_name!r} has the role {user.role!r}, not {role!r}")
+        token = create_token(session, user, label)
+    click.echo(token)
+
+
+@click.group("user")
+def user_group() -> None:
+    """Users of the dashboard and the API."""
+
+
+@user_group.command("create")
+@click.argument("name")
+@click.option("--role", type=click.Choice(["reviewer", "proposer", "portal", "admin"]), required=True)
+@click.option("--email", default=None)
+@click.option("--password", is_flag=True, help="Ask for a password (for signing in to the dashboard).")
+def user_create(name: str, role: str, email: str | None, password: bool) -> None:
+    """Create a user; with --password, ask for a password (stored as a salted hash)."""
+    from feasibility.store.db import session_scope
+    from feasibility.web import create_app
+    from feasibility.web.auth import create_user
+
+    secret = click.prompt("Password", hide_input=True, confirmation_prompt=True) if password else None
+    with create_app().app_context(), session_scope() as session:
+        try:
+            create_user(session, name, role, password=secret, email=email)
+        except ValueError as exc:
+            _fail(f"NAME: {exc}")
+    click.echo(f"User {name} ({role}) created.")
+
+
+def _first_admin_token() -> None:
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import User
+    from feasibility.web.auth import create_token, create_user
+
+    with session_scope() as session:
+        if session.scalar(select(func.count()).select_from(User)):
+            return
+        admin = create_user(session, "admin", "admin")
+        token = create_token(session, admin, "made by the first `feasibility serve`")
+    click.echo(f"Admin API token (shown once; keep it): {token}")
+
+
+def _submit_demo_proposals() -> None:
+    from feasibility.documents.loading import DocumentError
+    from feasibility.service.dispatch import enqueue
+    from feasibility.service.submissions import submit
+    from feasibility.store.db import session_scope
+
+    created: list[int] = []
+    folder = resources.files("feasibility") / "data" / "proposals"
+    for item in sorted(folder.iterdir(), key=lambda p: p.name):
+        if not item.name.endswith(".yaml"):
+            continue
+        try:
+            with session_scope() as session:
+                result = submit(session, item.read_bytes(), None, reason="demo")
+                if result.created:
+                    created.append(result.run.id)
+        except DocumentError as exc:
+            click.echo(f"demo proposal {item.name} skipped: {exc}", err=True)
+    enqueue(created)
+    click.echo(f"Demo proposals submitted: {len(created)} new check runs.")
+
+
+def _safe(url: str) -> str:
+    """A database URL without its password."""
+    from sqlalchemy.engine import make_url
+
+    return make_url(url).render_as_string(hide_password=True)
+
+
+def _fail(message: str) -> None:
+    click.echo(f"error: {message}", err=True)
+    sys.exit(2)

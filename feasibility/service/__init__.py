@@ -1,0 +1,1 @@
+"""The service around the engine: submissions, the queue, runs and re-checks."""

@@ -1,0 +1,132 @@
+"""The observatory description and instrument schedules in force, and storing new versions of them.
+
+The newest stored version is the one in force. On first start the packaged demo
+observatory and its schedules are stored when the store holds none.
+"""
+
+from __future__ import annotations
+
+from importlib import resources
+
+from sqlalchemy import select, text
+from sqlalchemy.orm import Session, defer
+
+from feasibility.documents import InstrumentSchedule, Observatory, parse_document
+from feasibility.documents.consistency import schedule_problems
+from feasibility.documents.loading import DocumentError
+from feasibility.store.hashing import document_hash
+from feasibility.store.models import ObservatoryVersion, ScheduleVersion, User
+
+__all__ = [
+    "add_observatory_version",
+    "add_schedule_version",
+    "current_observatory",
+    "current_schedule",
+    "observatory_of",
+    "schedule_of",
+    "seed_demo",
+]
+
+
+def current_observatory(session: Session) -> ObservatoryVersion | None:
+    """The observatory description in force: the newest stored version."""
+    query = select(ObservatoryVersion).options(defer(ObservatoryVersion.document)).order_by(ObservatoryVersion.id.desc()).limit(1)
+    return session.scalars(query).first()
+
+
+def current_schedule(session: Session, semester: str) -> ScheduleVersion | None:
+    """The instrument schedule in force for ``semester``, or None when none was uploaded."""
+    query = (
+        select(ScheduleVersion)
+        .options(defer(ScheduleVersion.document))
+        .where(ScheduleVersion.semester == semester)
+        .order_by(ScheduleVersion.id.desc())
+        .limit(1)
+    )
+    return session.scalars(query).first()
+
+
+def observatory_of(version: ObservatoryVersion) -> Observatory:
+    """The stored observatory description as a document (parsed once per content hash and process).
+
+    The ``document`` column is loaded on first access only, so a cached
+    observatory costs no transfer of its JSON.
+    """
+    key = ("observatory", version.content_hash)
+    if key not in _parsed:
+        _parsed[key] = parse_document(Observatory, version.document, "observatory")
+    return _parsed[key]  # type: ignore[return-value]
+
+
+def schedule_of(version: ScheduleVersion | None) -> InstrumentSchedule | None:
+    """The stored schedule as a document, or None."""
+    if version is None:
+        return None
+    key = ("schedule", version.content_hash)
+    if key not in _parsed:
+        _parsed[key] = parse_document(InstrumentSchedule, version.document, "schedule")
+    return _parsed[key]  # type: ignore[return-value]
+
+
+def add_observatory_version(session: Session, observatory: Observatory, uploaded_by: User | None = None) -> ObservatoryVersion:
+    """Store ``observatory`` as the version in force, unless it equals the one in force already."""
+    digest = document_hash(observatory)
+    now = current_observatory(session)
+    if now is not None and now.content_hash == digest:
+        return now
+    version = ObservatoryVersion(
+        name=observatory.name,
+        version_label=observatory.version,
+        content_hash=digest,
+        document=observatory.model_dump(mode="json", by_alias=True),
+        uploaded_by=uploaded_by.id if uploaded_by else None,
+    )
+    session.add(version)
+    session.flush()
+    return version
+
+
+def add_schedule_version(session: Session, schedule: InstrumentSchedule, uploaded_by: User | None = None) -> ScheduleVersion:
+    """Store ``schedule`` as the one in force for its semester; checked against the observatory in force."""
+    observatory_row = current_observatory(session)
+    if observatory_row is not None:
+        problems = schedule_problems(schedule, observatory_of(observatory_row))
+        if problems:
+            raise DocumentError(problems, "schedule")
+    digest = document_hash(schedule)
+    now = current_schedule(session, schedule.semester)
+    if now is not None and now.content_hash == digest:
+        return now
+    version = ScheduleVersion(
+        semester=schedule.semester,
+        version_label=schedule.version,
+        content_hash=digest,
+        document=schedule.model_dump(mode="json", by_alias=True),
+        uploaded_by=uploaded_by.id if uploaded_by else None,
+    )
+    session.add(version)
+    session.flush()
+    return version
+
+
+def seed_demo(session: Session) -> bool:
+    """Store the packaged demo observatory and schedules when the store has no observatory yet.
+
+    Returns True when something was stored. On PostgreSQL a transaction-level
+    advisory lock keeps several starting processes from seeding twice.
+    """
+    if session.get_bind().dialect.name == "postgresql":
+        session.execute(text("SELECT pg_advisory_xact_lock(7020311)"))
+    if current_observatory(session) is not None:
+        return False
+    data = resources.files("feasibility") / "data"
+    observatory = parse_document(Observatory, (data / "observatory.yaml").read_bytes(), "observatory.yaml")
+    add_observatory_version(session, observatory)
+    for item in sorted(data.iterdir(), key=lambda p: p.name):
+        if item.name.startswith("schedule-") and item.name.endswith(".yaml"):
+            add_schedule_version(session, parse_document(InstrumentSchedule, item.read_bytes(), item.name))
+    return True
+
+
+#: Parsed documents by (kind, content hash): the same hash is the same document, in any store.
+_parsed: dict[tuple[str, str], object] = {}

@@ -1,0 +1,190 @@
+"""Storing a submitted proposal and the check run it needs.
+
+A submission is validated (fields, then consistency with the observatory in
+force), stored as a new proposal version unless that exact content was stored
+before, and given a check run against the observatory and schedule in force.
+Identical content gives the existing run back, so re-submitting is harmless.
+The caller commits, then enqueues the run (:func:`feasibility.service.dispatch.enqueue`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, TypeVar
+
+from sqlalchemy import exists, or_, select
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
+
+from feasibility.documents import Proposal, parse_document
+from feasibility.documents.consistency import proposal_problems
+from feasibility.documents.loading import DocumentError, Problem
+from feasibility.service.current import current_observatory, current_schedule, observatory_of
+from feasibility.service.engine_version import engine_version
+from feasibility.store.hashing import document_hash
+from feasibility.store.models import CheckRun, ObservatoryVersion, ProposalRecord, ProposalVersion, ScheduleVersion, User
+
+__all__ = ["NotAllowed", "Submission", "ensure_run", "submit", "submit_proposal"]
+
+#: Priority of a fresh submission; re-checks use higher numbers (run later).
+SUBMISSION_PRIORITY = 0
+
+Row = TypeVar("Row")
+
+
+class NotAllowed(PermissionError):
+    """The user may not submit this proposal (it belongs to someone else)."""
+
+
+@dataclass
+class Submission:
+    """What a submission did: the run to wait for, and whether it is new (and so must be enqueued)."""
+
+    run: CheckRun
+    created: bool
+    proposal: ProposalRecord
+    version: ProposalVersion
+
+
+def submit_proposal(session: Session, document: dict[str, Any] | str | bytes, submitted_by: User | None, reason: str = "submitted") -> CheckRun:
+    """Validate and store ``document``; the check run for it (existing or new). The caller commits."""
+    return submit(session, document, submitted_by, reason=reason).run
+
+
+def submit(
+    session: Session,
+    document: dict[str, Any] | str | bytes,
+    submitted_by: User | None,
+    *,
+    reason: str = "submitted",
+    owner: User | None = None,
+    priority: int = SUBMISSION_PRIORITY,
+) -> Submission:
+    """Validate and store ``document`` and make sure a check run exists for it.
+
+    ``owner`` is the proposer a portal submits for; a proposer owns what they submit.
+    Raises :class:`DocumentError` for bad input and :class:`NotAllowed` when the
+    proposal id belongs to another user.
+    """
+    if submitted_by is not None and submitted_by.role not in ("proposer", "portal", "admin"):
+        raise NotAllowed(f"the role {submitted_by.role!r} may not submit proposals")
+    proposal = parse_document(Proposal, document, "proposal")
+    observatory_row = current_observatory(session)
+    if observatory_row is None:
+        raise DocumentError([Problem("", "the service has no observatory description yet")], "proposal")
+    problems = proposal_problems(proposal, observatory_of(observatory_row))
+    if problems:
+        raise DocumentError(problems, "proposal")
+    if owner is None and submitted_by is not None and submitted_by.role == "proposer":
+        owner = submitted_by
+
+    record, new_record = _proposal_record(session, proposal, owner)
+    if not new_record:
+        _check_allowed(session, record, submitted_by, owner)
+    if record.semester != proposal.semester:
+        record.semester = proposal.semester
+    # A row that references a row created in this transaction cannot exist yet: no need to look.
+    version, new_version = _proposal_version(session, record, proposal, submitted_by, new=new_record)
+    schedule_row = current_schedule(session, proposal.semester)
+    run, created = ensure_run(session, version, observatory_row, schedule_row, reason=reason, priority=priority, new=new_version)
+    return Submission(run=run, created=created, proposal=record, version=version)
+
+
+def ensure_run(
+    session: Session,
+    version: ProposalVersion,
+    observatory_row: ObservatoryVersion,
+    schedule_row: ScheduleVersion | None,
+    *,
+    reason: str = "submitted",
+    priority: int = SUBMISSION_PRIORITY,
+    new: bool = False,
+) -> tuple[CheckRun, bool]:
+    """The check run of ``version`` against these inputs and the current engine: found, or created queued.
+
+    The unique constraint on the inputs makes this safe when two processes ask at once.
+    ``new=True`` says ``version`` was created in this transaction (so no run can exist yet).
+    """
+    schedule_key = schedule_row.id if schedule_row is not None else 0
+    lookup = {
+        "proposal_version_id": version.id,
+        "observatory_version_id": observatory_row.id,
+        "schedule_key": schedule_key,
+        "engine_version": engine_version(),
+    }
+    return _get_or_create(
+        session,
+        CheckRun,
+        lookup,
+        {"schedule_version_id": schedule_row.id if schedule_row is not None else None, "reason": reason, "priority": priority, "state": "queued"},
+        new=new,
+    )
+
+
+def _proposal_record(session: Session, proposal: Proposal, owner: User | None) -> tuple[ProposalRecord, bool]:
+    return _get_or_create(
+        session,
+        ProposalRecord,
+        {"proposal_id": proposal.id},
+        {"semester": proposal.semester, "owner_id": owner.id if owner is not None else None},
+    )
+
+
+def _check_allowed(session: Session, record: ProposalRecord, user: User | None, owner: User | None) -> None:
+    """A proposer may only add versions to their own proposals, a portal only to those it submitted."""
+    if user is None or user.role == "admin":
+        return
+    if user.role == "proposer":
+        if record.owner_id != user.id:
+            raise NotAllowed(f"proposal {record.proposal_id!r} belongs to another user")
+    elif user.role == "portal":
+        by_others = or_(ProposalVersion.submitted_by.is_(None), ProposalVersion.submitted_by != user.id)
+        if session.scalar(select(exists().where(ProposalVersion.proposal_ref == record.id, by_others))):
+            raise NotAllowed(f"proposal {record.proposal_id!r} was submitted by another user")
+        if owner is not None:
+            if record.owner_id is None:
+                record.owner_id = owner.id
+            elif record.owner_id != owner.id:
+                raise NotAllowed(f"proposal {record.proposal_id!r} belongs to another proposer")
+
+
+def _proposal_version(session: Session, record: ProposalRecord, proposal: Proposal, user: User | None, *, new: bool) -> tuple[ProposalVersion, bool]:
+    requests = proposal.requests
+    return _get_or_create(
+        session,
+        ProposalVersion,
+        {"proposal_ref": record.id, "content_hash": document_hash(proposal)},
+        {
+            "document": proposal.model_dump(mode="json", by_alias=True),
+            "title": proposal.title,
+            "pi_name": proposal.pi.name,
+            "instruments": ",".join(sorted({r.instrument for r in requests})),
+            "targets": "\n".join(r.target.name for r in requests),
+            "hours_requested": float(sum(r.hours_requested for r in requests)),
+            "submitted_by": user.id if user is not None else None,
+        },
+        new=new,
+    )
+
+
+def _get_or_create(session: Session, model: type[Row], lookup: dict[str, Any], values: dict[str, Any], *, new: bool = False) -> tuple[Row, bool]:
+    """Find the row matching ``lookup`` or insert it; a concurrent insert of the same row is found, not duplicated.
+
+    ``new=True``: the row cannot exist yet (its parent is new in this transaction); insert directly.
+    """
+    if new:
+        row = model(**lookup, **values)
+        session.add(row)
+        session.flush()
+        return row, True
+    query = select(model).filter_by(**lookup)
+    row = session.scalars(query).first()
+    if row is not None:
+        return row, False
+    try:
+        with session.begin_nested():  # a savepoint: a unique-constraint clash undoes only this insert
+            row = model(**lookup, **values)
+            session.add(row)
+    except IntegrityError:
+        return session.scalars(query).one(), False
+    return row, True

@@ -1,0 +1,1 @@
+"""The store: database tables, engine and sessions, and the queries the service needs."""

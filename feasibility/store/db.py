@@ -1,0 +1,146 @@
+"""The database engine and sessions.
+
+One engine per Flask application (kept in ``app.extensions``), so tests and
+several apps in one process never share a connection pool; outside an app
+context the process-wide default from :func:`configure` is used.
+
+SQLite (the embedded default) runs in WAL mode with a busy timeout, so the web
+threads and the in-process workers can read while one of them writes.
+"""
+
+from __future__ import annotations
+
+import os
+import weakref
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any
+
+from flask import current_app, has_app_context
+from sqlalchemy import Engine, create_engine, event
+from sqlalchemy.orm import Session, sessionmaker
+
+__all__ = [
+    "configure",
+    "dispose_pools_after_fork",
+    "default_database_url",
+    "get_engine",
+    "instance_dir",
+    "make_engine",
+    "session_factory",
+    "session_scope",
+]
+
+#: How long an SQLite connection waits for another writer before giving up, in milliseconds.
+SQLITE_BUSY_TIMEOUT_MS = 30_000
+
+_EXTENSION = "feasibility.db"
+_default: dict[str, Any] = {}
+_engines: "weakref.WeakSet[Engine]" = weakref.WeakSet()
+
+
+def instance_dir() -> Path:
+    """Where the embedded database lives: ``$FEASIBILITY_HOME`` or ``./instance``."""
+    return Path(os.environ.get("FEASIBILITY_HOME") or Path.cwd() / "instance")
+
+
+def default_database_url() -> str:
+    """``$DATABASE_URL``, or an SQLite file in :func:`instance_dir`."""
+    url = os.environ.get("DATABASE_URL")
+    if url:
+        return url
+    return f"sqlite:///{instance_dir() / 'feasibility.sqlite'}"
+
+
+def make_engine(url: str) -> Engine:
+    """An engine for ``url``; SQLite gets WAL mode, a busy timeout, foreign keys and real transactions."""
+    if url.startswith("sqlite"):
+        path = url.split("///", 1)[1] if "///" in url else ""
+        if path and path != ":memory:":
+            Path(path).parent.mkdir(parents=True, exist_ok=True)
+        engine = create_engine(url, connect_args={"timeout": SQLITE_BUSY_TIMEOUT_MS / 1000, "check_same_thread": False})
+        event.listen(engine, "connect", _sqlite_on_connect)
+        event.listen(engine, "begin", _sqlite_on_begin)
+    else:
+        # pool_pre_ping: a connection dropped by a database restart is replaced, not handed out.
+        engine = create_engine(url, pool_pre_ping=True, pool_size=5, max_overflow=10)
+    _engines.add(engine)
+    return engine
+
+
+def dispose_pools_after_fork() -> None:
+    """Forget every engine's pooled connections inherited from a parent process, without closing them.
+
+    A forked worker must open its own connections; closing the inherited ones would
+    close the parent's (SQLAlchemy's "Using Connection Pools with Multiprocessing").
+    """
+    for engine in list(_engines):
+        engine.dispose(close=False)
+
+
+def configure(url: str) -> Engine:
+    """Set the process-wide default engine (used outside a Flask app context)."""
+    old = _default.get("engine")
+    if old is not None:
+        old.dispose()
+    engine = make_engine(url)
+    _default["engine"] = engine
+    _default["sessions"] = sessionmaker(bind=engine, expire_on_commit=False)
+    return engine
+
+
+def init_app(app: Any) -> Engine:
+    """Give ``app`` its own engine from ``app.config['DATABASE_URL']``."""
+    engine = make_engine(app.config["DATABASE_URL"])
+    app.extensions[_EXTENSION] = {"engine": engine, "sessions": sessionmaker(bind=engine, expire_on_commit=False)}
+    return engine
+
+
+def get_engine() -> Engine:
+    """The current app's engine, or the process default (configured from ``$DATABASE_URL`` on first use)."""
+    return _state()["engine"]
+
+
+def session_factory() -> Session:
+    """A new session on the current app's engine (the caller closes it)."""
+    return _state()["sessions"]()
+
+
+@contextmanager
+def session_scope() -> Iterator[Session]:
+    """A session in a transaction: committed when the block ends, rolled back on an exception."""
+    session = session_factory()
+    try:
+        yield session
+        session.commit()
+    except BaseException:
+        session.rollback()
+        raise
+    finally:
+        session.close()
+
+
+def _state() -> dict[str, Any]:
+    if has_app_context():
+        state = current_app.extensions.get(_EXTENSION)
+        if state is not None:
+            return state
+    if "engine" not in _default:
+        configure(default_database_url())
+    return _default
+
+
+def _sqlite_on_connect(dbapi_connection: Any, connection_record: Any) -> None:
+    # Let SQLAlchemy, not the sqlite3 module, emit BEGIN, so SAVEPOINT works (SQLAlchemy's pysqlite notes).
+    dbapi_connection.isolation_level = None
+    cursor = dbapi_connection.cursor()
+    cursor.execute("PRAGMA journal_mode=WAL")  # readers do not block the writer, nor it them
+    cursor.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")  # wait for a writer instead of failing
+    cursor.execute("PRAGMA foreign_keys=ON")
+    cursor.execute("PRAGMA synchronous=NORMAL")  # safe in WAL mode; fewer fsyncs
+    cursor.close()
+
+
+def _sqlite_on_begin(connection: Any) -> None:
+    connection.exec_driver_sql("BEGIN")

@@ -1,0 +1,137 @@
+"""The queries the API and dashboard need: proposals by semester, verdict, instrument and check.
+
+A proposal's verdict is that of its latest finished check run (the highest run id
+in state ``done`` over all its versions); its status is that of its latest run.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from sqlalchemy import ColumnElement, Select, exists, func, select, true
+from sqlalchemy.orm import Session
+
+from feasibility.store.models import CheckRun, FindingRow, ProposalRecord, ProposalVersion, RequestOutcome, User
+
+__all__ = [
+    "ProposalRow",
+    "latest_done_run",
+    "latest_run",
+    "latest_version",
+    "list_proposals",
+    "runs_of",
+    "visible_to",
+]
+
+#: Roles that see every proposal.
+_READ_ALL = ("reviewer", "admin")
+
+
+@dataclass
+class ProposalRow:
+    """One line of a proposal list: the proposal, its latest version and its latest finished run (if any)."""
+
+    proposal: ProposalRecord
+    version: ProposalVersion
+    run: CheckRun | None
+
+
+def visible_to(user: User | None) -> ColumnElement[bool]:
+    """Which proposals ``user`` may read: all for reviewers and admins, own for proposers, submitted for portals."""
+    if user is None or user.role in _READ_ALL:
+        return true()
+    if user.role == "portal":
+        return exists().where(ProposalVersion.proposal_ref == ProposalRecord.id, ProposalVersion.submitted_by == user.id)
+    return ProposalRecord.owner_id == user.id
+
+
+def list_proposals(
+    session: Session,
+    *,
+    user: User | None = None,
+    semester: str | None = None,
+    verdict: str | None = None,
+    instrument: str | None = None,
+    failed_check: str | None = None,
+    offset: int = 0,
+    limit: int = 50,
+) -> tuple[list[ProposalRow], int]:
+    """A page of proposals matching the filters, newest first, and how many match in all.
+
+    ``failed_check`` keeps proposals whose latest verdict has a finding of that
+    check worse than feasible; ``instrument`` those whose latest version uses it.
+    """
+    done = _latest_done_runs()
+    newest = _latest_versions()
+    query: Select = (
+        select(ProposalRecord, ProposalVersion, CheckRun)
+        .join(newest, newest.c.proposal_ref == ProposalRecord.id)
+        .join(ProposalVersion, ProposalVersion.id == newest.c.version_id)
+        .outerjoin(done, done.c.proposal_ref == ProposalRecord.id)
+        .outerjoin(CheckRun, CheckRun.id == done.c.run_id)
+        .where(visible_to(user))
+    )
+    if semester:
+        query = query.where(ProposalRecord.semester == semester)
+    if verdict:
+        query = query.where(CheckRun.verdict == verdict)
+    if instrument:
+        # instruments are stored comma-separated, sorted; match a whole name
+        joined = "," + ProposalVersion.instruments + ","
+        query = query.where(joined.contains(f",{instrument},"))
+    if failed_check:
+        query = query.where(
+            exists()
+            .where(RequestOutcome.run_id == CheckRun.id, FindingRow.outcome_id == RequestOutcome.id)
+            .where(FindingRow.check == failed_check, FindingRow.level != "feasible")
+        )
+    total = session.scalar(select(func.count()).select_from(query.order_by(None).subquery())) or 0
+    rows = session.execute(query.order_by(ProposalRecord.id.desc()).offset(offset).limit(limit)).all()
+    return [ProposalRow(p, v, r) for p, v, r in rows], int(total)
+
+
+def latest_version(session: Session, proposal: ProposalRecord) -> ProposalVersion:
+    """The proposal's newest version."""
+    query = select(ProposalVersion).where(ProposalVersion.proposal_ref == proposal.id).order_by(ProposalVersion.id.desc())
+    return session.scalars(query.limit(1)).one()
+
+
+def latest_run(session: Session, proposal: ProposalRecord) -> CheckRun | None:
+    """The proposal's most recent check run, in any state."""
+    return session.scalars(_runs(proposal).order_by(CheckRun.id.desc()).limit(1)).first()
+
+
+def latest_done_run(session: Session, proposal: ProposalRecord) -> CheckRun | None:
+    """The proposal's most recent finished check run: the one whose verdict stands."""
+    return session.scalars(_runs(proposal).where(CheckRun.state == "done").order_by(CheckRun.id.desc()).limit(1)).first()
+
+
+def runs_of(session: Session, proposal: ProposalRecord, *, offset: int = 0, limit: int = 100) -> list[CheckRun]:
+    """The proposal's check runs, newest first."""
+    return list(session.scalars(_runs(proposal).order_by(CheckRun.id.desc()).offset(offset).limit(limit)))
+
+
+def _runs(proposal: ProposalRecord) -> Select:
+    return select(CheckRun).join(ProposalVersion, CheckRun.proposal_version_id == ProposalVersion.id).where(
+        ProposalVersion.proposal_ref == proposal.id
+    )
+
+
+def _latest_done_runs():  # type: ignore[no-untyped-def]
+    return (
+        select(ProposalVersion.proposal_ref.label("proposal_ref"), func.max(CheckRun.id).label("run_id"))
+        .join(CheckRun, CheckRun.proposal_version_id == ProposalVersion.id)
+        .where(CheckRun.state == "done")
+        .group_by(ProposalVersion.proposal_ref)
+        .subquery("latest_done")
+    )
+
+
+def _latest_versions():  # type: ignore[no-untyped-def]
+    return (
+        select(ProposalVersion.proposal_ref.label("proposal_ref"), func.max(ProposalVersion.id).label("version_id"))
+        .group_by(ProposalVersion.proposal_ref)
+        .subquery("latest_version")
+    )
+
+

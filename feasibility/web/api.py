@@ -1,0 +1,378 @@
+"""The JSON API under /api/v1: submit proposals, follow their check runs, read verdicts.
+
+Bad input gets a 4xx JSON body naming each field path and its problem; nothing
+stored before is changed by a rejected submission. The OpenAPI document is at
+/api/v1/openapi.json.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from typing import Any
+
+import yaml
+from flask import Blueprint, abort, current_app, request, url_for
+from sqlalchemy import select
+from sqlalchemy.exc import OperationalError
+from sqlalchemy.orm import Session
+
+from feasibility.documents.loading import DocumentError, Problem
+from feasibility.service.dispatch import enqueue
+from feasibility.service.submissions import NotAllowed, Submission, submit
+from feasibility.store import queries
+from feasibility.store.db import session_scope
+from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
+from feasibility.web.auth import READ_ALL, SUBMITTERS, current_user, require_role
+
+__all__ = ["bp", "proposal_json", "run_json"]
+
+bp = Blueprint("api", __name__, url_prefix="/api/v1")
+
+#: PyYAML's C parser when built with libyaml, else the pure-Python one; both safe.
+_YamlLoader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+
+#: How often a waiting self-check looks at the store, in seconds.
+_POLL_S = 0.1
+#: Attempts at a submission that meets a busy database (SQLite's single writer).
+_DB_ATTEMPTS = 5
+
+
+class Malformed(DocumentError):
+    """A request that cannot be read at all (not JSON or YAML, bad query parameter): 400 rather than 422."""
+
+
+@bp.errorhandler(DocumentError)
+def _invalid(error: DocumentError) -> tuple[dict[str, Any], int]:
+    return error.as_dict(), 400 if isinstance(error, Malformed) else 422
+
+
+@bp.errorhandler(NotAllowed)
+def _forbidden(error: NotAllowed) -> tuple[dict[str, Any], int]:
+    return {"error": "forbidden", "message": str(error)}, 403
+
+
+@bp.get("/openapi.json")
+def openapi() -> dict[str, Any]:
+    """The OpenAPI 3 description of this API."""
+    from feasibility.web.openapi import openapi_document
+
+    return openapi_document()
+
+
+@bp.get("/health")
+def health() -> dict[str, Any]:
+    """Liveness: the store answers; which dispatcher computes runs."""
+    with session_scope() as session:
+        session.execute(select(1))
+    return {"status": "ok", "mode": current_app.extensions["feasibility.dispatch"].mode}
+
+
+@bp.get("/me")
+@require_role()
+def me() -> dict[str, Any]:
+    """Who the token belongs to."""
+    user = current_user()
+    assert user is not None
+    return {"name": user.name, "role": user.role}
+
+
+@bp.post("/proposals")
+@require_role(*SUBMITTERS)
+def submit_one() -> tuple[dict[str, Any], int, dict[str, str]]:
+    """Submit one proposal (JSON or YAML). 202 with a new run; 200 with the existing run for identical content.
+
+    ``?wait=S`` (at most MAX_WAIT_S) waits for the verdict — a self-check — and
+    returns it when ready, else the run as usual.
+    """
+    wait = _wait_seconds()
+    user = current_user()
+    owner = _on_behalf_of(user)
+    body = _parse_body(_body(), "proposal")
+    if not isinstance(body, dict):
+        raise DocumentError([Problem("", "must be a mapping of fields at the top level")], "proposal")
+    run_id, created, payload = _submit_with_retries(body, user, owner, describe=True)
+    if created:
+        enqueue([run_id])  # only now: the transaction that created the run has committed
+    if wait > 0 and payload["state"] in ("queued", "running"):
+        payload = _wait_for(run_id, wait)
+    status = 202 if created and payload["state"] in ("queued", "running") else 200
+    return {"created": created, "run": payload}, status, {"Location": url_for("api.get_run", run_id=run_id)}
+
+
+def _wait_for(run_id: int, wait: float) -> dict[str, Any]:
+    """The run once done or failed, or as it is when ``wait`` seconds have passed."""
+    deadline = time.monotonic() + wait
+    with session_scope() as session:
+        run = session.get_one(CheckRun, run_id)
+        while run.state in ("queued", "running") and time.monotonic() < deadline:
+            session.commit()  # end the snapshot so the next read sees the worker's commit
+            time.sleep(_POLL_S)
+            session.refresh(run)
+        return run_json(session, run, with_result=True)
+
+
+@bp.post("/proposals/bulk")
+@require_role(*SUBMITTERS)
+def submit_many() -> dict[str, Any]:
+    """Submit many proposals at once: ``{"proposals": [...]}`` or a bare list. Each item is answered on its own."""
+    user = current_user()
+    owner = _on_behalf_of(user)
+    data = _parse_body(_body(), "bulk submission")
+    items = data.get("proposals") if isinstance(data, dict) else data
+    if not isinstance(items, list):
+        raise DocumentError([Problem("proposals", "must be a list of proposals")], "bulk submission")
+    limit = int(current_app.config["MAX_BULK"])
+    if len(items) > limit:
+        raise DocumentError([Problem("proposals", f"holds {len(items)} proposals; at most {limit} at once")], "bulk submission")
+    answers: list[dict[str, Any]] = []
+    created_ids: list[int] = []
+    for index, item in enumerate(items):
+        try:
+            if not isinstance(item, dict):
+                raise DocumentError([Problem("", "must be a mapping of fields")], "proposal")
+            run_id, created, _ = _submit_with_retries(item, user, owner)
+        except DocumentError as error:
+            answers.append({"index": index, "status": 422, **error.as_dict()})
+            continue
+        except NotAllowed as error:
+            answers.append({"index": index, "status": 403, "error": "forbidden", "message": str(error)})
+            continue
+        if created:
+            created_ids.append(run_id)
+        answers.append({"index": index, "status": 202 if created else 200, "created": created, "run_id": run_id, "run": url_for("api.get_run", run_id=run_id)})
+    enqueue(created_ids)
+    accepted = sum(1 for a in answers if a["status"] in (200, 202))
+    return {"accepted": accepted, "rejected": len(answers) - accepted, "items": answers}
+
+
+@bp.get("/runs/<int:run_id>")
+@require_role()
+def get_run(run_id: int) -> dict[str, Any]:
+    """A check run's state, and its result once done."""
+    with session_scope() as session:
+        run = session.get(CheckRun, run_id)
+        if run is None or not _may_read(session, run.proposal_version.proposal):
+            abort(404, description=f"no check run {run_id}")
+        return run_json(session, run, with_result=True)
+
+
+@bp.get("/proposals")
+@require_role()
+def list_proposals() -> dict[str, Any]:
+    """Proposals the caller may read, newest first; filter by semester, verdict, instrument, failed check."""
+    page = _int_arg("page", 1, 1, 1_000_000)
+    per_page = _int_arg("per_page", 50, 1, 200)
+    verdict = request.args.get("verdict") or None
+    if verdict is not None and verdict not in ("feasible", "marginal", "unchecked", "infeasible"):
+        _bad_query("verdict", "must be one of feasible, marginal, unchecked, infeasible")
+    with session_scope() as session:
+        rows, total = queries.list_proposals(
+            session,
+            user=current_user(),
+            semester=request.args.get("semester") or None,
+            verdict=verdict,
+            instrument=request.args.get("instrument") or None,
+            failed_check=request.args.get("failed_check") or request.args.get("check") or None,
+            offset=(page - 1) * per_page,
+            limit=per_page,
+        )
+        items = [_list_item(row) for row in rows]
+    return {"items": items, "page": page, "per_page": per_page, "total": total}
+
+
+@bp.get("/proposals/<proposal_id>")
+@require_role()
+def get_proposal(proposal_id: str) -> dict[str, Any]:
+    """A proposal: its latest version, its latest run, and the verdict that stands with findings and figures."""
+    with session_scope() as session:
+        record = _readable_proposal(session, proposal_id)
+        return proposal_json(session, record)
+
+
+@bp.get("/proposals/<proposal_id>/runs")
+@require_role()
+def proposal_runs(proposal_id: str) -> dict[str, Any]:
+    """The history of a proposal's check runs, newest first (results left out; follow each run's link)."""
+    page = _int_arg("page", 1, 1, 1_000_000)
+    per_page = _int_arg("per_page", 50, 1, 200)
+    with session_scope() as session:
+        record = _readable_proposal(session, proposal_id)
+        runs = queries.runs_of(session, record, offset=(page - 1) * per_page, limit=per_page)
+        return {"proposal_id": record.proposal_id, "page": page, "per_page": per_page, "items": [run_json(session, r) for r in runs]}
+
+
+def run_json(session: Session, run: CheckRun, *, with_result: bool = False) -> dict[str, Any]:
+    """A check run as the API shows it; ``with_result`` adds the stored result (findings, figures, series)."""
+    version = run.proposal_version
+    body: dict[str, Any] = {
+        "id": run.id,
+        "proposal_id": version.proposal.proposal_id,
+        "proposal_version": version.id,
+        "state": run.state,
+        "reason": run.reason,
+        "verdict": run.verdict,
+        "attempts": run.attempts,
+        "observatory_version": run.observatory_version_id,
+        "schedule_version": run.schedule_version_id,
+        "engine_version": run.engine_version,
+        "queued_at": _iso(run.queued_at),
+        "started_at": _iso(run.started_at),
+        "finished_at": _iso(run.finished_at),
+        "error": run.error,
+        "links": {"self": f"/api/v1/runs/{run.id}", "proposal": f"/api/v1/proposals/{version.proposal.proposal_id}"},
+    }
+    if with_result and run.state == "done":
+        body["result"] = run.result
+    return body
+
+
+def proposal_json(session: Session, record: ProposalRecord) -> dict[str, Any]:
+    """A proposal with its latest version's summary, latest run and standing verdict."""
+    version = queries.latest_version(session, record)
+    latest = queries.latest_run(session, record)
+    done = latest if latest is not None and latest.state == "done" else queries.latest_done_run(session, record)
+    return {
+        "proposal_id": record.proposal_id,
+        "semester": record.semester,
+        **_version_summary(version),
+        "versions": len(record.versions),
+        "latest_run": run_json(session, latest) if latest is not None else None,
+        "verdict": done.verdict if done is not None else None,
+        "result": run_json(session, done, with_result=True) if done is not None else None,
+    }
+
+
+def _list_item(row: queries.ProposalRow) -> dict[str, Any]:
+    run = row.run
+    return {
+        "proposal_id": row.proposal.proposal_id,
+        "semester": row.proposal.semester,
+        **_version_summary(row.version),
+        "verdict": run.verdict if run is not None else None,
+        "run_id": run.id if run is not None else None,
+        "links": {"self": f"/api/v1/proposals/{row.proposal.proposal_id}"},
+    }
+
+
+def _version_summary(version: ProposalVersion) -> dict[str, Any]:
+    return {
+        "version": version.id,
+        "title": version.title,
+        "pi": version.pi_name,
+        "instruments": [i for i in version.instruments.split(",") if i],
+        "hours_requested": version.hours_requested,
+        "submitted_at": _iso(version.submitted_at),
+    }
+
+
+def _submit_with_retries(body: Any, user: User | None, owner: User | None, *, describe: bool = False) -> tuple[int, bool, dict[str, Any]]:
+    """Store one submission in its own transaction; a busy database (a transient fault) is retried.
+
+    Returns the run id, whether the run is new, and (with ``describe``) the run as the API shows it.
+    """
+    for attempt in range(_DB_ATTEMPTS):
+        try:
+            with session_scope() as session:
+                if owner is not None:
+                    owner = session.merge(owner, load=False)
+                user_here = session.merge(user, load=False) if user is not None else None
+                result: Submission = submit(session, body, user_here, owner=owner)
+                payload = run_json(session, result.run, with_result=True) if describe else {}
+                return result.run.id, result.created, payload
+        except OperationalError:
+            if attempt == _DB_ATTEMPTS - 1:
+                raise
+            time.sleep(0.05 * 2**attempt)
+    raise AssertionError("unreachable")
+
+
+def _readable_proposal(session: Session, proposal_id: str) -> ProposalRecord:
+    record = session.scalar(select(ProposalRecord).where(ProposalRecord.proposal_id == proposal_id))
+    if record is None or not _may_read(session, record):
+        abort(404, description=f"no proposal {proposal_id!r}")
+    return record
+
+
+def _may_read(session: Session, record: ProposalRecord) -> bool:
+    user = current_user()
+    if user is None or user.role in READ_ALL:
+        return True
+    query = select(ProposalRecord.id).where(ProposalRecord.id == record.id, queries.visible_to(user))
+    return session.scalar(query) is not None
+
+
+def _on_behalf_of(user: User | None) -> User | None:
+    """A portal names the proposer it submits for with ``?on_behalf_of=NAME`` (an existing proposer)."""
+    name = request.args.get("on_behalf_of")
+    if not name:
+        return None
+    if user is None or user.role not in ("portal", "admin"):
+        abort(403, description="only a portal submits on behalf of a proposer")
+    with session_scope() as session:
+        owner = session.scalar(select(User).where(User.name == name))
+    if owner is None or owner.role != "proposer":
+        _bad_query("on_behalf_of", f"no proposer named {name!r}")
+    return owner
+
+
+def _body() -> bytes:
+    data = request.get_data(cache=True)  # a body over MAX_CONTENT_LENGTH raises 413 here
+    if not data.strip():
+        raise Malformed([Problem("", "the request body is empty; send the proposal as JSON or YAML")], "proposal")
+    return data
+
+
+def _parse_body(data: bytes, document: str) -> Any:
+    """JSON (fast path) or YAML; YAML 1.1 reads JSON too, but far more slowly."""
+    if data.lstrip()[:1] in (b"{", b"["):
+        try:
+            return json.loads(data)
+        except ValueError:
+            pass  # perhaps YAML flow style; let the YAML parser say what is wrong
+    try:
+        return yaml.load(data.decode("utf-8"), Loader=_YamlLoader)
+    except UnicodeDecodeError:
+        raise Malformed([Problem("", "is not UTF-8 text")], document) from None
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark is not None else ""
+        raise Malformed([Problem("", f"is neither valid JSON nor YAML{where}")], document) from None
+
+
+def _wait_seconds() -> float:
+    raw = request.args.get("wait")
+    if raw is None:
+        return 0.0
+    limit = float(current_app.config["MAX_WAIT_S"])
+    try:
+        wait = float(raw)
+    except ValueError:
+        _bad_query("wait", "must be a number of seconds")
+    if not 0 <= wait <= limit:
+        _bad_query("wait", f"must be between 0 and {limit:g} seconds")
+    return wait
+
+
+def _int_arg(name: str, default: int, low: int, high: int) -> int:
+    raw = request.args.get(name)
+    if raw is None:
+        return default
+    try:
+        value = int(raw)
+    except ValueError:
+        _bad_query(name, "must be a whole number")
+    if not low <= value <= high:
+        _bad_query(name, f"must be between {low} and {high}")
+    return value
+
+
+def _bad_query(field: str, problem: str) -> Any:
+    raise Malformed([Problem(field, problem)], "query")
+
+
+def _iso(moment: Any) -> str | None:
+    if moment is None:
+        return None
+    text = moment.isoformat()
+    return text if moment.tzinfo is not None else text + "+00:00"

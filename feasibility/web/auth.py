@@ -1,0 +1,123 @@
+"""API access: users with roles, and bearer tokens stored only as hashes.
+
+Roles: ``reviewer`` reads everything; ``proposer`` submits and reads only their
+own proposals; ``portal`` submits on behalf of proposers and reads what it
+submitted; ``admin`` manages the observatory description and schedules and may
+do everything. A token is a high-entropy random string shown once; the store
+keeps its SHA-256, which is enough for a secret that is not guessable (unlike a
+password, it needs no slow hash).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import secrets
+from collections.abc import Callable
+from functools import wraps
+from typing import Any, TypeVar
+
+from flask import abort, g, request, session
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+from werkzeug.security import check_password_hash, generate_password_hash
+
+from feasibility.store.db import session_scope
+from feasibility.store.models import ApiToken, User
+
+__all__ = [
+    "READ_ALL",
+    "ROLES",
+    "authenticate",
+    "check_password",
+    "create_token",
+    "create_user",
+    "current_user",
+    "hash_token",
+    "require_role",
+    "user_for_token",
+]
+
+ROLES = ("reviewer", "proposer", "portal", "admin")
+#: Roles that read every proposal.
+READ_ALL = frozenset({"reviewer", "admin"})
+#: Roles that may submit proposals.
+SUBMITTERS = frozenset({"proposer", "portal", "admin"})
+
+F = TypeVar("F", bound=Callable[..., Any])
+
+
+def create_user(session: Session, name: str, role: str, *, password: str | None = None, email: str | None = None) -> User:
+    """Store a new user; the password, when given, is kept as a werkzeug salted hash."""
+    if role not in ROLES:
+        raise ValueError(f"unknown role {role!r} (known: {', '.join(ROLES)})")
+    if session.scalar(select(User).where(User.name == name)) is not None:
+        raise ValueError(f"a user named {name!r} exists already")
+    user = User(name=name, role=role, email=email, password_hash=generate_password_hash(password) if password else None)
+    session.add(user)
+    session.flush()
+    return user
+
+
+def check_password(user: User, password: str) -> bool:
+    """Whether ``password`` is the user's (False for users without a password)."""
+    return bool(user.password_hash) and check_password_hash(user.password_hash, password)
+
+
+def create_token(session: Session, user: User, label: str | None = None) -> str:
+    """A new API token for ``user``: returned once, stored only as its SHA-256."""
+    raw = "fz_" + secrets.token_urlsafe(32)
+    session.add(ApiToken(user_id=user.id, token_hash=hash_token(raw), label=label))
+    session.flush()
+    return raw
+
+
+def hash_token(raw: str) -> str:
+    """The stored form of a token."""
+    return hashlib.sha256(raw.encode("utf-8")).hexdigest()
+
+
+def user_for_token(session: Session, raw: str) -> User | None:
+    """The user holding the (not revoked) token ``raw``, or None."""
+    query = select(User).join(ApiToken, ApiToken.user_id == User.id).where(
+        ApiToken.token_hash == hash_token(raw), ApiToken.revoked_at.is_(None)
+    )
+    return session.scalar(query)
+
+
+def authenticate() -> User | None:
+    """The user of this request: a bearer token, or (for reads only) a signed-in dashboard session."""
+    if "api_user" in g:
+        return g.api_user
+    user: User | None = None
+    header = request.headers.get("Authorization", "")
+    scheme, _, credentials = header.partition(" ")
+    with session_scope() as db:
+        if scheme.lower() == "bearer" and credentials.strip():
+            user = user_for_token(db, credentials.strip())
+        elif not header and request.method in ("GET", "HEAD") and session.get("user_id") is not None:
+            user = db.get(User, session["user_id"])
+    g.api_user = user
+    return user
+
+
+def current_user() -> User | None:
+    """The authenticated user of this request (after :func:`require_role`)."""
+    return g.get("api_user")
+
+
+def require_role(*roles: str) -> Callable[[F], F]:
+    """Decorate a view: 401 without valid credentials, 403 when the user's role is not in ``roles`` (any role if empty)."""
+
+    def decorate(view: F) -> F:
+        @wraps(view)
+        def wrapped(*args: Any, **kwargs: Any) -> Any:
+            user = authenticate()
+            if user is None:
+                abort(401, description="send a valid API token: 'Authorization: Bearer <token>'")
+            if roles and user.role not in roles:
+                abort(403, description=f"the role {user.role!r} may not do this")
+            return view(*args, **kwargs)
+
+        return wrapped  # type: ignore[return-value]
+
+    return decorate

@@ -1,0 +1,165 @@
+"""The committee's semester overview: counts by verdict, hours per instrument and demand by right ascension.
+
+Demand comes from stored rows (each proposal's latest finished run and its
+request outcomes; the target's right ascension from the stored proposal
+version); supply from :mod:`feasibility.web.dashboard.offer`, cached per
+observatory version and semester.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from feasibility.documents.angles import parse_right_ascension
+from feasibility.service.current import current_observatory, current_schedule, observatory_of, schedule_of
+from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, RequestOutcome
+from feasibility.web.dashboard.offer import instrument_hours_offered, semester_offer
+from feasibility.web.dashboard.queries import LEVELS, latest_runs
+
+__all__ = ["InstrumentLine", "Overview", "semester_overview"]
+
+
+@dataclass
+class InstrumentLine:
+    """One instrument's demand and supply in the semester."""
+
+    instrument: str
+    requests: int
+    hours_requested: float
+    hours_needed: float | None
+    hours_observable: float | None
+    hours_offered: float | None
+
+    @property
+    def pressure(self) -> float | None:
+        """Hours requested over hours offered (the oversubscription), when both are known."""
+        if not self.hours_offered:
+            return None
+        return self.hours_requested / self.hours_offered
+
+
+@dataclass
+class Overview:
+    """Everything the overview page shows."""
+
+    semester: str
+    proposals: int
+    unchecked_yet: int
+    counts: dict[str, int]
+    instruments: list[InstrumentLine]
+    ra_requested: list[float]
+    ra_night_offered: list[float] | None
+    ra_dark_offered: list[float] | None
+    schedule_label: str | None
+    observatory_label: str | None
+    notes: list[str] = field(default_factory=list)
+
+
+def semester_overview(session: Session, semester: str) -> Overview:
+    """Sum the semester's latest verdicts and request outcomes, and set them against what the sky offers."""
+    runs = latest_runs()
+    in_semester = (
+        select(runs.c.run_id, runs.c.verdict)
+        .join(ProposalRecord, ProposalRecord.id == runs.c.proposal_ref)
+        .where(ProposalRecord.semester == semester)
+        .subquery("semester_runs")
+    )
+    counts = {level: 0 for level in LEVELS}
+    for verdict, number in session.execute(select(in_semester.c.verdict, func.count()).group_by(in_semester.c.verdict)):
+        if verdict in counts:
+            counts[verdict] = int(number)
+    proposals = int(session.scalar(select(func.count()).select_from(ProposalRecord).where(ProposalRecord.semester == semester)) or 0)
+
+    per_instrument = session.execute(
+        select(
+            RequestOutcome.instrument,
+            func.count(),
+            func.sum(RequestOutcome.hours_requested),
+            func.sum(RequestOutcome.hours_needed),
+            func.sum(RequestOutcome.hours_observable),
+        )
+        .where(RequestOutcome.run_id.in_(select(in_semester.c.run_id)))
+        .group_by(RequestOutcome.instrument)
+        .order_by(RequestOutcome.instrument)
+    ).all()
+
+    notes: list[str] = []
+    observatory_row = current_observatory(session)
+    schedule_row = current_schedule(session, semester)
+    offered: dict[str, float] = {}
+    offer = None
+    if observatory_row is not None:
+        observatory = observatory_of(observatory_row)
+        offer = semester_offer(observatory, semester, observatory_row.content_hash)
+        if offer is None:
+            notes.append(f"The observatory description in force has no semester {semester}; no hours offered are shown.")
+        else:
+            offered = instrument_hours_offered(offer, observatory, schedule_of(schedule_row))
+            if schedule_row is None:
+                notes.append("No instrument schedule is stored for this semester, so no hours per instrument are offered yet.")
+    else:
+        notes.append("No observatory description is stored; no hours offered are shown.")
+
+    lines = [
+        InstrumentLine(
+            instrument=name,
+            requests=int(number),
+            hours_requested=float(requested or 0.0),
+            hours_needed=_maybe(needed),
+            hours_observable=_maybe(observable),
+            hours_offered=offered.get(name),
+        )
+        for name, number, requested, needed, observable in per_instrument
+    ]
+    seen = {line.instrument for line in lines}
+    lines += [InstrumentLine(name, 0, 0.0, None, None, hours) for name, hours in sorted(offered.items()) if name not in seen]
+
+    return Overview(
+        semester=semester,
+        proposals=proposals,
+        unchecked_yet=max(proposals - sum(counts.values()), 0),
+        counts=counts,
+        instruments=lines,
+        ra_requested=_ra_demand(session, in_semester),
+        ra_night_offered=offer["ra_night_hours"] if offer else None,
+        ra_dark_offered=offer["ra_dark_hours"] if offer else None,
+        schedule_label=schedule_row.version_label if schedule_row is not None else None,
+        observatory_label=f"{observatory_row.name} {observatory_row.version_label}" if observatory_row is not None else None,
+        notes=notes,
+    )
+
+
+def _ra_demand(session: Session, in_semester: Any) -> list[float]:
+    """Requested hours per hour of right ascension, from each latest run's proposal version.
+
+    Streams the stored documents in batches; a target whose right ascension
+    cannot be read (it passed validation, so this should not happen) is skipped.
+    """
+    bins = [0.0] * 24
+    statement = (
+        select(ProposalVersion.document)
+        .join(CheckRun, CheckRun.proposal_version_id == ProposalVersion.id)
+        .where(CheckRun.id.in_(select(in_semester.c.run_id)))
+        .execution_options(yield_per=200)
+    )
+    for document in session.scalars(statement):
+        for request in (document or {}).get("requests", []):
+            try:
+                ra_deg = parse_right_ascension(request["target"]["ra"])
+                hours = float(request["hours_requested"])
+            except (KeyError, TypeError, ValueError):
+                continue
+            bins[int(ra_deg / 15.0 + 1e-9) % 24] += hours  # 1e-9 h: 06:00:00 parsed as 89.99999999999999° is 6h
+    return bins
+
+
+def _maybe(value: Any) -> float | None:
+    if value is None:
+        return None
+    number = float(value)
+    return None if math.isnan(number) else number

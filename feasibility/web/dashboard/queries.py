@@ -1,0 +1,334 @@
+"""The proposal list as one SQL query: latest check per proposal, filters, search, sorting and paging.
+
+Everything is done by the database (window functions for "latest run" and
+"previous verdict", ``LIMIT``/``OFFSET`` for pages), so a semester of thousands
+of proposals costs one page of rows in Python. Only stored results are read.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from typing import Any
+
+from sqlalchemy import Select, and_, case, exists, func, literal, or_, select
+from sqlalchemy.orm import Session, aliased
+
+from feasibility.store.models import CheckRun, FindingRow, ProposalRecord, ProposalVersion, RequestOutcome, User
+
+__all__ = [
+    "CHECK_NAMES",
+    "LEVELS",
+    "ListQuery",
+    "ProposalRow",
+    "SORT_KEYS",
+    "count_rows",
+    "iter_rows",
+    "latest_runs",
+    "list_rows",
+    "semesters",
+    "visible_proposals",
+]
+
+#: Verdict levels, best to worst (feasibility.results.Level order).
+LEVELS = ("feasible", "marginal", "unchecked", "infeasible")
+#: The checks named in the project's vocabulary, offered in the "check with a problem" filter.
+CHECK_NAMES = ("visibility", "moon", "sensitivity", "instrument", "schedule", "sun-safety", "atmosphere", "image-quality")
+#: Sortable columns, in the list's order: URL name -> label.
+SORT_KEYS = {
+    "id": "Proposal",
+    "verdict": "Verdict",
+    "title": "Title",
+    "pi": "Principal investigator",
+    "instruments": "Instruments",
+    "hours": "Hours requested",
+    "checked": "Last checked",
+    "changed": "Changed",
+}
+MAX_PER_PAGE = 200
+
+
+@dataclass(frozen=True)
+class ListQuery:
+    """What the reviewer asked for: semester, filters, search, sort and page."""
+
+    semester: str
+    verdict: str | None = None
+    instrument: str | None = None
+    check: str | None = None
+    search: str | None = None
+    sort: str = "id"
+    descending: bool = False
+    page: int = 1
+    per_page: int = 50
+
+    @classmethod
+    def from_args(cls, args: Any, semester: str) -> ListQuery:
+        """Read (and clamp) the list's query-string arguments; unknown values are ignored, not errors."""
+        verdict = args.get("verdict") or None
+        if verdict not in (*LEVELS, "none", None):
+            verdict = None
+        check = args.get("check") or None
+        if check not in (*CHECK_NAMES, None):
+            check = None
+        sort = args.get("sort", "id")
+        if sort not in SORT_KEYS:
+            sort = "id"
+        return cls(
+            semester=semester,
+            verdict=verdict,
+            instrument=(args.get("instrument") or "").strip()[:100] or None,
+            check=check,
+            search=(args.get("q") or "").strip()[:200] or None,
+            sort=sort,
+            descending=args.get("dir") == "desc",
+            page=max(_int(args.get("page"), 1), 1),
+            per_page=min(max(_int(args.get("per_page"), 50), 1), MAX_PER_PAGE),
+        )
+
+    def args(self, **changes: Any) -> dict[str, Any]:
+        """The query-string arguments that give this list again, with ``changes`` applied (for links)."""
+        values = {
+            "semester": self.semester,
+            "verdict": self.verdict,
+            "instrument": self.instrument,
+            "check": self.check,
+            "q": self.search,
+            "sort": self.sort,
+            "dir": "desc" if self.descending else "asc",
+            "page": self.page,
+            "per_page": self.per_page,
+        }
+        values.update(changes)
+        return {key: value for key, value in values.items() if value not in (None, "")}
+
+
+@dataclass
+class ProposalRow:
+    """One line of the list."""
+
+    proposal_id: str
+    semester: str
+    title: str
+    pi_name: str
+    instruments: list[str]
+    hours_requested: float
+    verdict: str | None
+    checked_at: datetime | None
+    previous_verdict: str | None
+    run_id: int | None
+    pending: bool = False
+    targets: list[str] = field(default_factory=list)
+
+    @property
+    def changed(self) -> bool:
+        """Whether the latest check's verdict differs from the one before it."""
+        return self.previous_verdict is not None and self.verdict is not None and self.previous_verdict != self.verdict
+
+    def as_dict(self) -> dict[str, Any]:
+        """The row for the JSON export."""
+        return {
+            "proposal_id": self.proposal_id,
+            "semester": self.semester,
+            "title": self.title,
+            "principal_investigator": self.pi_name,
+            "instruments": self.instruments,
+            "hours_requested": self.hours_requested,
+            "verdict": self.verdict,
+            "last_checked": self.checked_at.isoformat() if self.checked_at else None,
+            "previous_verdict": self.previous_verdict,
+            "verdict_changed": self.changed,
+            "run_id": self.run_id,
+        }
+
+
+def visible_proposals(user: User) -> Any:
+    """The SQL condition on ``ProposalRecord`` for what ``user`` may see: all, or their own."""
+    if user.role in ("reviewer", "admin"):
+        return literal(True)
+    return ProposalRecord.owner_id == user.id
+
+
+def latest_runs() -> Any:
+    """A subquery: each proposal's latest finished run, with the verdict of the finished run before it."""
+    part = ProposalVersion.proposal_ref
+    ranked = (
+        select(
+            part.label("proposal_ref"),
+            CheckRun.id.label("run_id"),
+            CheckRun.verdict.label("verdict"),
+            CheckRun.finished_at.label("checked_at"),
+            func.row_number().over(partition_by=part, order_by=(CheckRun.finished_at.desc(), CheckRun.id.desc())).label("position"),
+            func.lag(CheckRun.verdict).over(partition_by=part, order_by=(CheckRun.finished_at.asc(), CheckRun.id.asc())).label("previous_verdict"),
+        )
+        .join(ProposalVersion, ProposalVersion.id == CheckRun.proposal_version_id)
+        .where(CheckRun.state == "done")
+        .subquery("ranked_runs")
+    )
+    return (
+        select(ranked.c.proposal_ref, ranked.c.run_id, ranked.c.verdict, ranked.c.checked_at, ranked.c.previous_verdict)
+        .where(ranked.c.position == 1)
+        .subquery("latest_runs")
+    )
+
+
+def list_rows(session: Session, user: User, query: ListQuery) -> list[ProposalRow]:
+    """One page of the list."""
+    statement = _ordered(query).limit(query.per_page).offset((query.page - 1) * query.per_page)
+    return [_row(values) for values in session.execute(_filtered(user, query, statement))]
+
+
+def iter_rows(session: Session, user: User, query: ListQuery) -> Iterator[ProposalRow]:
+    """Every row of the filtered list, in order (for the exports), fetched in batches."""
+    statement = _filtered(user, query, _ordered(query)).execution_options(yield_per=500)
+    for values in session.execute(statement):
+        yield _row(values)
+
+
+def count_rows(session: Session, user: User, query: ListQuery) -> int:
+    """How many proposals the filters leave."""
+    inner = _filtered(user, query, _base()).subquery()
+    return int(session.scalar(select(func.count()).select_from(inner)) or 0)
+
+
+def semesters(session: Session, user: User) -> list[str]:
+    """The semesters that have proposals ``user`` may see, newest name first."""
+    statement = select(ProposalRecord.semester).where(visible_proposals(user)).distinct()
+    return sorted(session.scalars(statement), reverse=True)
+
+
+# --- building the statement -----------------------------------------------------------------
+
+_version = aliased(ProposalVersion, name="shown_version")
+_latest_version = (
+    select(ProposalVersion.proposal_ref, func.max(ProposalVersion.id).label("version_id"))
+    .group_by(ProposalVersion.proposal_ref)
+    .subquery("latest_versions")
+)
+_runs = latest_runs()
+
+_pending = (
+    exists()
+    .where(
+        CheckRun.proposal_version_id == ProposalVersion.id,
+        ProposalVersion.proposal_ref == ProposalRecord.id,
+        CheckRun.state.in_(("queued", "running")),
+    )
+    .correlate(ProposalRecord)
+)
+
+_verdict_rank = case(
+    {level: rank for rank, level in enumerate(LEVELS)},
+    value=_runs.c.verdict,
+    else_=-1,
+)
+_changed = case(
+    (and_(_runs.c.previous_verdict.is_not(None), _runs.c.previous_verdict != _runs.c.verdict), 1),
+    else_=0,
+)
+_SORT_COLUMNS: dict[str, Any] = {
+    "id": ProposalRecord.proposal_id,
+    "title": _version.title,
+    "pi": _version.pi_name,
+    "instruments": _version.instruments,
+    "hours": _version.hours_requested,
+    "verdict": _verdict_rank,
+    "checked": _runs.c.checked_at,
+    "changed": _changed,
+}
+
+
+def _base() -> Select[Any]:
+    return (
+        select(
+            ProposalRecord.proposal_id,
+            ProposalRecord.semester,
+            _version.title,
+            _version.pi_name,
+            _version.instruments,
+            _version.hours_requested,
+            _version.targets,
+            _runs.c.run_id,
+            _runs.c.verdict,
+            _runs.c.checked_at,
+            _runs.c.previous_verdict,
+            _pending.label("pending"),
+        )
+        .join(_latest_version, _latest_version.c.proposal_ref == ProposalRecord.id)
+        .join(_version, _version.id == _latest_version.c.version_id)
+        .outerjoin(_runs, _runs.c.proposal_ref == ProposalRecord.id)
+    )
+
+
+def _ordered(query: ListQuery) -> Select[Any]:
+    column = _SORT_COLUMNS[query.sort]
+    primary = column.desc() if query.descending else column.asc()
+    tie = ProposalRecord.proposal_id.desc() if query.descending else ProposalRecord.proposal_id.asc()
+    return _base().order_by(primary, tie)
+
+
+def _filtered(user: User, query: ListQuery, statement: Select[Any]) -> Select[Any]:
+    statement = statement.where(visible_proposals(user), ProposalRecord.semester == query.semester)
+    if query.verdict == "none":
+        statement = statement.where(_runs.c.verdict.is_(None))
+    elif query.verdict:
+        statement = statement.where(_runs.c.verdict == query.verdict)
+    if query.instrument:
+        listed = literal(",") + func.replace(_version.instruments, " ", "") + literal(",")
+        statement = statement.where(func.lower(listed).like(f"%,{_like_escape(query.instrument.lower())},%", escape="\\"))
+    if query.check:
+        statement = statement.where(
+            exists()
+            .where(
+                RequestOutcome.run_id == _runs.c.run_id,
+                FindingRow.outcome_id == RequestOutcome.id,
+                FindingRow.check == query.check,
+                FindingRow.level != "feasible",
+            )
+        )
+    if query.search:
+        pattern = f"%{_like_escape(query.search.lower())}%"
+        statement = statement.where(
+            or_(
+                func.lower(ProposalRecord.proposal_id).like(pattern, escape="\\"),
+                func.lower(_version.title).like(pattern, escape="\\"),
+                func.lower(_version.targets).like(pattern, escape="\\"),
+            )
+        )
+    return statement
+
+
+def _row(values: Any) -> ProposalRow:
+    return ProposalRow(
+        proposal_id=values.proposal_id,
+        semester=values.semester,
+        title=values.title,
+        pi_name=values.pi_name,
+        instruments=[name for name in (values.instruments or "").replace(" ", "").split(",") if name],
+        hours_requested=float(values.hours_requested or 0.0),
+        verdict=values.verdict,
+        checked_at=_aware(values.checked_at),
+        previous_verdict=values.previous_verdict,
+        run_id=values.run_id,
+        pending=bool(values.pending),
+        targets=[name for name in (values.targets or "").split("\n") if name],
+    )
+
+
+def _like_escape(text: str) -> str:
+    return text.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
+
+
+def _aware(moment: datetime | None) -> datetime | None:
+    """SQLite gives naive UTC times back; make them aware."""
+    if moment is not None and moment.tzinfo is None:
+        return moment.replace(tzinfo=timezone.utc)
+    return moment
+
+
+def _int(value: Any, default: int) -> int:
+    try:
+        return int(value)
+    except (TypeError, ValueError):
+        return default

@@ -1,0 +1,140 @@
+"""The pages in headless Chromium: sign-in, the list and its filters, a proposal with plots, upload, access, escaping."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+
+from web.support import proposal_doc
+
+from .conftest import screenshot, sign_in
+
+pytestmark = pytest.mark.browser
+
+
+def test_sign_in_and_filter_the_list(page: Any) -> None:
+    page.goto("/")
+    assert "/sign-in" in page.url
+    screenshot(page, "01-sign-in")
+    page.get_by_label("User name").fill("rita")
+    page.get_by_label("Password").fill("wrong")
+    page.get_by_role("button", name="Sign in").click()
+    assert page.get_by_role("alert").is_visible()
+    sign_in(page, "rita")
+    rows = page.locator("table.proposals tbody tr")
+    assert rows.count() == 4
+    screenshot(page, "02-list")
+    page.get_by_label("Verdict").select_option("infeasible")
+    page.get_by_role("button", name="Apply filters").click()
+    page.wait_for_url("**verdict=infeasible**")
+    assert rows.count() == 1
+    assert rows.first.locator("th").inner_text() == "SQ-B-002"
+    assert "infeasible" in rows.first.inner_text()
+    screenshot(page, "03-list-filtered")
+
+
+def test_sort_by_keyboard_and_skip_link(page: Any) -> None:
+    sign_in(page, "rita")
+    page.keyboard.press("Tab")
+    focused = page.evaluate("document.activeElement.textContent")
+    assert focused.strip() == "Skip to main content"  # the first stop, for keyboard users (WCAG 2.4.1)
+    page.keyboard.press("Enter")
+    header = page.get_by_role("link", name="Hours requested")
+    header.focus()
+    page.keyboard.press("Enter")
+    page.wait_for_url("**sort=hours**")
+    header = page.get_by_role("link", name="Hours requested")
+    header.focus()
+    screenshot(page, "13-keyboard-focus", full_page=False)  # the focus ring must be plain to see
+    page.keyboard.press("Enter")
+    page.wait_for_url("**dir=desc**")
+    first = page.locator("table.proposals tbody tr").first.locator("th").inner_text()
+    assert first == "SQ-B-002"  # 14 hours, the most
+
+
+def test_proposal_page_with_plots(page: Any) -> None:
+    sign_in(page, "rita")
+    page.get_by_role("link", name="SQ-B-001").click()
+    page.wait_for_url("**/proposals/SQ-B-001")
+    images = page.locator("figure.plot img")
+    assert images.count() == 6  # three plots for each of two requests
+    for index in range(images.count()):
+        image = images.nth(index)
+        image.scroll_into_view_if_needed()
+        page.wait_for_function("img => img.complete && img.naturalWidth > 0", arg=image.element_handle())
+    assert page.get_by_role("heading", name="Run history").is_visible()
+    screenshot(page, "04-proposal")
+
+
+def test_upload_shows_progress_then_verdict(page: Any, tmp_path: Path) -> None:
+    sign_in(page, "pablo")
+    page.get_by_role("link", name="Upload a proposal").click()
+    bad = tmp_path / "bad.yaml"
+    broken = proposal_doc("SQ-B-900")
+    broken["requests"][0]["target"]["dec"] = "+95:00:00"
+    bad.write_text(yaml.safe_dump(broken))
+    page.get_by_label("Proposal file (JSON or YAML)").set_input_files(str(bad))
+    page.get_by_role("button", name="Upload and check").click()
+    alert = page.get_by_role("alert")
+    assert "requests[0].target.dec" in alert.inner_text()
+    screenshot(page, "05-upload-problems")
+
+    good = tmp_path / "good.yaml"
+    good.write_text(yaml.safe_dump(proposal_doc("SQ-B-901", title="Uploaded in the browser", target="Field 3")))
+    page.get_by_label("Proposal file (JSON or YAML)").set_input_files(str(good))
+    page.get_by_role("button", name="Upload and check").click()
+    page.wait_for_url("**/runs/*")
+    progress = page.locator("#run-progress")
+    assert progress.is_visible()  # the stand-in engine takes 1.5 s
+    screenshot(page, "06-run-progress")
+    page.locator("#run-result").wait_for(state="visible", timeout=20_000)
+    assert "feasible" in page.locator("#run-verdict").inner_text()
+    assert "Field 3" in page.locator("#run-requests").inner_text()
+    screenshot(page, "07-run-verdict")
+    page.get_by_role("link", name="See every finding and plot").click()
+    page.wait_for_url("**/proposals/SQ-B-901**")
+
+
+def test_proposer_is_denied_anothers_proposal(page: Any) -> None:
+    sign_in(page, "pablo")
+    assert page.locator("table.proposals tbody tr th").all_inner_texts() == ["SQ-B-001", "SQ-B-002"] or \
+        "SQ-B-003" not in page.content()
+    response = page.goto("/proposals/SQ-B-003")
+    assert response is not None and response.status == 404
+    assert "There is no proposal with that id that you may see." in page.inner_text("main")
+    screenshot(page, "08-denied")
+
+
+def test_markup_in_a_target_name_is_shown_as_text(page: Any) -> None:
+    dialogs: list[str] = []
+    page.on("dialog", lambda dialog: (dialogs.append(dialog.message), dialog.dismiss()))
+    sign_in(page, "rita")
+    page.goto("/proposals/SQ-B-003")
+    target = page.locator("h2 .target").first
+    assert target.inner_text() == "<script>alert(1)</script>"
+    assert page.locator("h1").inner_text().endswith("Infrared <i>dust</i> lanes")
+    assert page.locator("main script").count() == 0
+    page.wait_for_timeout(300)
+    assert dialogs == []  # no alert ran
+    screenshot(page, "09-markup-as-text")
+
+
+def test_overview_and_tablet_width(page: Any) -> None:
+    sign_in(page, "rita")
+    page.get_by_role("link", name="Semester overview").click()
+    page.wait_for_url("**/semesters/**")
+    for image in page.locator("img.plot-img").all():
+        image.scroll_into_view_if_needed()
+        page.wait_for_function("img => img.complete && img.naturalWidth > 0", arg=image.element_handle(), timeout=30_000)
+    screenshot(page, "10-overview")
+    page.set_viewport_size({"width": 768, "height": 1024})
+    page.goto("/proposals")
+    width = page.evaluate("document.documentElement.scrollWidth")
+    assert width <= 768  # no sideways scrolling of the page at tablet width (the table scrolls in its own box)
+    screenshot(page, "11-list-tablet")
+    page.goto("/proposals/SQ-B-001")
+    assert page.evaluate("document.documentElement.scrollWidth") <= 768
+    screenshot(page, "12-proposal-tablet")

@@ -1,0 +1,46 @@
+"""The store: SQLite settings, migrations that match the models, demo seeding."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from alembic.autogenerate import compare_metadata
+from alembic.migration import MigrationContext
+from flask import Flask
+from sqlalchemy import func, inspect, select, text
+
+from feasibility.store.db import get_engine, make_engine, session_scope
+from feasibility.store.migrate import upgrade
+from feasibility.store.models import Base, ObservatoryVersion, ScheduleVersion
+
+
+def test_sqlite_runs_in_wal_mode_with_a_busy_timeout(tmp_path: Path) -> None:
+    engine = make_engine(f"sqlite:///{tmp_path / 'x.sqlite'}")
+    with engine.connect() as connection:
+        # SQLite documentation, "PRAGMA journal_mode": the pragma returns the new mode, "wal".
+        assert connection.execute(text("PRAGMA journal_mode")).scalar() == "wal"
+        assert connection.execute(text("PRAGMA busy_timeout")).scalar() == 30000
+        assert connection.execute(text("PRAGMA foreign_keys")).scalar() == 1
+    engine.dispose()
+
+
+def test_migrations_build_exactly_the_models(tmp_path: Path) -> None:
+    url = f"sqlite:///{tmp_path / 'migrated.sqlite'}"
+    upgrade(url)
+    engine = make_engine(url)
+    with engine.connect() as connection:
+        # Alembic's own comparison of a database with the models: no difference left.
+        assert compare_metadata(MigrationContext.configure(connection), Base.metadata) == []
+    assert "alembic_version" in inspect(engine).get_table_names()
+    engine.dispose()
+
+
+def test_demo_observatory_is_loaded_once(app: Flask) -> None:
+    from feasibility.web import create_app
+
+    again = create_app({"DATABASE_URL": app.config["DATABASE_URL"], "SWEEP_INTERVAL_S": 0})
+    with again.app_context(), session_scope() as session:
+        assert session.scalar(select(func.count()).select_from(ObservatoryVersion)) == 1
+        assert session.scalar(select(func.count()).select_from(ScheduleVersion)) >= 1
+        assert get_engine() is again.extensions["feasibility.db"]["engine"]
+    again.extensions["feasibility.db"]["engine"].dispose()

@@ -1,0 +1,110 @@
+"""Who sees what: sign-in, roles, proposers limited to their own proposals, session cookie attributes."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from flask import Flask
+from flask.testing import FlaskClient
+
+from .support import PASSWORD, csrf_from, sign_in
+
+
+def test_pages_need_sign_in(client: FlaskClient, semester: dict[str, Any]) -> None:
+    for path in ("/proposals", "/proposals/P-1", "/proposals.csv", "/semesters/2027A", "/upload"):
+        response = client.get(path)
+        assert response.status_code == 302, path  # redirected, nothing shown
+        assert response.headers["Location"].startswith("/sign-in"), path
+    assert client.get(f"/runs/{semester['runs']['P-1']}/status.json").status_code == 401
+
+
+def test_wrong_password_is_refused(client: FlaskClient, people: dict[str, int]) -> None:
+    token = csrf_from(client.get("/sign-in").get_data(as_text=True))
+    response = client.post("/sign-in", data={"name": "rita", "password": "not it", "csrf_token": token})
+    assert response.status_code == 401
+    assert client.get("/proposals").status_code == 302  # still not signed in
+    response = client.post("/sign-in", data={"name": "nobody", "password": PASSWORD, "csrf_token": token})
+    assert response.status_code == 401
+
+
+def test_reviewer_sees_every_proposal(client: FlaskClient, semester: dict[str, Any]) -> None:
+    sign_in(client, "rita")
+    page = client.get("/proposals?semester=2027A").get_data(as_text=True)
+    for proposal_id in ("P-1", "P-2", "Q-1", "U-1"):
+        assert f'/proposals/{proposal_id}"' in page
+        assert client.get(f"/proposals/{proposal_id}").status_code == 200
+    assert client.get("/semesters/2027A").status_code == 200
+
+
+def test_proposer_sees_only_own_proposals(client: FlaskClient, semester: dict[str, Any]) -> None:
+    sign_in(client, "pablo")
+    page = client.get("/proposals?semester=2027A").get_data(as_text=True)
+    assert '/proposals/P-1"' in page and '/proposals/P-2"' in page
+    assert '/proposals/Q-1"' not in page and '/proposals/U-1"' not in page
+    # Another's proposal, its plots, its run and its status: all "not found", so nothing leaks about it.
+    q_run = semester["runs"]["Q-1"]
+    for path in (
+        "/proposals/Q-1",
+        "/proposals/U-1",
+        f"/proposals/Q-1/runs/{q_run}/requests/0/night.svg",
+        f"/proposals/P-1/runs/{q_run}/requests/0/night.svg",  # own proposal id, another's run
+        f"/runs/{q_run}",
+        f"/runs/{q_run}/status.json",
+    ):
+        assert client.get(path).status_code == 404, path
+    exported = client.get("/proposals.json?semester=2027A").get_json()
+    assert sorted(p["proposal_id"] for p in exported["proposals"]) == ["P-1", "P-2"]
+    assert client.get("/semesters/2027A").status_code == 403  # the committee's overview is not for proposers
+
+
+def test_session_cookie_attributes(client: FlaskClient, people: dict[str, int]) -> None:
+    token = csrf_from(client.get("/sign-in").get_data(as_text=True))
+    response = client.post("/sign-in", data={"name": "rita", "password": PASSWORD, "csrf_token": token})
+    cookie = response.headers["Set-Cookie"]
+    # RFC 6265 HttpOnly keeps scripts from reading it; SameSite=Lax (RFC 6265bis) keeps cross-site posts from sending it.
+    assert "HttpOnly" in cookie
+    assert "SameSite=Lax" in cookie
+    assert "Secure" not in cookie  # not asked for in this test app
+
+
+def test_secure_cookie_from_environment(monkeypatch: Any, tmp_path: Any) -> None:
+    from feasibility.web import create_app
+
+    monkeypatch.setenv("SESSION_COOKIE_SECURE", "true")
+    app = create_app({"TESTING": True, "SECRET_KEY": "t", "DATABASE_URL": f"sqlite:///{tmp_path / 's.sqlite'}", "CREATE_TABLES": True,
+                      "BROKER_URL": None, "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False})
+    try:
+        assert app.config["SESSION_COOKIE_SECURE"] is True
+        response = app.test_client().get("/sign-in")
+        assert "Secure" in response.headers["Set-Cookie"]  # the CSRF token's session cookie
+    finally:
+        app.extensions["feasibility.dispatch"].shutdown()
+        app.extensions["feasibility.db"]["engine"].dispose()
+
+
+def test_changed_password_ends_sessions(app: Flask, client: FlaskClient, people: dict[str, int]) -> None:
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import User
+    from feasibility.web.auth_pages import hash_password
+
+    sign_in(client, "rita")
+    assert client.get("/proposals").status_code == 200
+    with app.app_context(), session_scope() as session:
+        session.get_one(User, people["rita"]).password_hash = hash_password("a new one")
+    assert client.get("/proposals").status_code == 302
+
+
+def test_sign_in_goes_only_to_local_pages(client: FlaskClient, people: dict[str, int]) -> None:
+    for target, expected in (("/proposals/P-1", "/proposals/P-1"), ("//evil.example/x", "/"), ("https://evil.example/", "/")):
+        token = csrf_from(client.get("/sign-in").get_data(as_text=True))
+        response = client.post("/sign-in", data={"name": "rita", "password": PASSWORD, "csrf_token": token, "next": target})
+        assert response.headers["Location"] == expected  # OWASP: unvalidated redirects
+
+
+def test_portal_accounts_cannot_use_the_pages(app: Flask, client: FlaskClient) -> None:
+    from .support import add_user
+
+    add_user(app, "portal-1", "portal")
+    token = csrf_from(client.get("/sign-in").get_data(as_text=True))
+    response = client.post("/sign-in", data={"name": "portal-1", "password": PASSWORD, "csrf_token": token})
+    assert response.status_code == 401

@@ -1,0 +1,34 @@
+"""The periodic tasks of re-checking: the nightly re-check and sending verdict-change notices."""
+
+from __future__ import annotations
+
+from datetime import timedelta
+from typing import Any
+
+from celery import shared_task
+from flask import current_app
+
+from feasibility.service.rechecks import DEFAULT_STALE_DAYS, dispatch_plan, plan_rechecks
+from feasibility.service.webhooks import NOTICE_TASK, deliver_due
+from feasibility.store.db import session_factory, session_scope
+
+__all__ = ["RECHECK_TASK", "WEBHOOK_TASK", "deliver_notices", "nightly_recheck"]
+
+RECHECK_TASK = "feasibility.nightly_recheck"
+WEBHOOK_TASK = NOTICE_TASK
+
+
+@shared_task(name=RECHECK_TASK)
+def nightly_recheck() -> dict[str, Any]:
+    """Queue what schedule or observatory changes, a new engine version or stale results call for; idempotent."""
+    days = float(current_app.config.get("STALE_DAYS", DEFAULT_STALE_DAYS))
+    with session_scope() as session:
+        plan = plan_rechecks(session, stale_after=timedelta(days=days))
+    dispatch_plan(plan)  # after commit
+    return plan.as_dict()
+
+
+@shared_task(name=WEBHOOK_TASK)
+def deliver_notices() -> dict[str, int]:
+    """Send the verdict-change notices that are due; failures are retried later with back-off."""
+    return deliver_due(session_factory).as_dict()
