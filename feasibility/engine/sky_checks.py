@@ -230,7 +230,8 @@ def measure_sky(
         )
         # Magnitudes fall as brightness grows: the median of the nL values gives the median magnitude.
         sky_median = float(mag_from_nanolamberts(_median(dark_nl + moon_nl * band_factor(band))))
-        dark_sky = float(mag_from_nanolamberts(dark_sky_nl(climate_band.sky_mag_arcsec2, k, 90.0 - math.degrees(math.asin(median_sin)))))
+        median_zenith = 90.0 - math.degrees(math.asin(median_sin))
+        dark_sky = float(mag_from_nanolamberts(dark_sky_nl(climate_band.sky_mag_arcsec2, k, median_zenith)))
     else:
         airmass_median = airmass_min = lowest_airmass if math.isfinite(lowest_airmass) else constraints.max_airmass
         zenith_deg = 90.0 - altitude_for_airmass(airmass_median)
