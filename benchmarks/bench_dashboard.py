@@ -63,12 +63,14 @@ def main() -> None:
         page_s, rows = _best(lambda: list_rows(session, user, query))
         count_s, total = _best(lambda: count_rows(session, user, query))
         export_s, exported = _best(lambda: sum(1 for _ in iter_rows(session, user, query)))
+        overview_s, summary = _best(lambda: _overview_sums(session))
         naive_s, naive = _best(lambda: _naive_page(session, query), repeat=1)
     assert [r.proposal_id for r in rows] == naive, "the SQL page and the naive page differ"
     assert exported == total
     print(f"one page (50 of {total} matching): {page_s * 1000:.1f} ms")
     print(f"count of matching proposals:      {count_s * 1000:.1f} ms")
     print(f"whole filtered export ({exported} rows): {export_s * 1000:.1f} ms")
+    print(f"semester overview sums ({summary.proposals} proposals): {overview_s * 1000:.1f} ms")
     print(f"naive baseline (all in Python):   {naive_s * 1000:.1f} ms")
     print(f"ratio baseline / SQL page:        {naive_s / page_s:.1f}")
 
@@ -110,6 +112,18 @@ def _fill(session: Session, n: int) -> int:
     session.execute(insert(FindingRow), findings)
     session.commit()
     return reviewer.id
+
+
+def _overview_sums(session: Session):  # type: ignore[no-untyped-def]
+    """The overview's sums (verdict counts, hours per instrument, demand by right ascension), without the sky side."""
+    from feasibility.web.dashboard import overview
+
+    real = overview.current_observatory
+    overview.current_observatory = lambda _session: None  # the invented store has no usable observatory description
+    try:
+        return overview.semester_overview(session, "2099A")
+    finally:
+        overview.current_observatory = real
 
 
 def _naive_page(session: Session, query: ListQuery) -> list[str]:

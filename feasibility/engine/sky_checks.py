@@ -171,39 +171,36 @@ def measure_sky(
         target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch, mid_jyear
     )
 
-    # Stage 1, visible: one product over all instants, then work on the surviving indices only.
+    # Stage 1, visible: one product over all instants, then masks over the instants.
     sin_alt = view.up @ vector
     min_alt = max(altitude_for_airmass(constraints.max_airmass), site.min_altitude_deg, telescope.min_altitude_deg)
     max_alt = telescope.max_altitude_deg
-    above = sin_alt >= math.sin(math.radians(min_alt))
+    visible = sin_alt >= math.sin(math.radians(min_alt))
     if max_alt < 90.0:
-        above &= sin_alt <= math.sin(math.radians(max_alt))
-    visible = np.flatnonzero(above)
-    if site.horizon and visible.size:
-        visible = _above_horizon_profile(observatory, view, vector, visible, sin_alt, min_alt)
-    if request.windows and visible.size:
-        visible = visible[_in_windows(request, view.mjd[visible])]
+        visible &= sin_alt <= math.sin(math.radians(max_alt))
+    if site.horizon:
+        _clear_below_horizon_profile(observatory, view, vector, visible, sin_alt, min_alt)
+    if request.windows:
+        visible &= _in_windows(request, view.mjd)
 
     # Stage 2, observable: the Moon constraints, while the Moon is up.
     moon_limit = _moon_illumination_limit(request)
-    moon_up = view.moon_up[visible]
-    lit = np.flatnonzero(moon_up)  # positions within ``visible`` with the Moon up
-    cos_moon = np.zeros(visible.size)  # (the Moon's distance matters only while it is up)
-    cos_moon[lit] = np.take(view.moon, visible[lit], axis=0) @ vector
-    moon_ok = ~moon_up
-    moon_ok[lit] = (cos_moon[lit] <= math.cos(math.radians(constraints.min_moon_separation_deg))) & (
-        view.moon_illumination[visible[lit]] <= moon_limit
-    )
-    observable = visible[moon_ok]
+    cos_moon = view.moon @ vector
+    lit = visible & view.moon_up
+    blocked = lit & (cos_moon > math.cos(math.radians(constraints.min_moon_separation_deg)))
+    if moon_limit < 1.0:
+        blocked |= visible & view.moon_brighter_than(moon_limit)
+    observable = visible & ~blocked
 
     # Stage 3, usable: nights the instrument is mounted and the telescope open.
-    nights_visible = view.night_index[visible]
-    nights_observable = nights_visible[moon_ok]
-    usable_ok = available[nights_observable]
-    usable = observable[usable_ok]
-    hours_visible = np.bincount(nights_visible, minlength=n_nights) * step_hours
-    hours_observable = np.bincount(nights_observable, minlength=n_nights) * step_hours
-    hours_usable = np.bincount(nights_observable[usable_ok], minlength=n_nights) * step_hours
+    everywhere = bool(available.all())
+    usable = observable if everywhere else observable & view.on_nights(available)
+    hours_visible = view.per_night(visible) * step_hours
+    observable_per_night = view.per_night(observable)
+    hours_observable = observable_per_night * step_hours
+    hours_usable = hours_observable * available
+    n_observable = int(observable_per_night.sum())
+    n_usable = n_observable if everywhere else int(observable_per_night[available].sum())
 
     band = sky_band_for(request, instrument, observatory)
     climate_band = observatory.climate.bands[band]
@@ -211,20 +208,17 @@ def measure_sky(
     lowest_airmass = airmass_at(math.degrees(math.asin(min(highest, 1.0)))) if highest > 0.0 else math.inf
 
     k = climate_band.extinction_mag_per_airmass
-    if usable.size or observable.size:
-        # Positions of the chosen instants within ``visible``, to reuse their Moon distances.
-        within = np.flatnonzero(moon_ok)
-        chosen = observable
-        if usable.size:
-            within, chosen = within[usable_ok], usable
+    if n_observable:
+        chosen = np.flatnonzero(usable if n_usable else observable)
         chosen_sin = sin_alt[chosen]
         # The median commutes with monotonic functions of the altitude (airmass, dark sky).
         median_sin = min(_median(chosen_sin), 1.0)
         airmass_median = airmass_at(math.degrees(math.asin(median_sin)))
         airmass_min = airmass_at(math.degrees(math.asin(min(float(chosen_sin.max()), 1.0))))
         step = -(-chosen.size // _SKY_SAMPLES)  # at most _SKY_SAMPLES, evenly spread in time
-        sampled, sampled_within = chosen[::step], within[::step]
-        separation = np.degrees(np.arccos(np.clip(cos_moon[sampled_within], -1.0, 1.0)))
+        sampled = chosen[::step]
+        # (With the Moon down its term is zero, whatever the separation.)
+        separation = np.degrees(np.arccos(np.clip(cos_moon[sampled], -1.0, 1.0)))
         dark_nl, moon_nl = sky_components_nl(
             climate_band.sky_mag_arcsec2, k, chosen_sin[::step], separation, view.moon_term(k)[sampled]
         )
@@ -237,11 +231,12 @@ def measure_sky(
         zenith_deg = 90.0 - altitude_for_airmass(airmass_median)
         sky_median = dark_sky = float(mag_from_nanolamberts(dark_sky_nl(climate_band.sky_mag_arcsec2, k, zenith_deg)))
 
-    moon_separation_min = math.degrees(math.acos(min(1.0, float(cos_moon[lit].max())))) if lit.size else None
+    closest_moon = cos_moon[lit]
+    moon_separation_min = math.degrees(math.acos(min(1.0, float(closest_moon.max())))) if closest_moon.size else None
 
     cos_sun = grid.sun_vector_midnight @ vector
     sun_limit_cos = math.cos(math.radians(telescope.min_sun_separation_deg))
-    if visible.size:
+    if hours_visible.any():
         seen = hours_visible > 0.0
         sun_min = math.degrees(math.acos(min(1.0, float(cos_sun[seen].max()))))
         sun_unsafe_hours = float(hours_visible[cos_sun > sun_limit_cos].sum())
@@ -250,8 +245,8 @@ def measure_sky(
     sun_min_all = math.degrees(math.acos(min(1.0, float(cos_sun.max()))))
 
     conditions = Conditions(
-        hours_observable=observable.size * step_hours,
-        hours_usable=usable.size * step_hours,
+        hours_observable=n_observable * step_hours,
+        hours_usable=n_usable * step_hours,
         airmass_median=airmass_median,
         airmass_min=airmass_min,
         sky_mag_arcsec2=sky_median,
@@ -518,37 +513,39 @@ def _moon_illumination_limit(request: ObservationRequest) -> float:
     return limit
 
 
-def _above_horizon_profile(
+def _clear_below_horizon_profile(
     observatory: Observatory,
     view: NightSamples,
     vector: NDArray[np.float64],
-    candidates: NDArray[np.intp],
+    visible: NDArray[np.bool_],
     sin_alt: NDArray[np.float64],
     min_alt: float,
-) -> NDArray[np.intp]:
-    """``candidates`` that also clear the site's horizon profile (linear in azimuth, wrapping at 360°).
+) -> None:
+    """Clear in ``visible`` the instants below the site's horizon profile (linear in azimuth, wrapping at 360°).
 
     Only instants lower than the profile's highest point need their azimuth, so
     with the usual airmass limits the profile costs nothing.
     """
-    points = sorted(observatory.site.horizon, key=lambda p: p.azimuth_deg)
-    top = max(p.altitude_deg for p in points)
+    horizon = observatory.site.horizon
+    top = max(p.altitude_deg for p in horizon)
     if top <= min_alt:
-        return candidates
-    low = candidates[sin_alt[candidates] < math.sin(math.radians(top))]
+        return
+    low = np.flatnonzero(visible & (sin_alt < math.sin(math.radians(top))))
     if not low.size:
-        return candidates
+        return
+    points = sorted(horizon, key=lambda p: p.azimuth_deg)
     azimuth = np.degrees(np.arctan2(np.take(view.east, low, axis=0) @ vector, np.take(view.north, low, axis=0) @ vector))
     floor = np.interp(azimuth % 360.0, [p.azimuth_deg for p in points], [p.altitude_deg for p in points], period=360.0)
-    blocked = low[np.degrees(np.arcsin(sin_alt[low])) < floor]
-    return np.setdiff1d(candidates, blocked, assume_unique=True) if blocked.size else candidates
+    visible[low[np.degrees(np.arcsin(sin_alt[low])) < floor]] = False
 
 
 def _in_windows(request: ObservationRequest, mjd: NDArray[np.float64]) -> NDArray[np.bool_]:
-    """Which of the instants ``mjd`` fall inside any of the request's time windows."""
+    """Which of the instants ``mjd`` (in time order) fall inside any of the request's time windows."""
     inside = np.zeros(mjd.size, dtype=bool)
     for window in request.windows:
-        inside |= (mjd >= _mjd(window.start)) & (mjd <= _mjd(window.end))
+        first = np.searchsorted(mjd, _mjd(window.start), side="left")  # first instant at or after the start
+        stop = np.searchsorted(mjd, _mjd(window.end), side="right")  # first instant after the end
+        inside[first:stop] = True
     return inside
 
 
@@ -575,8 +572,7 @@ def _night_curve(
     else:
         night = grid.n_nights // 2
     view = grid.samples(0.0)
-    lo, hi = np.searchsorted(view.night_index, [night, night + 1])
-    up = view.up[lo:hi] @ vector
+    up = view.up[view.night_starts[night] : view.night_starts[night + 1]] @ vector
     shared = grid.night_sky_curve(night)
     return {
         "night": shared["night"],

@@ -88,12 +88,15 @@ class NightSamples:
 
     ``up``, ``east`` and ``north`` (each ``(n, 3)``) are the rows of the
     ICRS→horizontal rotation: ``up @ v`` is the sine of a target's altitude;
-    ``moon @ v`` the cosine of its distance from the Moon.
+    ``moon @ v`` the cosine of its distance from the Moon. The instants are in
+    time order, so each night is one slice: ``night_starts[i]:night_starts[i + 1]``.
     """
 
     sun_limit_deg: float
     mjd: Array
     night_index: NDArray[np.int32]
+    night_starts: NDArray[np.intp]
+    """Position of each night's first instant, and the number of instants at the end (``n_nights + 1`` values)."""
     hours_from_midnight: Array
     east: Array
     north: Array
@@ -105,6 +108,7 @@ class NightSamples:
     moon_phase_angle_deg: Array
     moon_up: NDArray[np.bool_]
     _moon_terms: dict[float, Array] = field(default_factory=dict, repr=False, compare=False)
+    _moon_brighter: dict[float, NDArray[np.bool_]] = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def size(self) -> int:
@@ -116,6 +120,22 @@ class NightSamples:
         if term is None:
             term = self._moon_terms[extinction] = moon_term(self.moon_phase_angle_deg, 90.0 - self.moon_alt_deg, extinction)
         return term
+
+    def moon_brighter_than(self, illumination: float) -> NDArray[np.bool_]:
+        """Per instant, whether the Moon is up with an illuminated fraction above ``illumination`` (cached per value)."""
+        key = float(illumination)
+        brighter = self._moon_brighter.get(key)
+        if brighter is None:
+            brighter = self._moon_brighter[key] = self.moon_up & (self.moon_illumination > key)
+        return brighter
+
+    def per_night(self, chosen: NDArray[np.bool_]) -> NDArray[np.intp]:
+        """How many of the ``chosen`` instants (a mask over the instants) fall in each night."""
+        return np.diff(np.searchsorted(np.flatnonzero(chosen), self.night_starts))
+
+    def on_nights(self, nights: NDArray[np.bool_]) -> NDArray[np.bool_]:
+        """Spread a per-night mask over the instants of each night."""
+        return np.repeat(nights, np.diff(self.night_starts))
 
 
 @dataclass
@@ -186,6 +206,7 @@ class SkyGrid:
                 sun_limit_deg=key,
                 mjd=mjd,
                 night_index=nights,
+                night_starts=np.searchsorted(nights, np.arange(self.n_nights + 1)),
                 hours_from_midnight=(mjd - self.midnight_mjd[nights]) * 24.0,
                 east=np.ascontiguousarray(self.basis[keep, 0, :]),
                 north=np.ascontiguousarray(self.basis[keep, 1, :]),
@@ -214,7 +235,7 @@ class SkyGrid:
         curve = self._curves.get(night)
         if curve is None:
             view = self.samples(0.0)
-            lo, hi = np.searchsorted(view.night_index, [night, night + 1])
+            lo, hi = view.night_starts[night], view.night_starts[night + 1]
             curve = self._curves[night] = {
                 "night": self.night_names[night],
                 "hours_from_midnight": np.round(view.hours_from_midnight[lo:hi], 3).tolist(),
@@ -234,8 +255,9 @@ def sky_grid(
 ) -> SkyGrid:
     """The sky grid for a site and nights: from this process's memory, else from disk, else computed.
 
-    The disk cache directory is read from ``FEASIBILITY_CACHE_DIR`` on each miss of
-    the in-process cache (default ``~/.cache/feasibility``).
+    The in-process cache is keyed by the site, the nights, the step and the value of
+    ``FEASIBILITY_CACHE_DIR``; the disk cache directory (:func:`cache_dir`) is
+    resolved only on a miss, which keeps a hit to a dictionary look-up.
     """
     return _memory_cached(
         round(float(latitude_deg), 6),
@@ -244,7 +266,7 @@ def sky_grid(
         first_night,
         last_night,
         float(step_minutes),
-        str(cache_dir()),
+        os.environ.get("FEASIBILITY_CACHE_DIR"),
     )
 
 
@@ -262,10 +284,11 @@ def _memory_cached(
     first_night: date,
     last_night: date,
     step_minutes: float,
-    directory: str,
+    configured_dir: str | None,
 ) -> SkyGrid:
+    """The grid from disk or computed; ``configured_dir`` (the environment's setting) only keys this cache."""
     args = (latitude_deg, longitude_deg, elevation_m, first_night, last_night, step_minutes)
-    path = Path(directory) / f"skygrid-v{GRID_VERSION}-{_cache_key(*args)}.npz"
+    path = cache_dir() / f"skygrid-v{GRID_VERSION}-{_cache_key(*args)}.npz"
     grid = _read(path, args)
     if grid is None:
         grid = build_sky_grid(*args)

@@ -15,13 +15,13 @@ from datetime import timedelta
 from typing import Any
 
 from flask import current_app, has_app_context
-from sqlalchemy import and_, or_, update
+from sqlalchemy import and_, insert, or_, text, update
 from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import defer
 from sqlalchemy.orm.attributes import set_committed_value
 
 from feasibility.documents import InstrumentSchedule, Observatory, Proposal, parse_document
-from feasibility.results import ProposalResult
+from feasibility.results import ProposalResult, RequestResult
 from feasibility.service.current import observatory_of, schedule_of
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, FindingRow, ObservatoryVersion, RequestOutcome, ScheduleVersion, utcnow
@@ -70,6 +70,10 @@ def _claim(run_id: int) -> tuple[int, Proposal, Observatory, InstrumentSchedule 
     now = utcnow()
     timeout = _run_timeout()
     with session_scope() as session:
+        if session.get_bind().dialect.name == "postgresql":
+            # A claim lost in a database crash costs only a recomputation (the run is still
+            # queued), so it need not wait for the WAL flush; results are committed durably.
+            session.execute(text("SET LOCAL synchronous_commit = off"))
         claimed = session.execute(
             update(CheckRun)
             .where(
@@ -100,35 +104,51 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
         # The result was just written: hand it to the object as loaded rather than reading its JSON back.
         run = session.get_one(CheckRun, run_id, options=[defer(CheckRun.result)])
         set_committed_value(run, "result", stored)
-        for request in result.requests:
-            figures = dict(request.figures)
-            outcome = RequestOutcome(
-                label=request.label,
-                instrument=request.instrument,
-                target=request.target,
-                verdict=request.verdict.value,
-                hours_requested=_number(figures.get("hours_requested")),
-                hours_observable=_number(figures.get("hours_observable")),
-                hours_needed=_number(figures.get("hours_needed")),
-                snr_expected=_number(figures.get("snr_expected")),
-                figures=figures,
-                findings=[
-                    FindingRow(
-                        check=f.check,
-                        level=f.level.value,
-                        message=f.message,
-                        suggestion=f.suggestion,
-                        method=f.method,
-                        figures=dict(f.figures),
-                    )
-                    for f in request.findings
-                ],
-            )
-            outcome.run_id = run_id
-            session.add(outcome)  # not run.outcomes.append: that would load the (empty) collection first
+        # Bulk inserts (one statement per table), not the unit of work: a run has dozens of findings.
+        outcome_ids = (
+            session.scalars(
+                insert(RequestOutcome).returning(RequestOutcome.id, sort_by_parameter_order=True),
+                [_outcome_row(run_id, request) for request in result.requests],
+            ).all()
+            if result.requests
+            else []
+        )
+        findings = [
+            {
+                "outcome_id": outcome_id,
+                "check": f.check,
+                "level": f.level.value,
+                "message": f.message,
+                "suggestion": f.suggestion,
+                "method": f.method,
+                "figures": dict(f.figures),
+            }
+            for outcome_id, request in zip(outcome_ids, result.requests)
+            for f in request.findings
+        ]
+        if findings:
+            # RETURNING makes SQLAlchemy send one multi-row INSERT ("insertmanyvalues")
+            # rather than one statement per row.
+            session.scalars(insert(FindingRow).returning(FindingRow.id), findings).all()
         session.flush()
         record_changes(session, run)
     return "done"
+
+
+def _outcome_row(run_id: int, request: RequestResult) -> dict[str, Any]:
+    figures = dict(request.figures)
+    return {
+        "run_id": run_id,
+        "label": request.label,
+        "instrument": request.instrument,
+        "target": request.target,
+        "verdict": request.verdict.value,
+        "hours_requested": _number(figures.get("hours_requested")),
+        "hours_observable": _number(figures.get("hours_observable")),
+        "hours_needed": _number(figures.get("hours_needed")),
+        "snr_expected": _number(figures.get("snr_expected")),
+        "figures": figures,
+    }
 
 
 def _store_failure(run_id: int, attempt: int, exc: Exception) -> str:

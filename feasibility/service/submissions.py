@@ -22,7 +22,7 @@ from feasibility.documents.loading import DocumentError, Problem
 from feasibility.service.current import current_observatory, current_schedule, observatory_of
 from feasibility.service.engine_version import engine_version
 from feasibility.store.hashing import document_hash
-from feasibility.store.models import CheckRun, ObservatoryVersion, ProposalRecord, ProposalVersion, ScheduleVersion, User
+from feasibility.store.models import CheckRun, ObservatoryVersion, ProposalRecord, ProposalVersion, ScheduleVersion, User, utcnow
 
 __all__ = ["NotAllowed", "Submission", "ensure_run", "submit", "submit_proposal"]
 
@@ -112,13 +112,18 @@ def ensure_run(
         "schedule_key": schedule_key,
         "engine_version": engine_version(),
     }
-    return _get_or_create(
+    run, created = _get_or_create(
         session,
         CheckRun,
         lookup,
         {"schedule_version_id": schedule_row.id if schedule_row is not None else None, "reason": reason, "priority": priority, "state": "queued"},
         new=new,
     )
+    if not created and run.state == "failed":
+        # The engine failed on these inputs before; asking again queues the run again (it must be enqueued).
+        run.state, run.error, run.queued_at, run.reason = "queued", None, utcnow(), reason
+        return run, True
+    return run, created
 
 
 def _proposal_record(session: Session, proposal: Proposal, owner: User | None) -> tuple[ProposalRecord, bool]:

@@ -53,8 +53,6 @@ ALL_PROPOSALS_ROLES = ("reviewer", "admin")
 
 _UNSAFE_METHODS = {"POST", "PUT", "PATCH", "DELETE"}
 _CSRF_KEY = "csrf"
-# A hash to check against when the user name is unknown, so the answer takes as long either way.
-_DUMMY_HASH = generate_password_hash(secrets.token_hex(16))
 
 View = TypeVar("View", bound=Callable[..., Any])
 
@@ -83,6 +81,8 @@ def security_headers(response: Response) -> Response:
     response.headers.setdefault("X-Content-Type-Options", "nosniff")
     response.headers.setdefault("Referrer-Policy", "same-origin")
     response.headers.setdefault("X-Frame-Options", "DENY")
+    if request.endpoint != "dashboard.static":
+        response.headers.setdefault("Cache-Control", "no-store")  # pages hold who sees what: keep them out of shared caches
     return response
 
 
@@ -174,7 +174,7 @@ def sign_in() -> Any:
     name = request.form.get("name", "").strip()
     password = request.form.get("password", "")
     user = db().scalars(select(User).where(User.name == name)).first() if name else None
-    stored = user.password_hash if user is not None and user.password_hash else _DUMMY_HASH
+    stored = user.password_hash if user is not None and user.password_hash else _dummy_hash()
     valid = check_password_hash(stored, password) and user is not None and user.password_hash is not None
     if not valid or user is None or user.role not in PAGE_ROLES:
         return render_template("dashboard/sign_in.html", next=target, name=name, failed=True), 401
@@ -191,6 +191,12 @@ def sign_out() -> Any:
     session.clear()
     flash("You are signed out.")
     return redirect(url_for("auth.sign_in"))
+
+
+@functools.cache
+def _dummy_hash() -> str:
+    """A hash to check against when the user name is unknown, so the answer takes as long either way."""
+    return generate_password_hash(secrets.token_hex(16))
 
 
 def _password_digest(password_hash: str) -> str:

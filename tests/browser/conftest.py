@@ -2,7 +2,7 @@
 
 The app runs from a real werkzeug server thread on 127.0.0.1 with a temporary
 SQLite store and the embedded pool (the engine replaced by the page tests'
-stand-in, which pauses a little so the progress display can be seen). Chromium
+stand-in, which a test can hold back to see the progress display). Chromium
 is Debian's package at /usr/bin/chromium, driven by Playwright; without it the
 tests are skipped, except under CI=true where they fail.
 """
@@ -63,7 +63,6 @@ def live_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[dict[str, 
         store_checked(app, proposal_doc("SQ-B-003", title="Infrared <i>dust</i> lanes", instrument="OWL", target="<script>alert(1)</script>",
                                         hours=3.5, ra="17:45:00"), "petra")
         store_checked(app, proposal_doc("SQ-B-004", title="Cluster ages", target="Open cluster 9", hours=2.0, ra="08:10:00"), "petra")
-        engine.delay = 1.5  # uploads during the tests take long enough to show progress
         server = make_server("127.0.0.1", 0, app, threaded=True)
         thread = threading.Thread(target=server.serve_forever, name="browser-test-server", daemon=True)
         thread.start()

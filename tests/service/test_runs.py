@@ -111,3 +111,15 @@ def test_sweeper_finds_stale_runs_only(ctx: Flask, fake_engine: FakeEngine) -> N
     assert found == ([stale], [])
     assert stale_runs(timedelta(minutes=10), timedelta(minutes=15)) == ([], [])  # queued_at was reset
     assert fresh != stale
+
+
+def test_submitting_again_after_an_engine_fault_queues_the_run_again(ctx: Flask, fake_engine: FakeEngine) -> None:
+    run_id = _new_run("F-1")
+    fake_engine.error = ValueError("engine trouble")
+    assert execute_run(run_id) == "failed"
+    with session_scope() as session:
+        again = submit(session, proposal("F-1"), None)
+    assert again.run.id == run_id and again.created  # same inputs, same run: queued again, to be enqueued
+    fake_engine.error = None
+    assert execute_run(run_id) == "done"
+    assert _outcomes(run_id) == 1

@@ -72,13 +72,15 @@ class StandInEngine:
 
     ``levels`` maps a proposal id to the verdict its requests get (default feasible);
     ``failing_check`` names the check that carries the non-feasible level; ``delay``
-    makes each run take that long (so a page can show progress).
+    makes each run take that long, and ``gate`` (an event) holds each run until it is
+    set, so a page can be seen while a run is in progress.
     """
 
     def __init__(self) -> None:
         self.levels: dict[str, Level] = {}
         self.failing_check = "moon"
         self.delay = 0.0
+        self.gate: threading.Event | None = None
         self.figure_scale: dict[str, float] = {}
         self.with_series = True
         self._lock = threading.Lock()
@@ -87,6 +89,8 @@ class StandInEngine:
     def __call__(self, proposal: Any, observatory: Any, schedule: Any) -> ProposalResult:
         with self._lock:
             self.calls.append(proposal.id)
+        if self.gate is not None:
+            self.gate.wait(30)
         if self.delay:
             time.sleep(self.delay)
         level = self.levels.get(proposal.id, Level.FEASIBLE)

@@ -108,3 +108,13 @@ def test_portal_accounts_cannot_use_the_pages(app: Flask, client: FlaskClient) -
     token = csrf_from(client.get("/sign-in").get_data(as_text=True))
     response = client.post("/sign-in", data={"name": "portal-1", "password": PASSWORD, "csrf_token": token})
     assert response.status_code == 401
+
+
+def test_private_pages_are_not_cached_but_the_stylesheet_is(client: FlaskClient, semester: dict[str, Any]) -> None:
+    sign_in(client, "rita")
+    # RFC 9111 section 5.2.2.5: no-store keeps a response out of every cache.
+    assert client.get("/proposals").headers["Cache-Control"] == "no-store"
+    assert client.get("/proposals.csv").headers["Cache-Control"] == "no-store"
+    with client.get("/assets/dashboard.css") as stylesheet:  # a file response: closed after use
+        assert stylesheet.status_code == 200
+        assert "no-store" not in stylesheet.headers.get("Cache-Control", "")

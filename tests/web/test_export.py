@@ -10,7 +10,7 @@ from typing import Any
 from flask import Flask
 from flask.testing import FlaskClient
 
-from .support import proposal_doc, sign_in, store_checked
+from .support import sign_in
 
 
 def test_csv_export_follows_the_filters(client: FlaskClient, semester: dict[str, Any]) -> None:

@@ -52,3 +52,20 @@ def test_semester_without_proposals(client: FlaskClient, people: dict[str, int])
     html = client.get("/semesters/2027B").get_data(as_text=True)
     assert "0 proposals" in html and "No checked requests yet." in html
     assert client.get("/semesters/1999Z").status_code == 200  # no such semester: said so, not an error
+
+
+def test_requests_without_hours_needed_are_counted_apart(app: Flask, semester: dict[str, Any]) -> None:
+    from sqlalchemy import update
+
+    from feasibility.store.db import session_factory, session_scope
+    from feasibility.store.models import RequestOutcome
+    from feasibility.web.dashboard.overview import semester_overview
+
+    with app.app_context():
+        with session_scope() as session:
+            session.execute(update(RequestOutcome).where(RequestOutcome.instrument == "HERON").values(hours_needed=None))
+        session = session_factory()
+        lines = {line.instrument: line for line in semester_overview(session, "2027A").instruments}
+        session.close()
+    assert lines["HERON"].needed_unknown == 1 and lines["HERON"].hours_needed is None
+    assert lines["KESTREL"].needed_unknown == 0 and lines["KESTREL"].hours_needed == 5.0  # 2 requests x 2.5 h (stand-in)

@@ -12,7 +12,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import case, func, select
 from sqlalchemy.orm import Session
 
 from feasibility.documents.angles import parse_right_ascension
@@ -34,6 +34,8 @@ class InstrumentLine:
     hours_needed: float | None
     hours_observable: float | None
     hours_offered: float | None
+    needed_unknown: int = 0
+    """Requests whose goal cannot be reached at all (no hours needed stored); not in ``hours_needed``."""
 
     @property
     def pressure(self) -> float | None:
@@ -82,6 +84,7 @@ def semester_overview(session: Session, semester: str) -> Overview:
             func.sum(RequestOutcome.hours_requested),
             func.sum(RequestOutcome.hours_needed),
             func.sum(RequestOutcome.hours_observable),
+            func.sum(case((RequestOutcome.hours_needed.is_(None), 1), else_=0)),
         )
         .where(RequestOutcome.run_id.in_(select(in_semester.c.run_id)))
         .group_by(RequestOutcome.instrument)
@@ -113,8 +116,9 @@ def semester_overview(session: Session, semester: str) -> Overview:
             hours_needed=_maybe(needed),
             hours_observable=_maybe(observable),
             hours_offered=offered.get(name),
+            needed_unknown=int(unknown or 0),
         )
-        for name, number, requested, needed, observable in per_instrument
+        for name, number, requested, needed, observable, unknown in per_instrument
     ]
     seen = {line.instrument for line in lines}
     lines += [InstrumentLine(name, 0, 0.0, None, None, hours) for name, hours in sorted(offered.items()) if name not in seen]

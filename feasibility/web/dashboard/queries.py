@@ -199,6 +199,10 @@ def semesters(session: Session, user: User) -> list[str]:
 
 
 # --- building the statement -----------------------------------------------------------------
+#
+# Each proposal's latest and previous finished runs are found by correlated subqueries that
+# walk the indexes (proposal -> its versions -> their runs), so a page costs a few index
+# look-ups per proposal rather than a scan of every run per proposal.
 
 _version = aliased(ProposalVersion, name="shown_version")
 _latest_version = (
@@ -206,7 +210,36 @@ _latest_version = (
     .group_by(ProposalVersion.proposal_ref)
     .subquery("latest_versions")
 )
-_runs = latest_runs()
+
+
+def _finished_run(position: int) -> Any:
+    """The id of the proposal's finished run at ``position`` (0 the latest, 1 the one before), correlated."""
+    return (
+        select(CheckRun.id)
+        .join(ProposalVersion, ProposalVersion.id == CheckRun.proposal_version_id)
+        .where(ProposalVersion.proposal_ref == ProposalRecord.id, _unindexed(CheckRun.state) == "done")
+        .order_by(CheckRun.finished_at.desc(), CheckRun.id.desc())
+        .limit(1)
+        .offset(position)
+        .correlate(ProposalRecord)
+        .scalar_subquery()
+    )
+
+
+def _unindexed(column: Any) -> Any:
+    """``column || ''``: the same value, but SQLite will not pick the column's own index for the term.
+
+    Without table statistics SQLite takes an equality on an indexed column (``state = 'done'``,
+    ``check = 'moon'``) as the best way in, and so scans every finished run or every finding
+    of a check once per proposal. Hiding those terms from the planner (the SQLite query
+    optimizer overview, "disqualifying WHERE clause terms") makes it follow the proposal's
+    versions, runs and outcomes through their foreign-key indexes instead.
+    """
+    return column.concat("")
+
+
+_latest = aliased(CheckRun, name="latest_run")
+_previous = aliased(CheckRun, name="previous_run")
 
 _pending = (
     exists()
@@ -220,11 +253,11 @@ _pending = (
 
 _verdict_rank = case(
     {level: rank for rank, level in enumerate(LEVELS)},
-    value=_runs.c.verdict,
+    value=_latest.verdict,
     else_=-1,
 )
 _changed = case(
-    (and_(_runs.c.previous_verdict.is_not(None), _runs.c.previous_verdict != _runs.c.verdict), 1),
+    (and_(_previous.verdict.is_not(None), _previous.verdict != _latest.verdict), 1),
     else_=0,
 )
 _SORT_COLUMNS: dict[str, Any] = {
@@ -234,7 +267,7 @@ _SORT_COLUMNS: dict[str, Any] = {
     "instruments": _version.instruments,
     "hours": _version.hours_requested,
     "verdict": _verdict_rank,
-    "checked": _runs.c.checked_at,
+    "checked": _latest.finished_at,
     "changed": _changed,
 }
 
@@ -249,15 +282,16 @@ def _base() -> Select[Any]:
             _version.instruments,
             _version.hours_requested,
             _version.targets,
-            _runs.c.run_id,
-            _runs.c.verdict,
-            _runs.c.checked_at,
-            _runs.c.previous_verdict,
+            _latest.id.label("run_id"),
+            _latest.verdict.label("verdict"),
+            _latest.finished_at.label("checked_at"),
+            _previous.verdict.label("previous_verdict"),
             _pending.label("pending"),
         )
         .join(_latest_version, _latest_version.c.proposal_ref == ProposalRecord.id)
         .join(_version, _version.id == _latest_version.c.version_id)
-        .outerjoin(_runs, _runs.c.proposal_ref == ProposalRecord.id)
+        .outerjoin(_latest, _latest.id == _finished_run(0))
+        .outerjoin(_previous, _previous.id == _finished_run(1))
     )
 
 
@@ -271,9 +305,9 @@ def _ordered(query: ListQuery) -> Select[Any]:
 def _filtered(user: User, query: ListQuery, statement: Select[Any]) -> Select[Any]:
     statement = statement.where(visible_proposals(user), ProposalRecord.semester == query.semester)
     if query.verdict == "none":
-        statement = statement.where(_runs.c.verdict.is_(None))
+        statement = statement.where(_latest.verdict.is_(None))
     elif query.verdict:
-        statement = statement.where(_runs.c.verdict == query.verdict)
+        statement = statement.where(_latest.verdict == query.verdict)
     if query.instrument:
         listed = literal(",") + func.replace(_version.instruments, " ", "") + literal(",")
         statement = statement.where(func.lower(listed).like(f"%,{_like_escape(query.instrument.lower())},%", escape="\\"))
@@ -281,9 +315,9 @@ def _filtered(user: User, query: ListQuery, statement: Select[Any]) -> Select[An
         statement = statement.where(
             exists()
             .where(
-                RequestOutcome.run_id == _runs.c.run_id,
+                RequestOutcome.run_id == _latest.id,
                 FindingRow.outcome_id == RequestOutcome.id,
-                FindingRow.check == query.check,
+                _unindexed(FindingRow.check) == query.check,
                 FindingRow.level != "feasible",
             )
         )
