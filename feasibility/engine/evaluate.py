@@ -184,9 +184,9 @@ def check_request(
 
     series: dict[str, Any] = {
         "nights": list(context.night_names),
-        "hours_visible": np.round(sky.visible, 3).tolist(),
-        "hours_usable": np.round(sky.usable, 3).tolist(),
-        "hours_observable": np.round(sky.observable, 3).tolist(),
+        "hours_visible": sky.visible.round(3).tolist(),
+        "hours_usable": sky.usable.round(3).tolist(),
+        "hours_observable": sky.observable.round(3).tolist(),
         "moon_illumination": list(context.moon_illumination),
         "night_curve": sky.night_curve,
         **exposure.series,

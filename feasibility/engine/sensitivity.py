@@ -240,9 +240,9 @@ def ccd_snr(
     """
     background_factor = 1.0 if n_background is None else 1.0 + n_pix / n_background
     if isinstance(total_s, (int, float)) and isinstance(exposures, (int, float)):  # one value: plain floats, faster
-        value = source_e_s * total_s
-        spread = math.sqrt(value + n_pix * background_factor * ((sky_e_s_pix + dark_e_s_pix) * total_s + exposures * read_noise_e**2))
-        return float(value / spread) if spread > 0 else 0.0
+        source = source_e_s * total_s
+        noise = math.sqrt(source + n_pix * background_factor * ((sky_e_s_pix + dark_e_s_pix) * total_s + exposures * read_noise_e**2))
+        return float(source / noise) if noise > 0 else 0.0
     total = np.asarray(total_s, dtype=float)
     signal = source_e_s * total
     noise = np.sqrt(signal + n_pix * background_factor * ((sky_e_s_pix + dark_e_s_pix) * total + exposures * read_noise_e**2))
@@ -548,8 +548,8 @@ def _snr_curve(request: ObservationRequest, signal: Signal, plan: ExposurePlan, 
     counts = np.maximum(1, np.ceil(times / longest - 1e-9))
     snr = signal.snr(times, counts)
     return {
-        "exposure_s": [round(t, 3) for t in times.tolist()],
-        "snr": [round(s, 4) for s in np.atleast_1d(snr).tolist()],
+        "exposure_s": np.round(times, 3).tolist(),
+        "snr": np.round(np.atleast_1d(snr), 4).tolist(),
         "goal_snr": request.goal.snr,
         "requested_exposure_s": round(requested_s, 3),
         "needed_exposure_s": round(needed_s, 3) if math.isfinite(needed_s) else None,

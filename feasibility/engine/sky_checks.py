@@ -1,9 +1,11 @@
 """The sky checks of one observation request: visibility, moon, schedule and sun-safety.
 
 :func:`measure_sky` runs the request's target over the semester sky grid in plain
-NumPy (one matrix–vector product per instant gives the target's horizontal
-direction and its distance from the Moon) and reduces the instants to hours per
-night at each stage:
+NumPy (one matrix–vector product over every instant gives the sine of the
+target's altitude, compared with the sines of the limits; its distance from the
+Moon is computed only at the visible instants with the Moon up) and reduces the
+instants to hours per night at each stage, as boolean masks over the instants
+summed night by night:
 
 1. *visible*: true night for the instrument's twilight, above the airmass limit,
    the site's minimum altitude, the horizon profile and the telescope's lower
@@ -158,6 +160,11 @@ def measure_sky(
 
     ``available`` (per night) comes from :func:`night_availability`, ``weather``
     (per night) is the usable-night fraction of each night's month.
+
+    This is the engine's hot path: each stage is a mask over the instants of the
+    instrument's true night, per-night hours are one ``reduceat`` per mask, and
+    altitudes, airmasses and sky brightness are computed only for the instants
+    that qualify (medians commute with those monotonic functions).
     """
     site, telescope, constraints = observatory.site, observatory.telescope, request.constraints
     sun_limit = TWILIGHT_SUN_ALTITUDE_DEG[instrument.twilight]
@@ -183,14 +190,14 @@ def measure_sky(
     if request.windows:
         visible &= _in_windows(request, view.mjd)
 
-    # Stage 2, observable: the Moon constraints, while the Moon is up.
+    # Stage 2, observable: the Moon constraints, while the Moon is up (its distance is needed only there).
     moon_limit = _moon_illumination_limit(request)
-    cos_moon = view.moon @ vector
-    lit = visible & view.moon_up
-    blocked = lit & (cos_moon > math.cos(math.radians(constraints.min_moon_separation_deg)))
+    lit = np.flatnonzero(visible & view.moon_up)
+    cos_moon = np.take(view.moon, lit, axis=0) @ vector
+    observable = visible.copy()
+    observable[lit[cos_moon > math.cos(math.radians(constraints.min_moon_separation_deg))]] = False
     if moon_limit < 1.0:
-        blocked |= visible & view.moon_brighter_than(moon_limit)
-    observable = visible & ~blocked
+        observable &= view.moon_down_or_within(moon_limit)
 
     # Stage 3, usable: nights the instrument is mounted and the telescope open.
     everywhere = bool(available.all())
@@ -218,7 +225,7 @@ def measure_sky(
         step = -(-chosen.size // _SKY_SAMPLES)  # at most _SKY_SAMPLES, evenly spread in time
         sampled = chosen[::step]
         # (With the Moon down its term is zero, whatever the separation.)
-        separation = np.degrees(np.arccos(np.clip(cos_moon[sampled], -1.0, 1.0)))
+        separation = np.degrees(np.arccos(np.clip(np.take(view.moon, sampled, axis=0) @ vector, -1.0, 1.0)))
         dark_nl, moon_nl = sky_components_nl(
             climate_band.sky_mag_arcsec2, k, chosen_sin[::step], separation, view.moon_term(k)[sampled]
         )
@@ -231,8 +238,7 @@ def measure_sky(
         zenith_deg = 90.0 - altitude_for_airmass(airmass_median)
         sky_median = dark_sky = float(mag_from_nanolamberts(dark_sky_nl(climate_band.sky_mag_arcsec2, k, zenith_deg)))
 
-    closest_moon = cos_moon[lit]
-    moon_separation_min = math.degrees(math.acos(min(1.0, float(closest_moon.max())))) if closest_moon.size else None
+    moon_separation_min = math.degrees(math.acos(min(1.0, float(cos_moon.max())))) if cos_moon.size else None
 
     cos_sun = grid.sun_vector_midnight @ vector
     sun_limit_cos = math.cos(math.radians(telescope.min_sun_separation_deg))
@@ -345,7 +351,7 @@ def visibility_finding(sky: SkyMeasure) -> Finding:
             "min_altitude_deg": round(sky.min_altitude_deg, 2),
             "max_altitude_deg": sky.max_altitude_deg,
             "lowest_airmass": round(sky.lowest_airmass, 3) if math.isfinite(sky.lowest_airmass) else None,
-            "usable_night_fraction_mean": round(float(sky.weather.mean()), 3),
+            "usable_night_fraction_mean": round(float(sky.weather.sum()) / sky.weather.size, 3),  # (the mean, cheaper)
         },
         suggestion=suggestion,
         method=(
@@ -577,5 +583,5 @@ def _night_curve(
     return {
         "night": shared["night"],
         **{name: list(shared[name]) for name in ("hours_from_midnight", "moon_alt_deg", "sun_alt_deg")},  # type: ignore[call-overload]
-        "target_alt_deg": np.round(np.degrees(np.arcsin(np.clip(up, -1.0, 1.0))), 2).tolist(),
+        "target_alt_deg": np.degrees(np.arcsin(np.minimum(np.maximum(up, -1.0), 1.0))).round(2).tolist(),
     }

@@ -108,7 +108,7 @@ class NightSamples:
     moon_phase_angle_deg: Array
     moon_up: NDArray[np.bool_]
     _moon_terms: dict[float, Array] = field(default_factory=dict, repr=False, compare=False)
-    _moon_brighter: dict[float, NDArray[np.bool_]] = field(default_factory=dict, repr=False, compare=False)
+    _moon_within: dict[float, NDArray[np.bool_]] = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def size(self) -> int:
@@ -121,21 +121,36 @@ class NightSamples:
             term = self._moon_terms[extinction] = moon_term(self.moon_phase_angle_deg, 90.0 - self.moon_alt_deg, extinction)
         return term
 
-    def moon_brighter_than(self, illumination: float) -> NDArray[np.bool_]:
-        """Per instant, whether the Moon is up with an illuminated fraction above ``illumination`` (cached per value)."""
+    def moon_down_or_within(self, illumination: float) -> NDArray[np.bool_]:
+        """Per instant, whether the Moon is down or at most ``illumination`` illuminated (cached per value)."""
         key = float(illumination)
-        brighter = self._moon_brighter.get(key)
-        if brighter is None:
-            brighter = self._moon_brighter[key] = self.moon_up & (self.moon_illumination > key)
-        return brighter
+        allowed = self._moon_within.get(key)
+        if allowed is None:
+            allowed = self._moon_within[key] = ~(self.moon_up & (self.moon_illumination > key))
+        return allowed
 
     def per_night(self, chosen: NDArray[np.bool_]) -> NDArray[np.intp]:
-        """How many of the ``chosen`` instants (a mask over the instants) fall in each night."""
-        return np.diff(np.searchsorted(np.flatnonzero(chosen), self.night_starts))
+        """How many of the ``chosen`` instants (a mask over the instants) fall in each night.
+
+        One ``np.add.reduceat`` over the nights' slices; a night without instants
+        (no true night at high latitude in summer) is left out of the slices and counts 0.
+        """
+        sampled = self._sampled_nights
+        if sampled.size == self.night_starts.size - 1:  # the usual case: every night has instants
+            return np.add.reduceat(chosen.view(np.uint8), self.night_starts[:-1], dtype=np.intp)
+        counts = np.zeros(self.night_starts.size - 1, dtype=np.intp)
+        if sampled.size:
+            counts[sampled] = np.add.reduceat(chosen.view(np.uint8), self.night_starts[sampled], dtype=np.intp)
+        return counts
 
     def on_nights(self, nights: NDArray[np.bool_]) -> NDArray[np.bool_]:
         """Spread a per-night mask over the instants of each night."""
         return np.repeat(nights, np.diff(self.night_starts))
+
+    @functools.cached_property
+    def _sampled_nights(self) -> NDArray[np.intp]:
+        """The nights with at least one instant."""
+        return np.flatnonzero(np.diff(self.night_starts) > 0)
 
 
 @dataclass
