@@ -23,7 +23,7 @@ def register(main: click.Group) -> None:
 @click.option("--host", default="127.0.0.1", show_default=True, help="Address to listen on.")
 @click.option("--port", default=5000, show_default=True, type=click.IntRange(0, 65535), help="Port to listen on (0: any free port).")
 @click.option("--workers", default=2, show_default=True, type=click.IntRange(1, 32), help="Embedded check workers (threads).")
-@click.option("--demo", is_flag=True, help="Also submit the packaged demo proposals.")
+@click.option("--demo", is_flag=True, help="Also submit the packaged demo proposals and make a reviewer to sign in with.")
 def serve(host: str, port: int, workers: int, demo: bool) -> None:
     """Run the service on this machine: store (SQLite by default), embedded workers, API and pages.
 
@@ -42,13 +42,14 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
     with app.app_context():
         _first_admin_token()
         if demo:
+            _demo_reviewer()
             _submit_demo_proposals()
     dispatcher = app.extensions["feasibility.dispatch"]
     if hasattr(dispatcher, "start"):
         dispatcher.start()
     server = make_server(host, port, app, threaded=True)
     mode = "Celery workers via BROKER_URL" if app.config["BROKER_URL"] else f"{workers} embedded workers"
-    click.echo(f"Serving on http://{host}:{server.server_port}/  (API: /api/v1, store: {_safe(app.config['DATABASE_URL'])}, {mode})")
+    click.echo(f"Serving on http://{host}:{server.server_port}/  (dashboard: /, API: /api/v1, store: {_safe(app.config['DATABASE_URL'])}, {mode})")
     click.echo("Press Ctrl+C to stop.")
     try:
         server.serve_forever()
@@ -167,6 +168,30 @@ def _submit_demo_proposals() -> None:
             click.echo(f"demo proposal {item.name} skipped: {exc}", err=True)
     enqueue(created)
     click.echo(f"Demo proposals submitted: {len(created)} new check runs.")
+
+
+def _demo_reviewer() -> None:
+    """Make a reviewer to sign in to the dashboard with, the first time the demo is served.
+
+    The password is random and printed once: a demo store is still a store, and a
+    password written in the README would open every copy of it.
+    """
+    import secrets
+
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import User
+    from feasibility.web.auth import create_user
+
+    with session_scope() as session:
+        if session.scalar(select(User).where(User.name == DEMO_REVIEWER)) is not None:
+            return
+        password = secrets.token_urlsafe(9)
+        create_user(session, DEMO_REVIEWER, "reviewer", password=password)
+    click.echo(f"Dashboard sign-in (shown once; keep it): user {DEMO_REVIEWER!r}, password {password!r}")
+
+
+#: The reviewer that ``serve --demo`` makes for the dashboard.
+DEMO_REVIEWER = "demo-reviewer"
 
 
 def _safe(url: str) -> str:

@@ -34,7 +34,7 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
     """Create and configure the app: store, seeded demo observatory, Celery, dispatcher, blueprints."""
     app = Flask(__name__, instance_path=str(db.instance_dir().resolve()))
     app.config.from_mapping(
-        SECRET_KEY="dev",  # set FEASIBILITY_SECRET_KEY in production
+        SECRET_KEY=None,  # FEASIBILITY_SECRET_KEY; else a random key kept in the instance folder
         DATABASE_URL=db.default_database_url(),
         BROKER_URL=os.environ.get("BROKER_URL") or None,
         QUEUE_PREFIX="feasibility",
@@ -52,6 +52,8 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
     if test_config is not None:
         app.config.from_mapping(test_config)
 
+    if not app.config["SECRET_KEY"]:
+        app.config["SECRET_KEY"] = _instance_secret_key(app)
     engine = db.init_app(app)
     if app.config["CREATE_TABLES"]:
         from feasibility.store.models import Base
@@ -65,6 +67,33 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         app.register_blueprint(getattr(import_module(module), attribute))
     app.register_error_handler(HTTPException, _api_error)
     return app
+
+
+def _instance_secret_key(app: Flask) -> str:
+    """The key that signs session cookies when none is configured: random, made once, kept in the instance folder.
+
+    A fixed fallback key would let anyone forge a dashboard session; several
+    processes sharing the instance folder (web and embedded workers) read the same file.
+    """
+    import secrets
+    import tempfile
+    from pathlib import Path
+
+    path = Path(app.instance_path) / "secret_key"
+    path.parent.mkdir(parents=True, exist_ok=True)
+    if not path.exists():
+        # Written whole to a temporary file, then linked into place: link fails if another
+        # process got there first, and nobody ever reads a half-written key.
+        with tempfile.NamedTemporaryFile("w", dir=path.parent, delete=False) as handle:
+            handle.write(secrets.token_urlsafe(48))
+        os.chmod(handle.name, 0o600)
+        try:
+            os.link(handle.name, path)
+        except FileExistsError:
+            pass
+        finally:
+            os.unlink(handle.name)
+    return path.read_text().strip()
 
 
 def _seed(app: Flask) -> None:

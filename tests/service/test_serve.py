@@ -15,13 +15,81 @@ import requests
 from .helpers import proposal
 
 
-def test_serve_on_a_fresh_machine_checks_a_proposal_end_to_end(tmp_path: Path) -> None:
+def _start_serve(tmp_path: Path, *options: str) -> subprocess.Popen[str]:
     env = {k: v for k, v in os.environ.items() if k not in ("DATABASE_URL", "BROKER_URL") and not k.startswith("FEASIBILITY_")}
     env["FEASIBILITY_HOME"] = str(tmp_path / "home")
     if "FEASIBILITY_CACHE_DIR" in os.environ:
         env["FEASIBILITY_CACHE_DIR"] = os.environ["FEASIBILITY_CACHE_DIR"]
-    command = [sys.executable, "-c", "from feasibility.cli import main; main()", "serve", "--port", "0"]
-    process = subprocess.Popen(command, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, cwd=tmp_path)
+    command = [sys.executable, "-c", "from feasibility.cli import main; main()", "serve", "--port", "0", *options]
+    return subprocess.Popen(command, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, cwd=tmp_path)
+
+
+def _stop(process: subprocess.Popen[str]) -> None:
+    process.send_signal(signal.SIGINT)
+    try:
+        process.wait(20)
+    except subprocess.TimeoutExpired:
+        process.kill()
+        process.wait(10)
+    if process.stdout:
+        process.stdout.close()
+
+
+def _read_until_serving(process: subprocess.Popen[str], patterns: dict[str, str]) -> dict[str, str]:
+    """Read the start-up lines until the address is printed; return the named groups found."""
+    found: dict[str, str] = {}
+    lines: list[str] = []
+    deadline = time.monotonic() + 60
+    while "base_url" not in found and time.monotonic() < deadline:
+        line = process.stdout.readline() if process.stdout else ""
+        if not line:
+            assert process.poll() is None, "".join(lines)
+            continue
+        lines.append(line)
+        for pattern in patterns.values():
+            if match := re.search(pattern, line):
+                found.update(match.groupdict())
+        if match := re.search(r"Serving on (?P<base_url>http://127\.0\.0\.1:\d+)/", line):
+            found.update(match.groupdict())
+    assert "base_url" in found, "".join(lines)
+    return found
+
+
+def test_serve_demo_signs_a_reviewer_in_to_the_checked_demo_proposals(tmp_path: Path) -> None:
+    process = _start_serve(tmp_path, "--demo")
+    try:
+        found = _read_until_serving(
+            process, {"sign_in": r"user 'demo-reviewer', password '(?P<password>[^']+)'"}
+        )
+        assert "password" in found
+        base_url = found["base_url"]
+        browser = requests.Session()
+        form = browser.get(f"{base_url}/sign-in", timeout=10).text
+        csrf = re.search(r'name="csrf_token" value="([^"]+)"', form)
+        assert csrf is not None
+        signed_in = browser.post(
+            f"{base_url}/sign-in",
+            data={"csrf_token": csrf.group(1), "name": "demo-reviewer", "password": found["password"]},
+            timeout=10,
+        )
+        assert signed_in.status_code == 200 and "Sign out" in signed_in.text
+        # The seven demo proposals are checked by the embedded workers; each gets its stored verdict.
+        deadline = time.monotonic() + 90
+        while time.monotonic() < deadline:
+            listed = browser.get(f"{base_url}/proposals.json", params={"semester": "2027A"}, timeout=10).json()
+            rows = listed["proposals"] if isinstance(listed, dict) else listed
+            if len(rows) == 7 and all(row.get("verdict") for row in rows):
+                break
+            time.sleep(1)
+        assert len(rows) == 7 and all(row.get("verdict") for row in rows), rows
+        wrong = browser.post(f"{base_url}/sign-in", data={"name": "demo-reviewer", "password": "wrong"}, timeout=10)
+        assert wrong.status_code in (400, 403)  # no CSRF token: refused before the password is even looked at
+    finally:
+        _stop(process)
+
+
+def test_serve_on_a_fresh_machine_checks_a_proposal_end_to_end(tmp_path: Path) -> None:
+    process = _start_serve(tmp_path)
     try:
         lines: list[str] = []
         base_url = token = None
@@ -51,11 +119,19 @@ def test_serve_on_a_fresh_machine_checks_a_proposal_end_to_end(tmp_path: Path) -
         assert run["verdict"] == "infeasible"
         assert run["result"]["requests"][0]["figures"]["hours_observable"] == 0
     finally:
-        process.send_signal(signal.SIGINT)
-        try:
-            process.wait(20)
-        except subprocess.TimeoutExpired:
-            process.kill()
-            process.wait(10)
-        if process.stdout:
-            process.stdout.close()
+        _stop(process)
+
+
+def test_without_a_configured_key_sessions_are_signed_with_a_random_kept_key(tmp_path: Path, monkeypatch) -> None:
+    # A fixed fallback key would let anyone forge a signed-in session cookie (Flask's docs: SECRET_KEY must be secret).
+    from feasibility.web import create_app
+
+    monkeypatch.delenv("FEASIBILITY_SECRET_KEY", raising=False)
+    monkeypatch.setenv("FEASIBILITY_HOME", str(tmp_path))
+    settings = {"DATABASE_URL": f"sqlite:///{tmp_path / 'k.sqlite'}", "CREATE_TABLES": True, "SEED_DEMO": False}
+    first = create_app(settings)
+    second = create_app(settings)
+    key = first.config["SECRET_KEY"]
+    assert len(key) >= 48 and key not in ("dev", "test")
+    assert second.config["SECRET_KEY"] == key  # processes sharing the instance folder agree
+    assert (tmp_path / "secret_key").stat().st_mode & 0o077 == 0  # readable by the owner only
