@@ -240,9 +240,9 @@ def ccd_snr(
     """
     background_factor = 1.0 if n_background is None else 1.0 + n_pix / n_background
     if isinstance(total_s, (int, float)) and isinstance(exposures, (int, float)):  # one value: plain floats, faster
-        source = source_e_s * total_s
-        noise = math.sqrt(source + n_pix * background_factor * ((sky_e_s_pix + dark_e_s_pix) * total_s + exposures * read_noise_e**2))
-        return float(source / noise) if noise > 0 else 0.0
+        source_e = source_e_s * total_s
+        noise_e = math.sqrt(source_e + n_pix * background_factor * ((sky_e_s_pix + dark_e_s_pix) * total_s + exposures * read_noise_e**2))
+        return float(source_e / noise_e) if noise_e > 0 else 0.0
     total = np.asarray(total_s, dtype=float)
     signal = source_e_s * total
     noise = np.sqrt(signal + n_pix * background_factor * ((sky_e_s_pix + dark_e_s_pix) * total + exposures * read_noise_e**2))
