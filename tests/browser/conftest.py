@@ -1,8 +1,9 @@
 """A live server and headless Chromium for the browser tests.
 
 The app runs from a real werkzeug server thread on 127.0.0.1 with a temporary
-SQLite store and the embedded pool (the engine replaced by the page tests'
-stand-in, which a test can hold back to see the progress display). Chromium
+SQLite store and the embedded pool. Every run is computed by the real engine,
+wrapped in a gate a test can close to see the progress display; the sky grid is
+cached in the session's temporary directory, shared with the page tests. Chromium
 is Debian's package at /usr/bin/chromium, driven by Playwright; without it the
 tests are skipped, except under CI=true where they fail.
 """
@@ -17,9 +18,7 @@ from typing import Any
 
 import pytest
 
-from feasibility.results import Level
-
-from web.support import StandInEngine, add_user, proposal_doc, store_checked
+from web.support import GatedEngine, add_user, demo_doc, private_grid_cache, proposal_doc, store_checked
 
 CHROMIUM = "/usr/bin/chromium"
 CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
@@ -42,33 +41,47 @@ def chromium_path() -> str:
     return require_chromium()
 
 
+#: Invented proposals with markup in the title and target, and an unowned one (besides demo proposals 001, 002, 003, 005).
+MARKUP_DOC = proposal_doc("M-1", title="Infrared <i>dust</i> lanes", instrument="OWL", target="<script>alert(1)</script>", hours=3.5, ra="17:45:00")
+
+
+@pytest.fixture(scope="session", autouse=True)
+def grid_cache_dir(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Path]:
+    """The session's FEASIBILITY_CACHE_DIR (the same directory as the page tests')."""
+    with private_grid_cache(tmp_path_factory.getbasetemp()) as directory:
+        yield directory
+
+
 @pytest.fixture(scope="module")
-def live_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[dict[str, Any]]:
-    """The app on a free port, with users and four checked proposals; yields its base URL and the stand-in engine."""
+def live_server(tmp_path_factory: pytest.TempPathFactory, grid_cache_dir: Path) -> Iterator[dict[str, Any]]:
+    """The app on a free port, with users and five proposals checked by the real engine; yields its base URL and the engine's gate wrapper.
+
+    pablo owns demo proposals 001 (feasible, two requests) and 002 (infeasible); petra owns
+    003 (infeasible, long Sun-safety warning), 005 (marginal, three requests) and M-1 (markup).
+    """
     from werkzeug.serving import make_server
 
     from feasibility.web import create_app
 
     home = tmp_path_factory.mktemp("browser-store")
-    engine = StandInEngine()
+    engine = GatedEngine()
     with pytest.MonkeyPatch.context() as patch:
         patch.setattr("feasibility.service.runs.check", engine)
         app = create_app({"SECRET_KEY": "browser-tests", "DATABASE_URL": f"sqlite:///{home / 'store.sqlite'}", "CREATE_TABLES": True,
                           "BROKER_URL": None, "SWEEP_INTERVAL_S": 0})
         for name, role in (("rita", "reviewer"), ("pablo", "proposer"), ("petra", "proposer")):
             add_user(app, name, role)
-        engine.levels.update({"SQ-B-002": Level.INFEASIBLE, "SQ-B-003": Level.MARGINAL})
-        store_checked(app, proposal_doc("SQ-B-001", title="Dwarf galaxy outskirts", target="Field 12 north", hours=6.0, ra="13:20:00", requests=2), "pablo")
-        store_checked(app, proposal_doc("SQ-B-002", title="Nova spectra", instrument="HERON", target="Nova candidate 7", hours=14.0, ra="18:05:00"), "pablo")
-        store_checked(app, proposal_doc("SQ-B-003", title="Infrared <i>dust</i> lanes", instrument="OWL", target="<script>alert(1)</script>",
-                                        hours=3.5, ra="17:45:00"), "petra")
-        store_checked(app, proposal_doc("SQ-B-004", title="Cluster ages", target="Open cluster 9", hours=2.0, ra="08:10:00"), "petra")
+        for number, owner in (("001", "pablo"), ("002", "pablo"), ("003", "petra"), ("005", "petra")):
+            store_checked(app, demo_doc(number), owner)
+        store_checked(app, MARKUP_DOC, "petra")
         server = make_server("127.0.0.1", 0, app, threaded=True)
         thread = threading.Thread(target=server.serve_forever, name="browser-test-server", daemon=True)
         thread.start()
         try:
             yield {"url": f"http://127.0.0.1:{server.server_port}", "engine": engine, "app": app}
         finally:
+            if engine.gate is not None:
+                engine.gate.set()
             server.shutdown()
             thread.join(10)
             server.server_close()
@@ -124,4 +137,4 @@ def sign_in(page: Any, name: str, password: str | None = None) -> None:
     page.wait_for_url("**/proposals**")
 
 
-__all__ = ["screenshot", "sign_in"]
+__all__ = ["ARTIFACTS", "screenshot", "sign_in"]

@@ -1,25 +1,33 @@
-"""Invented proposals, a stand-in engine that stores plot series, and helpers to fill a store for the page tests.
+"""Invented proposals, the real engine behind a gate, and helpers to fill a store for the page tests.
 
-The proposals, people and figures here are invented test input, never
-references: the tests that use them check what the pages do with stored
-results (access, escaping, exports, filters), not the engine's numbers.
+The pages are tested on what the real engine (``feasibility.engine.check_proposal``)
+stores for invented proposals (the packaged demo proposals and a few made here)
+against the invented demo observatory and its 2027A schedule. The reference of each
+page assertion is the engine's own result for the same document (``engine_result``):
+the pages must show what was computed. The invented inputs are never references.
 """
 
 from __future__ import annotations
 
 import copy
-import math
+import os
 import re
 import threading
-import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from importlib import resources
+from pathlib import Path
 from typing import Any
 
+import yaml
 from flask import Flask
 from flask.testing import FlaskClient
 
-from feasibility.results import Finding, Level, ProposalResult, RequestResult
+from feasibility.results import ProposalResult
 
-__all__ = ["StandInEngine", "add_user", "proposal_doc", "sign_in", "store_checked", "csrf_from"]
+__all__ = [
+    "GatedEngine", "add_user", "csrf_from", "demo_doc", "engine_result", "private_grid_cache", "proposal_doc", "sign_in", "store_checked",
+]
 
 PASSWORD = "correct horse battery staple"
 
@@ -67,87 +75,71 @@ def proposal_doc(
     )
 
 
-class StandInEngine:
-    """Stands in for ``feasibility.engine.check_proposal``; returns a result with every plot series.
+class GatedEngine:
+    """Wraps the real ``feasibility.engine.check_proposal``: counts its calls and can hold them back.
 
-    ``levels`` maps a proposal id to the verdict its requests get (default feasible);
-    ``failing_check`` names the check that carries the non-feasible level; ``delay``
-    makes each run take that long, and ``gate`` (an event) holds each run until it is
-    set, so a page can be seen while a run is in progress.
+    ``gate`` (an event), when set on the wrapper, holds each run until the event is
+    set, so a page can be seen while a run is in progress; the result is always the
+    real engine's.
     """
 
     def __init__(self) -> None:
-        self.levels: dict[str, Level] = {}
-        self.failing_check = "moon"
-        self.delay = 0.0
         self.gate: threading.Event | None = None
-        self.figure_scale: dict[str, float] = {}
-        self.with_series = True
         self._lock = threading.Lock()
         self.calls: list[str] = []
 
     def __call__(self, proposal: Any, observatory: Any, schedule: Any) -> ProposalResult:
+        from feasibility.engine import check_proposal
+
         with self._lock:
             self.calls.append(proposal.id)
-        if self.gate is not None:
-            self.gate.wait(30)
-        if self.delay:
-            time.sleep(self.delay)
-        level = self.levels.get(proposal.id, Level.FEASIBLE)
-        scale = self.figure_scale.get(proposal.id, 1.0)
-        requests = []
-        for r in proposal.requests:
-            findings = [
-                Finding(check="visibility", level=Level.FEASIBLE, message=f"{r.target.name} is up for 120 hours.",
-                        figures={"hours_observable": 120.0 * scale}, method="stand-in"),
-                Finding(check=self.failing_check, level=level, message=f"Stand-in {self.failing_check} finding for {r.target.name}.",
-                        figures={"hours_usable": 40.0 * scale, "moon_separation_min_deg": 35.5},
-                        suggestion="Ask for grey time." if level != Level.FEASIBLE else None),
-            ]
-            requests.append(
-                RequestResult(
-                    label=r.label,
-                    instrument=r.instrument,
-                    target=r.target.name,
-                    verdict=level,
-                    findings=findings,
-                    figures={"hours_requested": r.hours_requested, "hours_observable": 120.0 * scale, "hours_needed": 2.5 * scale,
-                             "snr_expected": 75.0 * scale, "source_rate_e_s": 1234.5, "sky_rate_e_s_pix": 3.2, "airmass_median": 1.2},
-                    series=_series(r.hours_requested) if self.with_series else {},
-                )
-            )
-        return ProposalResult(
-            proposal_id=proposal.id,
-            semester=proposal.semester,
-            verdict=level,
-            requests=requests,
-            engine_version="stand-in",
-            observatory=observatory.name,
-            observatory_version=observatory.version,
-            schedule_version=schedule.version if schedule is not None else None,
-            computed_at="2027-01-01T00:00:00+00:00",
-        )
+        gate = self.gate
+        if gate is not None:
+            gate.wait(30)
+        return check_proposal(proposal, observatory, schedule)
 
 
-def _series(hours_requested: float) -> dict[str, Any]:
-    hours = [h / 4 for h in range(-28, 29)]
-    nights = [f"2027-04-{d:02d}" for d in range(1, 31)]
-    exposure = [60.0 * 2**k for k in range(10)]
-    return {
-        "night_curve": {
-            "night": "2027-05-15",
-            "hours_from_midnight": hours,
-            "target_alt_deg": [70 * math.cos(h / 6) - 5 for h in hours],
-            "moon_alt_deg": [40 * math.sin(h / 5) for h in hours],
-            "sun_alt_deg": [-50 * math.cos(h / 7.6) + 5 for h in hours],
-        },
-        "nights": nights,
-        "hours_usable": [max(0.0, 6 + 3 * math.sin(k / 4)) for k in range(len(nights))],
-        "moon_illumination": [0.5 + 0.5 * math.cos(2 * math.pi * k / 29.5) for k in range(len(nights))],
-        "snr_curve": {"exposure_s": exposure, "snr": [math.sqrt(t) * 2 for t in exposure]},
-        "goal_snr": 50.0,
-        "requested_exposure_s": hours_requested * 3600 * 0.8,
-    }
+def demo_doc(number: str, **changes: Any) -> dict[str, Any]:
+    """A packaged demo proposal (``"001"`` .. ``"007"``) as a dict, with top-level ``changes`` applied.
+
+    Their header comments give their verdicts: 001 feasible, 005 marginal, the others infeasible.
+    """
+    path = resources.files("feasibility") / "data" / "proposals" / f"SQ-2027A-{number}.yaml"
+    document: dict[str, Any] = yaml.safe_load(path.read_text(encoding="utf-8"))
+    document.update(changes)
+    return document
+
+
+def engine_result(document: dict[str, Any]) -> ProposalResult:
+    """What the real engine makes of ``document`` against the demo observatory and 2027A schedule (the tests' reference)."""
+    from feasibility.documents import InstrumentSchedule, Observatory, Proposal, load_document, parse_document
+    from feasibility.engine import check_proposal
+
+    data = resources.files("feasibility") / "data"
+    observatory = load_document(Observatory, Path(str(data / "observatory.yaml")))
+    schedule = load_document(InstrumentSchedule, Path(str(data / "schedule-2027A.yaml")))
+    return check_proposal(parse_document(Proposal, document, "proposal"), observatory, schedule)
+
+
+@contextmanager
+def private_grid_cache(base: Path) -> Iterator[Path]:
+    """Point FEASIBILITY_CACHE_DIR (sky grids, semester offers) at a directory under ``base`` for the duration.
+
+    ``base`` is the test session's base temporary directory, so the page tests and the
+    browser tests share one directory, and with it the engine's in-process grid cache
+    (keyed by the directory).
+    """
+    directory = base / "page-tests-cache"
+    directory.mkdir(exist_ok=True)
+    previous = os.environ.get("FEASIBILITY_CACHE_DIR")
+    os.environ["FEASIBILITY_CACHE_DIR"] = str(directory)
+    try:
+        yield directory
+    finally:
+        if previous is None:
+            os.environ.pop("FEASIBILITY_CACHE_DIR", None)
+        else:
+            os.environ["FEASIBILITY_CACHE_DIR"] = previous
 
 
 def add_user(app: Flask, name: str, role: str, password: str = PASSWORD) -> int:

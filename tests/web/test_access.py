@@ -11,11 +11,11 @@ from .support import PASSWORD, csrf_from, sign_in
 
 
 def test_pages_need_sign_in(client: FlaskClient, semester: dict[str, Any]) -> None:
-    for path in ("/proposals", "/proposals/P-1", "/proposals.csv", "/semesters/2027A", "/upload"):
+    for path in ("/proposals", "/proposals/SQ-2027A-001", "/proposals.csv", "/semesters/2027A", "/upload"):
         response = client.get(path)
         assert response.status_code == 302, path  # redirected, nothing shown
         assert response.headers["Location"].startswith("/sign-in"), path
-    assert client.get(f"/runs/{semester['runs']['P-1']}/status.json").status_code == 401
+    assert client.get(f"/runs/{semester['runs']['SQ-2027A-001']}/status.json").status_code == 401
 
 
 def test_wrong_password_is_refused(client: FlaskClient, people: dict[str, int]) -> None:
@@ -30,7 +30,7 @@ def test_wrong_password_is_refused(client: FlaskClient, people: dict[str, int]) 
 def test_reviewer_sees_every_proposal(client: FlaskClient, semester: dict[str, Any]) -> None:
     sign_in(client, "rita")
     page = client.get("/proposals?semester=2027A").get_data(as_text=True)
-    for proposal_id in ("P-1", "P-2", "Q-1", "U-1"):
+    for proposal_id in ("SQ-2027A-001", "SQ-2027A-002", "SQ-2027A-005", "M-1"):
         assert f'/proposals/{proposal_id}"' in page
         assert client.get(f"/proposals/{proposal_id}").status_code == 200
     assert client.get("/semesters/2027A").status_code == 200
@@ -39,21 +39,21 @@ def test_reviewer_sees_every_proposal(client: FlaskClient, semester: dict[str, A
 def test_proposer_sees_only_own_proposals(client: FlaskClient, semester: dict[str, Any]) -> None:
     sign_in(client, "pablo")
     page = client.get("/proposals?semester=2027A").get_data(as_text=True)
-    assert '/proposals/P-1"' in page and '/proposals/P-2"' in page
-    assert '/proposals/Q-1"' not in page and '/proposals/U-1"' not in page
+    assert '/proposals/SQ-2027A-001"' in page and '/proposals/SQ-2027A-002"' in page
+    assert '/proposals/SQ-2027A-005"' not in page and '/proposals/M-1"' not in page
     # Another's proposal, its plots, its run and its status: all "not found", so nothing leaks about it.
-    q_run = semester["runs"]["Q-1"]
+    q_run = semester["runs"]["SQ-2027A-005"]
     for path in (
-        "/proposals/Q-1",
-        "/proposals/U-1",
-        f"/proposals/Q-1/runs/{q_run}/requests/0/night.svg",
-        f"/proposals/P-1/runs/{q_run}/requests/0/night.svg",  # own proposal id, another's run
+        "/proposals/SQ-2027A-005",
+        "/proposals/M-1",
+        f"/proposals/SQ-2027A-005/runs/{q_run}/requests/0/night.svg",
+        f"/proposals/SQ-2027A-001/runs/{q_run}/requests/0/night.svg",  # own proposal id, another's run
         f"/runs/{q_run}",
         f"/runs/{q_run}/status.json",
     ):
         assert client.get(path).status_code == 404, path
     exported = client.get("/proposals.json?semester=2027A").get_json()
-    assert sorted(p["proposal_id"] for p in exported["proposals"]) == ["P-1", "P-2"]
+    assert sorted(p["proposal_id"] for p in exported["proposals"]) == ["SQ-2027A-001", "SQ-2027A-002"]
     assert client.get("/semesters/2027A").status_code == 403  # the committee's overview is not for proposers
 
 
@@ -95,7 +95,7 @@ def test_changed_password_ends_sessions(app: Flask, client: FlaskClient, people:
 
 
 def test_sign_in_goes_only_to_local_pages(client: FlaskClient, people: dict[str, int]) -> None:
-    for target, expected in (("/proposals/P-1", "/proposals/P-1"), ("//evil.example/x", "/"), ("https://evil.example/", "/")):
+    for target, expected in (("/proposals/SQ-2027A-001", "/proposals/SQ-2027A-001"), ("//evil.example/x", "/"), ("https://evil.example/", "/")):
         token = csrf_from(client.get("/sign-in").get_data(as_text=True))
         response = client.post("/sign-in", data={"name": "rita", "password": PASSWORD, "csrf_token": token, "next": target})
         assert response.headers["Location"] == expected  # OWASP: unvalidated redirects

@@ -18,8 +18,8 @@ ESCAPED = "&lt;script&gt;alert(1)&lt;/script&gt;"
 
 def test_target_with_markup_is_escaped_on_every_page(client: FlaskClient, semester: dict[str, Any]) -> None:
     sign_in(client, "rita")
-    run_id = semester["runs"]["Q-1"]
-    for path in ("/proposals/Q-1", f"/runs/{run_id}"):
+    run_id = semester["runs"]["M-1"]
+    for path in ("/proposals/M-1", f"/runs/{run_id}"):
         html = client.get(path).get_data(as_text=True)
         assert SCRIPT not in html, path
         assert ESCAPED in html, path
@@ -30,16 +30,16 @@ def test_target_with_markup_is_escaped_on_every_page(client: FlaskClient, semest
 
 def test_status_json_carries_text_not_markup(client: FlaskClient, semester: dict[str, Any]) -> None:
     sign_in(client, "rita")
-    status = client.get(f"/runs/{semester['runs']['Q-1']}/status.json")
+    status = client.get(f"/runs/{semester['runs']['M-1']}/status.json")
     assert status.mimetype == "application/json"
     assert status.get_json()["requests"][0]["target"] == SCRIPT  # the script inserts it with textContent
 
 
 def test_pages_forbid_inline_scripts(client: FlaskClient, semester: dict[str, Any]) -> None:
     sign_in(client, "rita")
-    policy = client.get("/proposals/Q-1").headers["Content-Security-Policy"]
+    policy = client.get("/proposals/M-1").headers["Content-Security-Policy"]
     assert "script-src 'self'" in policy and "unsafe-inline" not in policy  # W3C CSP Level 3
-    svg = client.get(f"/proposals/Q-1/runs/{semester['runs']['Q-1']}/requests/0/night.svg")
+    svg = client.get(f"/proposals/M-1/runs/{semester['runs']['M-1']}/requests/0/night.svg")
     assert svg.status_code == 200
     assert svg.headers["Content-Security-Policy"].startswith("default-src 'none'")
     assert "<script" not in svg.get_data(as_text=True)

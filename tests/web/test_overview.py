@@ -6,13 +6,14 @@ import re
 import xml.etree.ElementTree as ET
 from typing import Any
 
+import pytest
 from flask import Flask
 from flask.testing import FlaskClient
 
 from .support import sign_in
 
 
-def test_overview_sums_the_latest_checks(app: Flask, semester: dict[str, Any]) -> None:
+def test_overview_sums_the_latest_checks(app: Flask, semester: dict[str, Any], expected: dict[str, Any]) -> None:
     from feasibility.store.db import session_factory
     from feasibility.web.dashboard.overview import semester_overview
 
@@ -21,13 +22,21 @@ def test_overview_sums_the_latest_checks(app: Flask, semester: dict[str, Any]) -
         data = semester_overview(session, "2027A")
         session.close()
     assert data.proposals == 4
-    assert data.counts == {"feasible": 2, "marginal": 1, "unchecked": 0, "infeasible": 1}
+    # The real engine's verdicts (demo headers: 001 feasible, 002 infeasible, 005 marginal; M-1 feasible).
+    counts = {level: sum(r.verdict.value == level for r in expected.values()) for level in ("feasible", "marginal", "unchecked", "infeasible")}
+    assert counts == {"feasible": 2, "marginal": 1, "unchecked": 0, "infeasible": 1}
+    assert data.counts == counts
     lines = {line.instrument: line for line in data.instruments}
-    assert lines["KESTREL"].hours_requested == 5.0 and lines["KESTREL"].requests == 2
-    assert lines["HERON"].hours_requested == 10.0 and lines["OWL"].hours_requested == 2.0
-    # Right ascension 18h10m and 18h40m both fall in the 18h bin; 01h30m in 1h; 06h00m in 6h.
-    assert data.ra_requested[18] == 12.0 and data.ra_requested[1] == 4.0 and data.ra_requested[6] == 1.0
-    assert sum(data.ra_requested) == 17.0
+    # Requested hours from the documents: 001 2 + 2 h and M-1 1 h on KESTREL, 002 6 h on HERON, 005 1 + 1.5 + 2 h on OWL.
+    assert lines["KESTREL"].hours_requested == 5.0 and lines["KESTREL"].requests == 3
+    assert lines["HERON"].hours_requested == 6.0 and lines["OWL"].hours_requested == 4.5
+    # Hours needed: the sums of the engine's per-request figures.
+    for instrument, line in lines.items():
+        needed = sum(q.figures["hours_needed"] for r in expected.values() for q in r.requests if q.instrument == instrument)
+        assert line.hours_needed == pytest.approx(needed, rel=1e-9), instrument
+    # Right ascension 13h25m (001) falls in the 13h bin, 19h45m (002) in 19h, 17h46m (005) in 17h, 06h00m (M-1) in 6h.
+    assert data.ra_requested[13] == 4.0 and data.ra_requested[19] == 6.0 and data.ra_requested[17] == 4.5 and data.ra_requested[6] == 1.0
+    assert sum(data.ra_requested) == 15.5
     # The demo schedule mounts every instrument in 2027A; offered hours are positive and below 12 h a night.
     assert all(line.hours_offered and line.hours_offered > 0 for line in lines.values())
     assert data.ra_dark_offered is not None and data.ra_night_offered is not None
@@ -40,10 +49,14 @@ def test_overview_page_and_plots(client: FlaskClient, semester: dict[str, Any]) 
     html = client.get("/semesters/2027A").get_data(as_text=True)
     assert "Semester 2027A at a glance" in html
     assert re.search(r"level--infeasible.*?</th><td class=\"num\">1</td>", html, re.S)
-    for kind in ("verdicts", "instruments", "ra"):
+    assert re.search(r"level--feasible.*?</th><td class=\"num\">2</td>", html, re.S)
+    titles = {"verdicts": "Proposals by verdict", "instruments": "Requested against usable hours per instrument", "ra": "Demand by right ascension"}
+    for kind, title in titles.items():
         response = client.get(f"/semesters/2027A/{kind}.svg")
         assert response.status_code == 200, kind
-        assert ET.fromstring(response.get_data()).tag == "{http://www.w3.org/2000/svg}svg"  # W3C SVG 1.1
+        text = response.get_data(as_text=True)
+        assert ET.fromstring(text).tag == "{http://www.w3.org/2000/svg}svg"  # W3C SVG 1.1
+        assert f"<!-- {title} -->" in text, kind  # matplotlib's SVG writer notes each text drawn as paths
     assert client.get("/semesters/2027A/other.svg").status_code == 404
 
 
@@ -54,7 +67,7 @@ def test_semester_without_proposals(client: FlaskClient, people: dict[str, int])
     assert client.get("/semesters/1999Z").status_code == 200  # no such semester: said so, not an error
 
 
-def test_requests_without_hours_needed_are_counted_apart(app: Flask, semester: dict[str, Any]) -> None:
+def test_requests_without_hours_needed_are_counted_apart(app: Flask, semester: dict[str, Any], expected: dict[str, Any]) -> None:
     from sqlalchemy import update
 
     from feasibility.store.db import session_factory, session_scope
@@ -68,4 +81,5 @@ def test_requests_without_hours_needed_are_counted_apart(app: Flask, semester: d
         lines = {line.instrument: line for line in semester_overview(session, "2027A").instruments}
         session.close()
     assert lines["HERON"].needed_unknown == 1 and lines["HERON"].hours_needed is None
-    assert lines["KESTREL"].needed_unknown == 0 and lines["KESTREL"].hours_needed == 5.0  # 2 requests x 2.5 h (stand-in)
+    kestrel = sum(q.figures["hours_needed"] for r in expected.values() for q in r.requests if q.instrument == "KESTREL")
+    assert lines["KESTREL"].needed_unknown == 0 and lines["KESTREL"].hours_needed == pytest.approx(kestrel, rel=1e-9)  # the engine's figures

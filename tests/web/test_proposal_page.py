@@ -1,4 +1,8 @@
-"""A proposal's page: verdict, findings with their figures and suggestions, plots, and the run history."""
+"""A proposal's page: verdict, findings with their figures and suggestions, plots, and the run history.
+
+The reference of each assertion is the real engine's result for the same document
+(``expected`` / ``engine_result``): the page must show what the engine stored.
+"""
 
 from __future__ import annotations
 
@@ -7,62 +11,129 @@ from typing import Any
 
 from flask import Flask
 from flask.testing import FlaskClient
+from markupsafe import escape
 
-from feasibility.results import Level
+from feasibility.web.dashboard.formatting import figure_name, figure_value
 
-from .support import proposal_doc, sign_in, store_checked
+from .support import demo_doc, engine_result, proposal_doc, sign_in, store_checked
 
 SVG_NS = "{http://www.w3.org/2000/svg}"  # W3C SVG 1.1 namespace
+CHECKS = ("visibility", "moon", "schedule", "sun-safety", "atmosphere", "image-quality", "instrument", "sensitivity")
 
 
-def test_findings_figures_and_suggestions_are_shown(client: FlaskClient, semester: dict[str, Any]) -> None:
+def test_feasible_proposal_shows_all_eight_checks(client: FlaskClient, semester: dict[str, Any], expected: dict[str, Any]) -> None:
     sign_in(client, "rita")
-    html = client.get("/proposals/P-2").get_data(as_text=True)
-    assert "Bright novae" in html
-    assert "level--infeasible" in html and ">infeasible<" in html  # the word, not colour alone
-    assert "Stand-in moon finding for Nova field." in html
-    assert "Ask for grey time." in html
-    assert "moon separation min (°)" in html and "35.5" in html  # a finding's figures, named and formatted
-    assert "Method: stand-in" in html
+    html = client.get("/proposals/SQ-2027A-001").get_data(as_text=True)
+    result = expected["SQ-2027A-001"]
+    assert result.verdict.value == "feasible"  # demo 001's header
+    assert "Globular clusters in the halo of NGC 5128" in html
+    assert "level--feasible" in html and ">feasible<" in html  # the word, not colour alone
+    assert "level--infeasible" not in html and "level--marginal" not in html
+    for request in result.requests:
+        assert f"Request {request.label}:" in html
+        assert sorted(f.check for f in request.findings) == sorted(CHECKS)  # every check of the vocabulary ran
+        for finding in request.findings:
+            assert f'<th scope="row">{finding.check}</th>' in html
+            assert f"<p>{escape(finding.message)}</p>" in html, finding.check
+            if finding.suggestion:
+                assert str(escape(finding.suggestion)) in html
+    assert html.count('<th scope="row">sun-safety</th>') == len(result.requests)
 
 
-def test_plots_are_svg_drawn_from_stored_series(client: FlaskClient, semester: dict[str, Any]) -> None:
+def test_infeasible_proposal_shows_the_failing_check(client: FlaskClient, semester: dict[str, Any], expected: dict[str, Any]) -> None:
     sign_in(client, "rita")
-    run_id = semester["runs"]["P-1"]
-    html = client.get("/proposals/P-1").get_data(as_text=True)
-    for kind in ("night", "semester", "snr"):
-        path = f"/proposals/P-1/runs/{run_id}/requests/0/{kind}.svg"
-        assert path in html
-        response = client.get(path)
-        assert response.status_code == 200 and response.mimetype == "image/svg+xml"
-        root = ET.fromstring(response.get_data())
-        assert root.tag == f"{SVG_NS}svg"
-    assert client.get(f"/proposals/P-1/runs/{run_id}/requests/5/night.svg").status_code == 404
-    assert client.get(f"/proposals/P-1/runs/{run_id}/requests/0/other.svg").status_code == 404
+    html = client.get("/proposals/SQ-2027A-002").get_data(as_text=True)
+    failing = [f for f in expected["SQ-2027A-002"].requests[0].findings if f.level.value == "infeasible"]
+    assert [f.check for f in failing] == ["sensitivity"]  # demo 002's header: infeasible (sensitivity)
+    finding = failing[0]
+    assert "level--infeasible" in html and ">infeasible<" in html
+    assert f"<p>{escape(finding.message)}</p>" in html
+    assert finding.suggestion and str(escape(finding.suggestion)) in html
+    # The worst finding comes first in the table: it is the "why".
+    first_row = html.index('<tr class="finding finding--')
+    assert html.startswith('<tr class="finding finding--infeasible">\n        <th scope="row">sensitivity</th>', first_row)
+    for key, value in finding.figures.items():  # the finding's figures, named and formatted
+        assert f"<dt>{escape(figure_name(key))}</dt><dd>{escape(figure_value(value))}</dd>" in html, key
+    assert f"Method: {escape(finding.method)}" in html
+
+
+def test_marginal_proposal_shows_each_requests_problem(client: FlaskClient, semester: dict[str, Any], expected: dict[str, Any]) -> None:
+    sign_in(client, "rita")
+    html = client.get("/proposals/SQ-2027A-005").get_data(as_text=True)
+    result = expected["SQ-2027A-005"]
+    assert result.verdict.value == "marginal"  # demo 005's header
+    problems = {(q.label, f.check) for q in result.requests for f in q.findings if f.level.value != "feasible"}
+    # Demo 005's header: Ks image quality, H sensitivity, J moon and schedule.
+    assert problems == {("gc-Ks", "image-quality"), ("gc-H", "sensitivity"), ("gc-J-dark", "moon"), ("gc-J-dark", "schedule")}
+    for request in result.requests:
+        for finding in request.findings:
+            assert f"<p>{escape(finding.message)}</p>" in html, (request.label, finding.check)
+    assert html.count('<tr class="finding finding--marginal">') == len(problems)
+
+
+def test_plots_are_svg_drawn_from_stored_series(client: FlaskClient, semester: dict[str, Any], expected: dict[str, Any]) -> None:
+    sign_in(client, "rita")
+    run_id = semester["runs"]["SQ-2027A-001"]
+    html = client.get("/proposals/SQ-2027A-001").get_data(as_text=True)
+    night = expected["SQ-2027A-001"].requests[0].series["night_curve"]["night"]
+    titles = {
+        "night": f"Altitude through the night beginning {night}",
+        "semester": "Usable hours per night across the semester",
+        "snr": "Signal-to-noise against exposure time",
+    }
+    for index in range(2):
+        for kind, title in titles.items():
+            path = f"/proposals/SQ-2027A-001/runs/{run_id}/requests/{index}/{kind}.svg"
+            assert path in html
+            if index == 1 and kind != "snr":
+                continue  # the second request's sky plots draw the same kind of series as the first's (saves drawing time)
+            response = client.get(path)
+            assert response.status_code == 200 and response.mimetype == "image/svg+xml"
+            text = response.get_data(as_text=True)
+            assert ET.fromstring(text).tag == f"{SVG_NS}svg"
+            assert f"<!-- {title} -->" in text, path  # matplotlib's SVG writer notes each text it draws as paths
+    assert "No plot" not in html
+    assert client.get(f"/proposals/SQ-2027A-001/runs/{run_id}/requests/5/night.svg").status_code == 404
+    assert client.get(f"/proposals/SQ-2027A-001/runs/{run_id}/requests/0/other.svg").status_code == 404
 
 
 def test_older_results_without_series_still_render(app: Flask, client: FlaskClient, people: dict[str, int], engine: Any) -> None:
-    engine.with_series = False
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import CheckRun
+
     run_id = store_checked(app, proposal_doc("OLD-1"), None)
+    # The real engine always stores series; a result from an engine version before plots had none.
+    # That stored result is made here by taking the series out of a real one.
+    with app.app_context(), session_scope() as session:
+        run = session.get_one(CheckRun, run_id)
+        result = dict(run.result)
+        result["requests"] = [{k: v for k, v in r.items() if k != "series"} for r in result["requests"]]
+        run.result = result
     sign_in(client, "rita")
     html = client.get("/proposals/OLD-1").get_data(as_text=True)
     assert html.count("No plot: this run stored no data for it") == 3
+    assert '<th scope="row">visibility</th>' in html  # the findings are still shown
     assert client.get(f"/proposals/OLD-1/runs/{run_id}/requests/0/night.svg").status_code == 404
 
 
-def test_run_history_says_what_changed(app: Flask, client: FlaskClient, semester: dict[str, Any], engine: Any) -> None:
-    engine.levels["P-1"] = Level.MARGINAL
-    engine.figure_scale["P-1"] = 0.5
-    second = store_checked(app, proposal_doc("P-1", title="Quiet galaxies", target="NGC 0001 field", hours=6.0, ra="01:30:00"), "pablo")
+def test_run_history_says_what_changed(app: Flask, client: FlaskClient, semester: dict[str, Any]) -> None:
+    # Version 2 of demo 001 asks for 1 h in V where the engine needs about 1.2 h: within 1.25x, so marginal.
+    document = demo_doc("001")
+    document["requests"][0]["hours_requested"] = 1.0
+    result = engine_result(document)
+    assert result.verdict.value == "marginal" and result.requests[0].verdict.value == "marginal"
+    second = store_checked(app, document, "pablo")
     sign_in(client, "rita")
-    html = client.get("/proposals/P-1").get_data(as_text=True)
+    html = client.get("/proposals/SQ-2027A-001").get_data(as_text=True)
     assert f"#{second} <span class=\"shown\">(shown)</span>" in html  # the latest finished run is shown
     assert "<strong>verdict</strong>: feasible → marginal" in html
     assert "<strong>proposal</strong>: version 1 → version 2" in html
-    assert "<strong>request a: hours requested</strong>: 4 h → 6 h" in html
-    assert "<strong>request a: hours observable</strong>: 120 h → 60 h" in html
+    assert "<strong>request halo-V: verdict</strong>: feasible → marginal" in html
+    assert "<strong>request halo-V: hours requested</strong>: 2 h → 1 h" in html
+    assert "request halo-V: hours observable" not in html  # the sky did not change
+    assert "<strong>request halo-R" not in html  # nor did the other request
     # The earlier run can still be opened.
-    first = semester["runs"]["P-1"]
-    older = client.get(f"/proposals/P-1?run={first}").get_data(as_text=True)
+    first = semester["runs"]["SQ-2027A-001"]
+    older = client.get(f"/proposals/SQ-2027A-001?run={first}").get_data(as_text=True)
     assert f"#{first} <span class=\"shown\">(shown)</span>" in older
-    assert client.get("/proposals/P-1?run=999999").status_code == 404
+    assert client.get("/proposals/SQ-2027A-001?run=999999").status_code == 404

@@ -11,7 +11,7 @@ import yaml
 from flask import Flask
 from flask.testing import FlaskClient
 
-from .support import csrf_from, proposal_doc, sign_in
+from .support import csrf_from, demo_doc, engine_result, proposal_doc, sign_in
 
 
 def _upload(client: FlaskClient, content: bytes, filename: str = "proposal.yaml") -> Any:
@@ -31,16 +31,26 @@ def _wait_finished(client: FlaskClient, status_path: str, timeout: float = 20.0)
 
 
 def test_upload_runs_the_check_and_shows_the_verdict(client: FlaskClient, people: dict[str, int], engine: Any) -> None:
+    from importlib import resources
+
     sign_in(client, "pablo")
-    response = _upload(client, yaml.safe_dump(proposal_doc("UP-1", title="Uploaded")).encode())
+    # The packaged demo file itself, as a proposer would upload it; the reference is the engine's result for it.
+    content = (resources.files("feasibility") / "data" / "proposals" / "SQ-2027A-005.yaml").read_bytes()
+    result = engine_result(demo_doc("005"))
+    assert result.verdict.value == "marginal"  # the file's header
+    response = _upload(client, content, "SQ-2027A-005.yaml")
     assert response.status_code == 303
     run_page = response.headers["Location"]
     assert run_page.startswith("/runs/")
     status = _wait_finished(client, run_page + "/status.json")
-    assert status["state"] == "done" and status["verdict"] == "feasible" and status["proposal_id"] == "UP-1"
+    assert status["state"] == "done" and status["verdict"] == "marginal" and status["proposal_id"] == "SQ-2027A-005"
+    assert [(r["label"], r["verdict"]) for r in status["requests"]] == [(q.label, q.verdict.value) for q in result.requests]
+    assert engine.calls == ["SQ-2027A-005"]  # the real engine ran once, through the embedded workers
     html = client.get(run_page).get_data(as_text=True)
-    assert "level--feasible" in html
-    assert client.get("/proposals/UP-1").status_code == 200  # the uploader owns it now
+    assert "level--marginal" in html
+    page = client.get("/proposals/SQ-2027A-005")  # the uploader owns it now
+    assert page.status_code == 200
+    assert "Near-infrared variability near the Galactic Centre" in page.get_data(as_text=True)
 
 
 def test_malformed_file_gets_the_same_problems_as_the_api(app: Flask, client: FlaskClient, people: dict[str, int], make_token: Any, engine: Any) -> None:
@@ -78,12 +88,12 @@ def test_unreadable_and_missing_files(client: FlaskClient, people: dict[str, int
 
 def test_proposer_cannot_upload_over_anothers_proposal(app: Flask, client: FlaskClient, semester: dict[str, Any]) -> None:
     sign_in(client, "pablo")
-    response = _upload(client, yaml.safe_dump(proposal_doc("Q-1", title="Taken over")).encode())
+    response = _upload(client, yaml.safe_dump(demo_doc("005", title="Taken over")).encode())
     assert response.status_code == 403
     assert "belongs to another user" in response.get_data(as_text=True)
     other = app.test_client()
     sign_in(other, "rita")
-    assert "Taken over" not in other.get("/proposals/Q-1").get_data(as_text=True)
+    assert "Taken over" not in other.get("/proposals/SQ-2027A-005").get_data(as_text=True)
 
 
 def test_reviewers_do_not_upload(client: FlaskClient, people: dict[str, int]) -> None:
