@@ -76,8 +76,10 @@ def altitude_for_airmass(limit: float) -> float:
     """
     if limit <= 1.0:
         return 90.0
-    return float(np.interp(-limit, -_TABLE_AIRMASS, _TABLE_ALTITUDE))
+    return float(np.interp(-limit, _TABLE_MINUS_AIRMASS, _TABLE_ALTITUDE))
 
 
 _TABLE_ALTITUDE = np.linspace(0.0, 90.0, 90001)
 _TABLE_AIRMASS = _kasten_young(_TABLE_ALTITUDE)
+#: Negated once, so that a look-up (interpolation wants increasing abscissae) allocates nothing.
+_TABLE_MINUS_AIRMASS = -_TABLE_AIRMASS

@@ -182,11 +182,12 @@ def check_request(
     for name, value in exposure.figures.items():
         figures.setdefault(name, value)
 
+    visible, usable, observable = np.round(np.stack([sky.visible, sky.usable, sky.observable]), 3).tolist()
     series: dict[str, Any] = {
         "nights": list(context.night_names),
-        "hours_visible": sky.visible.round(3).tolist(),
-        "hours_usable": sky.usable.round(3).tolist(),
-        "hours_observable": sky.observable.round(3).tolist(),
+        "hours_visible": visible,
+        "hours_usable": usable,
+        "hours_observable": observable,
         "moon_illumination": list(context.moon_illumination),
         "night_curve": sky.night_curve,
         **exposure.series,

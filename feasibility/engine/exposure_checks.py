@@ -18,6 +18,7 @@ Methods
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -126,11 +127,7 @@ def image_quality_finding(
         "max_seeing_arcsec": request.constraints.max_seeing_arcsec,
         "seeing_fraction": None,
     }
-    method = (
-        f"median seeing {median_seeing_arcsec:g}\" at zenith and 500 nm × X^0.6 × (λ/500 nm)^-0.2 (common practice), "
-        f"log-normal spread σ(ln FWHM) = {SEEING_LOG_SPREAD} (common practice); Airy FWHM 1.029 λ/D added in quadrature; "
-        "diffraction limit 1.21967 λ/D (Rayleigh criterion)"
-    )
+    method = _image_quality_method(median_seeing_arcsec)
     limit = request.constraints.max_seeing_arcsec
     if limit is None:
         return Finding(
@@ -229,3 +226,13 @@ def fraction_seeing_better(limit_arcsec: float, median_arcsec: float, diffractio
     seeing_limit = math.sqrt(limit_arcsec**2 - diffraction_arcsec**2)
     z = math.log(seeing_limit / median_arcsec) / SEEING_LOG_SPREAD
     return 0.5 * (1.0 + math.erf(z / math.sqrt(2.0)))
+
+
+@functools.lru_cache(maxsize=64)
+def _image_quality_method(median_seeing_arcsec: float) -> str:
+    """The image-quality finding's method text (formatted once per site seeing)."""
+    return (
+        f"median seeing {median_seeing_arcsec:g}\" at zenith and 500 nm × X^0.6 × (λ/500 nm)^-0.2 (common practice), "
+        f"log-normal spread σ(ln FWHM) = {SEEING_LOG_SPREAD} (common practice); Airy FWHM 1.029 λ/D added in quadrature; "
+        "diffraction limit 1.21967 λ/D (Rayleigh criterion)"
+    )

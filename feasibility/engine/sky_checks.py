@@ -30,6 +30,7 @@ last stage, with the larger of the requested hours and the hours the goal needs
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 from datetime import date, datetime, timezone
@@ -354,11 +355,7 @@ def visibility_finding(sky: SkyMeasure) -> Finding:
             "usable_night_fraction_mean": round(float(sky.weather.sum()) / sky.weather.size, 3),  # (the mean, cheaper)
         },
         suggestion=suggestion,
-        method=(
-            _GRID_METHOD.format(step=sky.step_minutes)
-            + "; airmass Kasten & Young (1989); twilight: Sun's centre at -6/-12/-18 deg (U.S. Naval Observatory); "
-            "expected clear hours weight each night by climate.usable_night_fraction of its month"
-        ),
+        method=_visibility_method(sky.step_minutes),
     )
 
 
@@ -502,6 +499,16 @@ def sun_safety_finding(sky: SkyMeasure) -> Finding:
         suggestion=suggestion,
         method="angular distance to the Sun's geocentric direction at each night's local midnight (ERFA epv00), "
         "over the target's visible instants; the Sun moves under 0.6 deg in a night",
+    )
+
+
+@functools.lru_cache(maxsize=16)
+def _visibility_method(step_minutes: float) -> str:
+    """The visibility finding's method text (formatted once per grid step)."""
+    return (
+        _GRID_METHOD.format(step=step_minutes)
+        + "; airmass Kasten & Young (1989); twilight: Sun's centre at -6/-12/-18 deg (U.S. Naval Observatory); "
+        "expected clear hours weight each night by climate.usable_night_fraction of its month"
     )
 
 

@@ -129,18 +129,19 @@ class NightSamples:
             allowed = self._moon_within[key] = ~(self.moon_up & (self.moon_illumination > key))
         return allowed
 
-    def per_night(self, chosen: NDArray[np.bool_]) -> NDArray[np.intp]:
+    def per_night(self, chosen: NDArray[np.bool_]) -> NDArray[np.int32]:
         """How many of the ``chosen`` instants (a mask over the instants) fall in each night.
 
-        One ``np.add.reduceat`` over the nights' slices; a night without instants
+        One ``np.add.reduceat`` over the nights' slices (32-bit sums: a third faster than
+        64-bit ones, and a night holds at most 2,880 instants); a night without instants
         (no true night at high latitude in summer) is left out of the slices and counts 0.
         """
         sampled = self._sampled_nights
         if sampled.size == self.night_starts.size - 1:  # the usual case: every night has instants
-            return np.add.reduceat(chosen.view(np.uint8), self.night_starts[:-1], dtype=np.intp)
-        counts = np.zeros(self.night_starts.size - 1, dtype=np.intp)
+            return np.add.reduceat(chosen.view(np.uint8), self.night_starts[:-1], dtype=np.int32)
+        counts = np.zeros(self.night_starts.size - 1, dtype=np.int32)
         if sampled.size:
-            counts[sampled] = np.add.reduceat(chosen.view(np.uint8), self.night_starts[sampled], dtype=np.intp)
+            counts[sampled] = np.add.reduceat(chosen.view(np.uint8), self.night_starts[sampled], dtype=np.int32)
         return counts
 
     def on_nights(self, nights: NDArray[np.bool_]) -> NDArray[np.bool_]:
