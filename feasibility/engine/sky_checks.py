@@ -457,33 +457,40 @@ def sun_safety_finding(sky: SkyMeasure) -> Finding:
 
     ``infeasible`` when the target is never visible farther from the Sun than the
     telescope's limit, ``marginal`` when it comes closer than the limit plus
-    ``SUN_MARGIN_DEG`` at some visible time, else ``feasible``. Always defers to the
-    observatory's own safety rules and staff.
+    ``SUN_MARGIN_DEG`` at some visible time, or when it is never visible at night
+    and stands inside the limit (a warning against trying it in twilight or
+    daylight), else ``feasible``. A message that warns never comes with a
+    ``feasible`` level. Always defers to the observatory's own safety rules and staff.
     """
     limit = sky.min_sun_separation_limit_deg
     visible = sky.total_visible
     closest = sky.sun_separation_min_deg if visible > 0.0 else sky.sun_separation_min_all_deg
     defer = "The observatory's own Sun-safety rules and its staff decide; follow them."
-    if closest < limit:
-        if visible > 0.0 and sky.hours_sun_unsafe >= visible:
-            level = Level.INFEASIBLE
-        else:
-            level = Level.MARGINAL if visible > 0.0 else Level.FEASIBLE
-    elif closest < limit + SUN_MARGIN_DEG:
-        level = Level.MARGINAL if visible > 0.0 else Level.FEASIBLE
-    else:
-        level = Level.FEASIBLE
-    when = "while visible" if visible > 0.0 else "at local midnight over the semester (never visible)"
-    if closest < limit:
+    suggestion: str | None
+    if closest < limit and visible > 0.0:
+        level = Level.INFEASIBLE if sky.hours_sun_unsafe >= visible else Level.MARGINAL
         message = (
-            f"WARNING: the target comes within {closest:.1f}° of the Sun {when}, closer than the telescope's "
+            f"WARNING: the target comes within {closest:.1f}° of the Sun while visible, closer than the telescope's "
             f"{limit:g}° limit ({sky.hours_sun_unsafe:.1f} visible hours). {defer}"
         )
         suggestion = "Do not point there: observe only when the target is farther from the Sun, or choose another semester."
+    elif closest < limit:
+        # Never visible at night, yet near the Sun: anyone trying to catch it in twilight or
+        # daylight would point inside the limit, so a reviewer must see the warning.
+        level = Level.MARGINAL
+        message = (
+            f"WARNING: the target is never visible at night this semester and stands within {closest:.1f}° of the Sun "
+            f"(at local midnight), inside the telescope's {limit:g}° limit: do not try it in twilight or daylight. {defer}"
+        )
+        suggestion = "Choose a semester in which the target is up at night, far from the Sun."
     elif closest < limit + SUN_MARGIN_DEG:
+        level = Level.MARGINAL if visible > 0.0 else Level.FEASIBLE
+        when = "while visible" if visible > 0.0 else "at local midnight over the semester (never visible)"
         message = f"The target comes within {closest:.1f}° of the Sun {when}, near the telescope's {limit:g}° limit. {defer}"
         suggestion = "Plan the observation for when the target is farthest from the Sun."
     else:
+        level = Level.FEASIBLE
+        when = "while visible" if visible > 0.0 else "at local midnight over the semester (never visible)"
         message = f"Closest approach to the Sun {when}: {closest:.1f}° (limit {limit:g}°)."
         suggestion = None
     return Finding(

@@ -222,6 +222,23 @@ def test_sun_safety_warns_and_defers_to_the_observatory(grid_2027a, open_site: O
     assert sky_checks.sun_safety_finding(_measure(grid_2027a, relaxed, _request())).level is Level.FEASIBLE
 
 
+def test_sun_safety_warning_never_comes_with_a_feasible_level(grid_2027a, open_site: Observatory) -> None:
+    # A star at δ = +70° culminates at 90° − |φ − δ| = −6.4° from latitude −26.4° (spherical astronomy):
+    # never visible. The Sun's declination stays within ±23.44° (obliquity of the ecliptic, from memory),
+    # so the star is always 46.6° or more from the Sun: inside a 60° limit, outside a 40° one.
+    never_up = _request(target={"name": "far north", "ra": "06:00:00", "dec": "+70:00:00"})
+    inside = sky_checks.sun_safety_finding(
+        _measure(grid_2027a, _observatory(open_site, telescope={"min_sun_separation_deg": 60.0}), never_up)
+    )
+    assert inside.figures["sun_separation_min_deg"] >= 46.5
+    assert inside.level is Level.MARGINAL
+    assert "WARNING" in inside.message and "never visible" in inside.message and "staff" in inside.message
+    outside = sky_checks.sun_safety_finding(
+        _measure(grid_2027a, _observatory(open_site, telescope={"min_sun_separation_deg": 40.0}), never_up)
+    )
+    assert outside.level is Level.FEASIBLE and "WARNING" not in outside.message
+
+
 def test_night_curve_is_one_night_of_altitudes(grid_2027a, open_site: Observatory) -> None:
     curve = _measure(grid_2027a, open_site, _request()).night_curve
     n = len(curve["hours_from_midnight"])
