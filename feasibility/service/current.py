@@ -6,8 +6,11 @@ observatory and its schedules are stored when the store holds none.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from importlib import resources
+from typing import Any, TypeVar
 
+from pydantic import BaseModel
 from sqlalchemy import select, text
 from sqlalchemy.orm import Session, defer
 
@@ -17,9 +20,12 @@ from feasibility.documents.loading import DocumentError
 from feasibility.store.hashing import document_hash
 from feasibility.store.models import ObservatoryVersion, ScheduleVersion, User
 
+D = TypeVar("D", bound=BaseModel)
+
 __all__ = [
     "add_observatory_version",
     "add_schedule_version",
+    "cached_document",
     "current_observatory",
     "current_schedule",
     "observatory_of",
@@ -52,20 +58,27 @@ def observatory_of(version: ObservatoryVersion) -> Observatory:
     The ``document`` column is loaded on first access only, so a cached
     observatory costs no transfer of its JSON.
     """
-    key = ("observatory", version.content_hash)
-    if key not in _parsed:
-        _parsed[key] = parse_document(Observatory, version.document, "observatory")
-    return _parsed[key]  # type: ignore[return-value]
+    return cached_document(Observatory, version.content_hash, lambda: version.document)
 
 
 def schedule_of(version: ScheduleVersion | None) -> InstrumentSchedule | None:
     """The stored schedule as a document, or None."""
     if version is None:
         return None
-    key = ("schedule", version.content_hash)
-    if key not in _parsed:
-        _parsed[key] = parse_document(InstrumentSchedule, version.document, "schedule")
-    return _parsed[key]  # type: ignore[return-value]
+    return cached_document(InstrumentSchedule, version.content_hash, lambda: version.document)
+
+
+def cached_document(model: type[D], content_hash: str, load: Callable[[], Any]) -> D:
+    """The document of ``model`` with this content hash, parsed once per process; ``load()`` gives its JSON on a miss.
+
+    Stored versions are never changed, and the same hash is the same content in any store,
+    so the parsed document can be kept for the life of the process.
+    """
+    key = (model.__name__, content_hash)
+    parsed = _parsed.get(key)
+    if parsed is None:
+        parsed = _parsed[key] = parse_document(model, load(), model.__name__.lower())
+    return parsed  # type: ignore[return-value]
 
 
 def add_observatory_version(session: Session, observatory: Observatory, uploaded_by: User | None = None) -> ObservatoryVersion:

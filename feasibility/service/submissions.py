@@ -12,8 +12,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
-from sqlalchemy import exists, or_, select
-from sqlalchemy.exc import IntegrityError
+from sqlalchemy import exists, insert, or_, select
+from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.orm import Session
 
 from feasibility.documents import Proposal, parse_document
@@ -155,12 +155,13 @@ def _check_allowed(session: Session, record: ProposalRecord, user: User | None, 
 
 def _proposal_version(session: Session, record: ProposalRecord, proposal: Proposal, user: User | None, *, new: bool) -> tuple[ProposalVersion, bool]:
     requests = proposal.requests
+    document = proposal.model_dump(mode="json", by_alias=True)  # dumped once: stored, and hashed
     return _get_or_create(
         session,
         ProposalVersion,
-        {"proposal_ref": record.id, "content_hash": document_hash(proposal)},
+        {"proposal_ref": record.id, "content_hash": document_hash(document)},
         {
-            "document": proposal.model_dump(mode="json", by_alias=True),
+            "document": document,
             "title": proposal.title,
             "pi_name": proposal.pi.name,
             "instruments": ",".join(sorted({r.instrument for r in requests})),
@@ -175,21 +176,20 @@ def _proposal_version(session: Session, record: ProposalRecord, proposal: Propos
 def _get_or_create(session: Session, model: type[Row], lookup: dict[str, Any], values: dict[str, Any], *, new: bool = False) -> tuple[Row, bool]:
     """Find the row matching ``lookup`` or insert it; a concurrent insert of the same row is found, not duplicated.
 
-    ``new=True``: the row cannot exist yet (its parent is new in this transaction); insert directly.
+    One ``INSERT ... ON CONFLICT DO NOTHING RETURNING`` (both stores, PostgreSQL and
+    SQLite, have it): the inserted row, or none when ``lookup`` names an existing row
+    (``lookup`` is a unique constraint), which is then read.
+    ``new=True``: the row cannot exist yet (its parent is new in this transaction); a plain insert.
     """
     if new:
-        row = model(**lookup, **values)
-        session.add(row)
-        session.flush()
-        return row, True
-    query = select(model).filter_by(**lookup)
-    row = session.scalars(query).first()
+        statement = insert(model)
+    else:
+        statement = _UPSERT[session.get_bind().dialect.name](model).on_conflict_do_nothing(index_elements=list(lookup))
+    row = session.scalars(statement.values(**lookup, **values).returning(model)).first()
     if row is not None:
-        return row, False
-    try:
-        with session.begin_nested():  # a savepoint: a unique-constraint clash undoes only this insert
-            row = model(**lookup, **values)
-            session.add(row)
-    except IntegrityError:
-        return session.scalars(query).one(), False
-    return row, True
+        return row, True
+    return session.scalars(select(model).filter_by(**lookup)).one(), False
+
+
+#: The INSERT constructs with ON CONFLICT, per dialect.
+_UPSERT: dict[str, Any] = {"postgresql": postgresql.insert, "sqlite": sqlite.insert}

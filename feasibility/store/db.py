@@ -5,11 +5,20 @@ several apps in one process never share a connection pool; outside an app
 context the process-wide default from :func:`configure` is used.
 
 SQLite (the embedded default) runs in WAL mode with a busy timeout, so the web
-threads and the in-process workers can read while one of them writes.
+threads and the in-process workers can read while one of them writes. Sessions
+begin ``BEGIN IMMEDIATE`` there: the write lock is taken (waiting up to the busy
+timeout) before the first read, because a deferred transaction that reads and
+then writes cannot wait for the lock and fails at once with "database is
+locked" when another connection writes (SQLite, "Transaction": SQLITE_BUSY on
+upgrading a read transaction). Pages that only read ask for a ``read_only``
+session, a deferred transaction that never blocks and never takes the lock.
+PostgreSQL sessions are plain READ COMMITTED transactions; read-only ones run
+each statement on its own (autocommit), which reads the same.
 """
 
 from __future__ import annotations
 
+import json
 import os
 import weakref
 from collections.abc import Iterator
@@ -22,6 +31,8 @@ from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.orm import Session, sessionmaker
 
 __all__ = [
+    "JSONText",
+    "READ_ONLY",
     "configure",
     "dispose_pools_after_fork",
     "default_database_url",
@@ -35,7 +46,18 @@ __all__ = [
 #: How long an SQLite connection waits for another writer before giving up, in milliseconds.
 SQLITE_BUSY_TIMEOUT_MS = 30_000
 
+#: Execution option marking an engine (and its sessions) as read-only; see :func:`session_factory`.
+READ_ONLY = "feasibility_read_only"
+
 _EXTENSION = "feasibility.db"
+
+
+class JSONText(str):
+    """A value for a JSON column that is JSON text already (say from pydantic's ``model_dump_json``): stored as it is.
+
+    pydantic writes a large result's JSON several times faster than :func:`json.dumps`
+    re-encodes the equivalent dict; any other value is encoded as usual.
+    """
 _default: dict[str, Any] = {}
 _engines: "weakref.WeakSet[Engine]" = weakref.WeakSet()
 
@@ -59,12 +81,14 @@ def make_engine(url: str) -> Engine:
         path = url.split("///", 1)[1] if "///" in url else ""
         if path and path != ":memory:":
             Path(path).parent.mkdir(parents=True, exist_ok=True)
-        engine = create_engine(url, connect_args={"timeout": SQLITE_BUSY_TIMEOUT_MS / 1000, "check_same_thread": False})
+        engine = create_engine(
+            url, json_serializer=_json_text, connect_args={"timeout": SQLITE_BUSY_TIMEOUT_MS / 1000, "check_same_thread": False}
+        )
         event.listen(engine, "connect", _sqlite_on_connect)
         event.listen(engine, "begin", _sqlite_on_begin)
     else:
         # pool_pre_ping: a connection dropped by a database restart is replaced, not handed out.
-        engine = create_engine(url, pool_pre_ping=True, pool_size=5, max_overflow=10)
+        engine = create_engine(url, json_serializer=_json_text, pool_pre_ping=True, pool_size=5, max_overflow=10)
     _engines.add(engine)
     return engine
 
@@ -85,15 +109,14 @@ def configure(url: str) -> Engine:
     if old is not None:
         old.dispose()
     engine = make_engine(url)
-    _default["engine"] = engine
-    _default["sessions"] = sessionmaker(bind=engine, expire_on_commit=False)
+    _default.update(_sessions_of(engine))
     return engine
 
 
 def init_app(app: Any) -> Engine:
     """Give ``app`` its own engine from ``app.config['DATABASE_URL']``."""
     engine = make_engine(app.config["DATABASE_URL"])
-    app.extensions[_EXTENSION] = {"engine": engine, "sessions": sessionmaker(bind=engine, expire_on_commit=False)}
+    app.extensions[_EXTENSION] = _sessions_of(engine)
     return engine
 
 
@@ -102,15 +125,23 @@ def get_engine() -> Engine:
     return _state()["engine"]
 
 
-def session_factory() -> Session:
-    """A new session on the current app's engine (the caller closes it)."""
-    return _state()["sessions"]()
+def session_factory(*, read_only: bool = False) -> Session:
+    """A new session on the current app's engine (the caller closes it).
+
+    ``read_only=True`` is for sessions that never write (pages, polling): on SQLite
+    they neither take nor wait for the write lock, and a write in them fails at
+    once ("attempt to write a readonly database") rather than now and then.
+    """
+    return _state()["read_sessions" if read_only else "sessions"]()
 
 
 @contextmanager
-def session_scope() -> Iterator[Session]:
-    """A session in a transaction: committed when the block ends, rolled back on an exception."""
-    session = session_factory()
+def session_scope(*, read_only: bool = False) -> Iterator[Session]:
+    """A session in a transaction: committed when the block ends, rolled back on an exception.
+
+    ``read_only``: as for :func:`session_factory`.
+    """
+    session = session_factory(read_only=read_only)
     try:
         yield session
         session.commit()
@@ -119,6 +150,24 @@ def session_scope() -> Iterator[Session]:
         raise
     finally:
         session.close()
+
+
+def _json_text(value: Any) -> str:
+    return value if isinstance(value, JSONText) else json.dumps(value)
+
+
+def _sessions_of(engine: Engine) -> dict[str, Any]:
+    read_options: dict[str, Any] = {READ_ONLY: True}
+    if engine.dialect.name == "postgresql":
+        # Under READ COMMITTED each statement sees its own snapshot anyway, so a read-only
+        # session reads the same without BEGIN and COMMIT: two round trips fewer.
+        read_options["isolation_level"] = "AUTOCOMMIT"
+    return {
+        "engine": engine,
+        "sessions": sessionmaker(bind=engine, expire_on_commit=False),
+        # Shares the engine's pool and events; only the execution options differ.
+        "read_sessions": sessionmaker(bind=engine.execution_options(**read_options), expire_on_commit=False),
+    }
 
 
 def _state() -> dict[str, Any]:
@@ -143,4 +192,10 @@ def _sqlite_on_connect(dbapi_connection: Any, connection_record: Any) -> None:
 
 
 def _sqlite_on_begin(connection: Any) -> None:
-    connection.exec_driver_sql("BEGIN")
+    """Begin a write transaction with the write lock (waiting for it), or a read-only one without."""
+    read_only = bool(connection.get_execution_options().get(READ_ONLY, False))
+    # PRAGMA query_only lasts for the connection; switch it only when this transaction differs from the last.
+    if connection.info.get(READ_ONLY, False) != read_only:
+        connection.exec_driver_sql(f"PRAGMA query_only={int(read_only)}")
+        connection.info[READ_ONLY] = read_only
+    connection.exec_driver_sql("BEGIN" if read_only else "BEGIN IMMEDIATE")

@@ -60,7 +60,7 @@ def post_schedule() -> tuple[dict[str, Any], int]:
 @require_role()
 def get_schedule(semester: str) -> dict[str, Any]:
     """The schedule in force for ``semester``, and what changed from the version before it."""
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         version = current_schedule(session, semester)
         if version is None:
             abort(404, description=f"no instrument schedule for semester {semester!r}")
@@ -79,7 +79,7 @@ def get_schedule(semester: str) -> dict[str, Any]:
 @require_role()
 def list_schedule_versions(semester: str) -> dict[str, Any]:
     """Every stored version of the semester's schedule, newest first."""
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         rows = session.scalars(select(ScheduleVersion).where(ScheduleVersion.semester == semester).order_by(ScheduleVersion.id.desc())).all()
         if not rows:
             abort(404, description=f"no instrument schedule for semester {semester!r}")
@@ -90,7 +90,7 @@ def list_schedule_versions(semester: str) -> dict[str, Any]:
 @require_role()
 def compare_schedule_versions(semester: str) -> dict[str, Any]:
     """The night-by-night differences between two stored versions (``?from=ID&to=ID``; default: the last two)."""
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         after = _schedule_version(session, semester, "to") or current_schedule(session, semester)
         if after is None:
             abort(404, description=f"no instrument schedule for semester {semester!r}")
@@ -115,7 +115,7 @@ def post_observatory() -> tuple[dict[str, Any], int]:
 @require_role()
 def get_observatory() -> dict[str, Any]:
     """The observatory description in force."""
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         version = current_observatory(session)
         if version is None:
             abort(404, description="no observatory description stored yet")
@@ -150,7 +150,7 @@ def list_changes() -> dict[str, Any]:
     raw_limit = request.args.get("limit", "100")
     if not raw_limit.isdigit() or not 1 <= int(raw_limit) <= MAX_CHANGES:
         raise DocumentError([Problem("limit", f"must be a whole number from 1 to {MAX_CHANGES}")], "query")
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         items = changes_since(session, current_user(), since, limit=int(raw_limit))
     return {"since": since.isoformat() if since else None, "count": len(items), "items": items}
 

@@ -14,7 +14,6 @@ from typing import Any
 import yaml
 from flask import Blueprint, abort, current_app, request, url_for
 from sqlalchemy import select
-from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, Problem
@@ -34,8 +33,6 @@ _YamlLoader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 #: How often a waiting self-check looks at the store, in seconds.
 _POLL_S = 0.1
-#: Attempts at a submission that meets a busy database (SQLite's single writer).
-_DB_ATTEMPTS = 5
 
 
 class Malformed(DocumentError):
@@ -63,7 +60,7 @@ def openapi() -> dict[str, Any]:
 @bp.get("/health")
 def health() -> dict[str, Any]:
     """Liveness: the store answers; which dispatcher computes runs."""
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         session.execute(select(1))
     return {"status": "ok", "mode": current_app.extensions["feasibility.dispatch"].mode}
 
@@ -91,7 +88,7 @@ def submit_one() -> tuple[dict[str, Any], int, dict[str, str]]:
     body = _parse_body(_body(), "proposal")
     if not isinstance(body, dict):
         raise DocumentError([Problem("", "must be a mapping of fields at the top level")], "proposal")
-    run_id, created, payload = _submit_with_retries(body, user, owner, describe=True)
+    run_id, created, payload = _submit_one(body, user, owner, describe=True)
     if created:
         enqueue([run_id])  # only now: the transaction that created the run has committed
     if wait > 0 and payload["state"] in ("queued", "running"):
@@ -103,7 +100,7 @@ def submit_one() -> tuple[dict[str, Any], int, dict[str, str]]:
 def _wait_for(run_id: int, wait: float) -> dict[str, Any]:
     """The run once done or failed, or as it is when ``wait`` seconds have passed."""
     deadline = time.monotonic() + wait
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         run = session.get_one(CheckRun, run_id)
         while run.state in ("queued", "running") and time.monotonic() < deadline:
             session.commit()  # end the snapshot so the next read sees the worker's commit
@@ -131,7 +128,7 @@ def submit_many() -> dict[str, Any]:
         try:
             if not isinstance(item, dict):
                 raise DocumentError([Problem("", "must be a mapping of fields")], "proposal")
-            run_id, created, _ = _submit_with_retries(item, user, owner)
+            run_id, created, _ = _submit_one(item, user, owner)
         except DocumentError as error:
             answers.append({"index": index, "status": 422, **error.as_dict()})
             continue
@@ -150,7 +147,7 @@ def submit_many() -> dict[str, Any]:
 @require_role()
 def get_run(run_id: int) -> dict[str, Any]:
     """A check run's state, and its result once done."""
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         run = session.get(CheckRun, run_id)
         if run is None or not _may_read(session, run.proposal_version.proposal):
             abort(404, description=f"no check run {run_id}")
@@ -166,7 +163,7 @@ def list_proposals() -> dict[str, Any]:
     verdict = request.args.get("verdict") or None
     if verdict is not None and verdict not in ("feasible", "marginal", "unchecked", "infeasible"):
         _bad_query("verdict", "must be one of feasible, marginal, unchecked, infeasible")
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         rows, total = queries.list_proposals(
             session,
             user=current_user(),
@@ -185,7 +182,7 @@ def list_proposals() -> dict[str, Any]:
 @require_role()
 def get_proposal(proposal_id: str) -> dict[str, Any]:
     """A proposal: its latest version, its latest run, and the verdict that stands with findings and figures."""
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         record = _readable_proposal(session, proposal_id)
         return proposal_json(session, record)
 
@@ -196,7 +193,7 @@ def proposal_runs(proposal_id: str) -> dict[str, Any]:
     """The history of a proposal's check runs, newest first (results left out; follow each run's link)."""
     page = _int_arg("page", 1, 1, 1_000_000)
     per_page = _int_arg("per_page", 50, 1, 200)
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         record = _readable_proposal(session, proposal_id)
         runs = queries.runs_of(session, record, offset=(page - 1) * per_page, limit=per_page)
         return {"proposal_id": record.proposal_id, "page": page, "per_page": per_page, "items": [run_json(session, r) for r in runs]}
@@ -266,25 +263,18 @@ def _version_summary(version: ProposalVersion) -> dict[str, Any]:
     }
 
 
-def _submit_with_retries(body: Any, user: User | None, owner: User | None, *, describe: bool = False) -> tuple[int, bool, dict[str, Any]]:
-    """Store one submission in its own transaction; a busy database (a transient fault) is retried.
+def _submit_one(body: Any, user: User | None, owner: User | None, *, describe: bool = False) -> tuple[int, bool, dict[str, Any]]:
+    """Store one submission in its own transaction (on SQLite it waits for the write lock; see feasibility.store.db).
 
     Returns the run id, whether the run is new, and (with ``describe``) the run as the API shows it.
     """
-    for attempt in range(_DB_ATTEMPTS):
-        try:
-            with session_scope() as session:
-                if owner is not None:
-                    owner = session.merge(owner, load=False)
-                user_here = session.merge(user, load=False) if user is not None else None
-                result: Submission = submit(session, body, user_here, owner=owner)
-                payload = run_json(session, result.run, with_result=True) if describe else {}
-                return result.run.id, result.created, payload
-        except OperationalError:
-            if attempt == _DB_ATTEMPTS - 1:
-                raise
-            time.sleep(0.05 * 2**attempt)
-    raise AssertionError("unreachable")
+    with session_scope() as session:
+        if owner is not None:
+            owner = session.merge(owner, load=False)
+        user_here = session.merge(user, load=False) if user is not None else None
+        result: Submission = submit(session, body, user_here, owner=owner)
+        payload = run_json(session, result.run, with_result=True) if describe else {}
+        return result.run.id, result.created, payload
 
 
 def _readable_proposal(session: Session, proposal_id: str) -> ProposalRecord:
@@ -309,7 +299,7 @@ def _on_behalf_of(user: User | None) -> User | None:
         return None
     if user is None or user.role not in ("portal", "admin"):
         abort(403, description="only a portal submits on behalf of a proposer")
-    with session_scope() as session:
+    with session_scope(read_only=True) as session:
         owner = session.scalar(select(User).where(User.name == name))
     if owner is None or owner.role != "proposer":
         _bad_query("on_behalf_of", f"no proposer named {name!r}")

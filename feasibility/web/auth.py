@@ -91,7 +91,7 @@ def authenticate() -> User | None:
     user: User | None = None
     header = request.headers.get("Authorization", "")
     scheme, _, credentials = header.partition(" ")
-    with session_scope() as db:
+    with session_scope(read_only=True) as db:
         if scheme.lower() == "bearer" and credentials.strip():
             user = user_for_token(db, credentials.strip())
         elif not header and request.method in ("GET", "HEAD") and session.get("user_id") is not None:

@@ -94,7 +94,7 @@ def hash_password(password: str) -> str:
 def db() -> Any:
     """The request's database session (opened on first use, closed when the request ends)."""
     if "dashboard_db" not in g:
-        g.dashboard_db = session_factory()
+        g.dashboard_db = session_factory(read_only=True)  # pages only read: never hold SQLite's write lock
     return g.dashboard_db
 
 
