@@ -9,11 +9,9 @@ of our own; without scripts it refreshes itself.
 
 from __future__ import annotations
 
-import time
 from typing import Any
 
 from flask import abort, redirect, render_template, request, url_for
-from sqlalchemy.exc import OperationalError
 
 from feasibility.documents.loading import DocumentError, Problem
 from feasibility.service.dispatch import enqueue
@@ -27,8 +25,6 @@ __all__ = ["UPLOAD_ROLES"]
 
 #: Who may upload a proposal from the pages.
 UPLOAD_ROLES = ("proposer", "admin")
-#: Attempts at a submission that meets a busy database (SQLite allows one writer at a time).
-_DB_ATTEMPTS = 5
 
 
 @bp.route("/upload", methods=["GET", "POST"])
@@ -71,19 +67,12 @@ def run_status(run_id: int) -> dict[str, Any]:
 
 
 def _submit(content: bytes, user_id: int) -> tuple[int, bool]:
-    """Store the submission in its own transaction, retrying briefly when the database is busy."""
-    for attempt in range(_DB_ATTEMPTS):
-        try:
-            with session_scope() as session:
-                user = session.get_one(User, user_id)
-                submission = submit(session, content, user)
-                session.flush()
-                return submission.run.id, submission.created
-        except OperationalError:
-            if attempt == _DB_ATTEMPTS - 1:
-                raise
-            time.sleep(0.2 * (attempt + 1))
-    raise AssertionError("unreachable")
+    """Store the submission in its own transaction (the store's write sessions wait for a busy database)."""
+    with session_scope() as session:
+        user = session.get_one(User, user_id)
+        submission = submit(session, content, user)
+        session.flush()
+        return submission.run.id, submission.created
 
 
 def _visible_run(run_id: int) -> CheckRun:
