@@ -91,11 +91,14 @@ def authenticate() -> User | None:
     user: User | None = None
     header = request.headers.get("Authorization", "")
     scheme, _, credentials = header.partition(" ")
-    with session_scope(read_only=True) as db:
-        if scheme.lower() == "bearer" and credentials.strip():
+    if scheme.lower() == "bearer" and credentials.strip():
+        with session_scope(read_only=True) as db:
             user = user_for_token(db, credentials.strip())
-        elif not header and request.method in ("GET", "HEAD") and session.get("user_id") is not None:
-            user = db.get(User, session["user_id"])
+    elif not header and request.method in ("GET", "HEAD") and session.get("user_id") is not None:
+        # The same test as the pages: a session ends when its user's password changes.
+        from feasibility.web.auth_pages import current_user as signed_in_user
+
+        user = signed_in_user()
     g.api_user = user
     return user
 

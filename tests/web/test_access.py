@@ -89,9 +89,11 @@ def test_changed_password_ends_sessions(app: Flask, client: FlaskClient, people:
 
     sign_in(client, "rita")
     assert client.get("/proposals").status_code == 200
+    assert client.get("/api/v1/me").status_code == 200  # the API reads with the signed-in session too
     with app.app_context(), session_scope() as session:
         session.get_one(User, people["rita"]).password_hash = hash_password("a new one")
     assert client.get("/proposals").status_code == 302
+    assert client.get("/api/v1/me").status_code == 401  # ...and stops with it
 
 
 def test_sign_in_goes_only_to_local_pages(client: FlaskClient, people: dict[str, int]) -> None:
