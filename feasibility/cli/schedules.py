@@ -178,7 +178,7 @@ def _wait_for_runs(run_ids: list[int], wait_s: float) -> bool:
 
     deadline = time.monotonic() + wait_s
     while True:
-        with session_scope() as session:
+        with session_scope(read_only=True) as session:  # a poll: never queue for SQLite's write lock
             left = session.scalar(
                 select(func.count()).select_from(CheckRun).where(CheckRun.id.in_(run_ids), CheckRun.state.in_(["queued", "running"]))
             )

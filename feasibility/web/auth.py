@@ -32,6 +32,7 @@ __all__ = [
     "create_token",
     "create_user",
     "current_user",
+    "hash_password",
     "hash_token",
     "require_role",
     "user_for_token",
@@ -52,10 +53,15 @@ def create_user(session: Session, name: str, role: str, *, password: str | None 
         raise ValueError(f"unknown role {role!r} (known: {', '.join(ROLES)})")
     if session.scalar(select(User).where(User.name == name)) is not None:
         raise ValueError(f"a user named {name!r} exists already")
-    user = User(name=name, role=role, email=email, password_hash=generate_password_hash(password) if password else None)
+    user = User(name=name, role=role, email=email, password_hash=hash_password(password) if password else None)
     session.add(user)
     session.flush()
     return user
+
+
+def hash_password(password: str) -> str:
+    """A salted hash of ``password`` to store in ``User.password_hash`` (werkzeug's default method)."""
+    return generate_password_hash(password)
 
 
 def check_password(user: User, password: str) -> bool:

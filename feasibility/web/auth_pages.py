@@ -38,7 +38,6 @@ __all__ = [
     "csrf_token",
     "current_user",
     "db",
-    "hash_password",
     "init_app",
     "security_headers",
     "sign_in_required",
@@ -84,11 +83,6 @@ def security_headers(response: Response) -> Response:
     if request.endpoint != "dashboard.static":
         response.headers.setdefault("Cache-Control", "no-store")  # pages hold who sees what: keep them out of shared caches
     return response
-
-
-def hash_password(password: str) -> str:
-    """A salted hash of ``password`` to store in ``User.password_hash``."""
-    return generate_password_hash(password)
 
 
 def db() -> Any:

@@ -85,7 +85,7 @@ def test_secure_cookie_from_environment(monkeypatch: Any, tmp_path: Any) -> None
 def test_changed_password_ends_sessions(app: Flask, client: FlaskClient, people: dict[str, int]) -> None:
     from feasibility.store.db import session_scope
     from feasibility.store.models import User
-    from feasibility.web.auth_pages import hash_password
+    from feasibility.web.auth import hash_password
 
     sign_in(client, "rita")
     assert client.get("/proposals").status_code == 200
