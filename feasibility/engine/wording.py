@@ -1,0 +1,67 @@
+"""How numbers read in findings: one format per kind of figure, the same in the CLI, the JSON messages and the pages.
+
+Findings carry their raw figures in ``figures``; the message and suggestion are
+text for a reader, and every number in them goes through one of these functions
+so that the same quantity never reads three ways (4.72e+04, 47250.0 h, ...).
+"""
+
+from __future__ import annotations
+
+import math
+
+__all__ = ["airmass", "arcsec", "degrees", "hours", "magnitude", "nanometres", "ratio", "seconds", "snr"]
+
+
+def hours(value: float) -> str:
+    """Hours: one decimal below 100 h, whole hours up to 10,000 h, thousands separated above ("1.5 h", "236 h", "47,250 h")."""
+    if not math.isfinite(value):
+        return "unbounded h" if value > 0 else "– h"
+    if abs(value) < 0.05 and value != 0:
+        return f"{value * 60:.0f} min"
+    if abs(value) < 100:
+        return f"{value:.1f} h"
+    return f"{value:,.0f} h"
+
+
+def snr(value: float) -> str:
+    """Signal-to-noise: whole numbers from 10 up, one decimal below ("S/N 4.7", "S/N 25", "S/N 1,250")."""
+    if not math.isfinite(value):
+        return "S/N –"
+    return f"S/N {value:.1f}" if abs(value) < 10 else f"S/N {value:,.0f}"
+
+
+def seconds(value: float) -> str:
+    """Exposure times: "0.8 s", "12 s", "1,800 s"."""
+    if not math.isfinite(value):
+        return "– s"
+    return f"{value:.1f} s" if abs(value) < 10 else f"{value:,.0f} s"
+
+
+def degrees(value: float) -> str:
+    """Angles on the sky in degrees, one decimal: "32.5°"."""
+    return f"{value:.1f}°"
+
+
+def arcsec(value: float) -> str:
+    """Angles in arcseconds, two decimals: "0.85\"" (seeing, slits, image quality)."""
+    return f"{value:.2f}\""
+
+
+def airmass(value: float) -> str:
+    """Airmass, two decimals: "1.60"."""
+    return f"{value:.2f}"
+
+
+def magnitude(value: float) -> str:
+    """Magnitudes and surface brightness, two decimals: "21.48"."""
+    return f"{value:.2f}"
+
+
+def nanometres(value: float) -> str:
+    """Wavelengths: "402 nm", "402.5 nm"."""
+    return f"{value:g} nm" if abs(value) < 1e5 else f"{value:.0f} nm"
+
+
+def ratio(value: float) -> str:
+    """A ratio or factor, two significant figures: "1.3×"."""
+    return f"{value:.2g}×" if abs(value) < 10 else f"{value:.0f}×"
