@@ -14,7 +14,9 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 __all__ = [
     "Band",
     "Climate",
+    "DarkSkyPoint",
     "Detector",
+    "ExtinctionPoint",
     "Filter",
     "Grating",
     "HorizonPoint",
@@ -76,10 +78,35 @@ class Band(_Part):
     zero_point_jy: float = Field(gt=0, description="Flux density of a Vega-system magnitude 0 in this band (Jy).")
 
 
+class ExtinctionPoint(_Part):
+    """One point of the site's extinction curve."""
+
+    wavelength_nm: float = Field(gt=0, allow_inf_nan=False)
+    mag_per_airmass: float = Field(ge=0, le=5, allow_inf_nan=False)
+
+
+class DarkSkyPoint(_Part):
+    """One point of the site's dark-sky curve: the zenith continuum at one wavelength."""
+
+    wavelength_nm: float = Field(gt=0, allow_inf_nan=False)
+    ab_mag_arcsec2: float = Field(ge=5, le=30, allow_inf_nan=False, description="AB magnitude per square arcsecond.")
+
+
 class Climate(_Part):
-    """The site's sky and weather statistics."""
+    """The site's sky and weather statistics.
+
+    Imaging uses the bands' values; spectra use smooth curves in wavelength, drawn
+    through the optional tables below where given, else through the bands' values
+    (see ``feasibility.engine.spectral_curves``).
+    """
 
     bands: dict[str, Band] = Field(min_length=1)
+    extinction_by_wavelength: list[ExtinctionPoint] = Field(
+        default_factory=list, description="Optional extinction curve for spectra, wavelengths increasing."
+    )
+    dark_sky_by_wavelength: list[DarkSkyPoint] = Field(
+        default_factory=list, description="Optional dark-sky continuum at the zenith for spectra, wavelengths increasing."
+    )
     median_seeing_arcsec: float = Field(gt=0, le=10, description="Median seeing at the zenith at 500 nm.")
     usable_night_fraction: dict[int, float] = Field(
         default_factory=lambda: {month: 1.0 for month in range(1, 13)},
@@ -93,6 +120,15 @@ class Climate(_Part):
                 raise ValueError(f"usable_night_fraction: month {month} is not between 1 and 12")
             if not 0.0 <= fraction <= 1.0:
                 raise ValueError(f"usable_night_fraction: month {month} has fraction {fraction}, not between 0 and 1")
+        for name, points in (("extinction_by_wavelength", self.extinction_by_wavelength), ("dark_sky_by_wavelength", self.dark_sky_by_wavelength)):
+            if len(points) == 1:
+                raise ValueError(f"{name}: give at least two points, or none")
+            for i, (before, after) in enumerate(zip(points, points[1:]), start=1):
+                if after.wavelength_nm <= before.wavelength_nm:
+                    raise ValueError(
+                        f"{name}: wavelengths must increase; point {i} ({after.wavelength_nm:g} nm) "
+                        f"does not follow {before.wavelength_nm:g} nm"
+                    )
         return self
 
 

@@ -44,8 +44,8 @@ from typing import Any
 import numpy as np
 
 from feasibility.documents import Instrument, Observatory, ObservationRequest
-from feasibility.engine import photometry
-from feasibility.engine.conditions import Conditions, sky_band_for, wavelength_for
+from feasibility.engine import photometry, spectral_curves
+from feasibility.engine.conditions import Conditions, wavelength_for
 from feasibility.engine.exposure_checks import (
     InstrumentProblem,
     atmosphere_finding,
@@ -323,15 +323,17 @@ def _signal(
         throughput = item.throughput or instrument.throughput
         extinction = climate.bands[item.band].extinction_mag_per_airmass
         sky_zero_point = zero_point if sky_band is None or item.band == conditions.sky_band else sky_band.zero_point_jy
+        sky_mag = conditions.sky_mag_arcsec2
     else:
         grating = instrument.grating_named(request.setup.grating or "")
         assert grating is not None
-        band_name = conditions.sky_band if sky_band is not None else sky_band_for(request, instrument, observatory)
-        observed_band, zero_point = band_name, climate.bands[band_name].zero_point_jy
+        # Zero point, extinction and sky as smooth curves at the wavelength (spectral_curves), not the nearest band's.
+        spectrum = spectral_curves.spectrum_photometry(observatory, wavelength, conditions)
+        observed_band, zero_point = spectrum.label, spectrum.zero_point_jy
         bandwidth = 1.0 / grating.resolving_power
         throughput = grating.throughput or instrument.throughput
-        extinction = climate.bands[band_name].extinction_mag_per_airmass
-        sky_zero_point = zero_point
+        extinction = spectrum.extinction_mag_per_airmass
+        sky_zero_point, sky_mag = zero_point, spectrum.sky_mag_arcsec2
 
     brightness = request.brightness
     note = None
@@ -343,7 +345,7 @@ def _signal(
     rate = photometry.source_rate(
         magnitude, brightness.system, zero_point, bandwidth, area, throughput, extinction, airmass
     )
-    sky_arcsec2 = photometry.sky_rate_per_arcsec2(conditions.sky_mag_arcsec2, sky_zero_point, bandwidth, area, throughput)
+    sky_arcsec2 = photometry.sky_rate_per_arcsec2(sky_mag, sky_zero_point, bandwidth, area, throughput)
     fwhm = _delivered_fwhm(request, climate.median_seeing_arcsec, airmass, wavelength, telescope.aperture_m)
     pixel = detector.pixel_scale_arcsec
     common = {"dark_e_s_pix": detector.dark_current_e_s_pix, "read_noise_e": detector.read_noise_e, "fwhm_arcsec": fwhm}

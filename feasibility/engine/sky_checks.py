@@ -41,10 +41,11 @@ from numpy.typing import NDArray
 from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass
-from feasibility.engine.conditions import Conditions, sky_band_for
-from feasibility.engine.moonsky import band_factor, dark_sky_nl, mag_from_nanolamberts, sky_components_nl
+from feasibility.engine.conditions import Conditions
+from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, moon_term, sky_components_nl
 from feasibility.engine.positions import target_vector
 from feasibility.engine.skygrid import NightSamples, SkyGrid
+from feasibility.engine.spectral_curves import sky_setting
 from feasibility.results import Finding, Level
 
 __all__ = [
@@ -210,12 +211,13 @@ def measure_sky(
     n_observable = int(observable_per_night.sum())
     n_usable = n_observable if everywhere else int(observable_per_night[available].sum())
 
-    band = sky_band_for(request, instrument, observatory)
-    climate_band = observatory.climate.bands[band]
+    # The filter's climate band, or for a spectrum the smooth curves at its wavelength (spectral_curves).
+    sky_model = sky_setting(request, instrument, observatory)
+    band, zenith_sky = sky_model.label, sky_model.zenith_mag_arcsec2
     highest = float(sin_alt.max()) if sin_alt.size else -1.0  # no true night at all (polar summer)
     lowest_airmass = airmass_at(math.degrees(math.asin(min(highest, 1.0)))) if highest > 0.0 else math.inf
 
-    k = climate_band.extinction_mag_per_airmass
+    k = sky_model.extinction_mag_per_airmass
     if n_observable:
         chosen = np.flatnonzero(usable if n_usable else observable)
         chosen_sin = sin_alt[chosen]
@@ -227,17 +229,19 @@ def measure_sky(
         sampled = chosen[::step]
         # (With the Moon down its term is zero, whatever the separation.)
         separation = np.degrees(np.arccos(np.clip(np.take(view.moon, sampled, axis=0) @ vector, -1.0, 1.0)))
-        dark_nl, moon_nl = sky_components_nl(
-            climate_band.sky_mag_arcsec2, k, chosen_sin[::step], separation, view.moon_term(k)[sampled]
-        )
+        if sky_model.per_band:
+            terms = view.moon_term(k)[sampled]
+        else:  # a spectrum's own extinction: only the sampled instants, nothing cached per wavelength
+            terms = moon_term(view.moon_phase_angle_deg[sampled], 90.0 - view.moon_alt_deg[sampled], k)
+        dark_nl, moon_nl = sky_components_nl(zenith_sky, k, chosen_sin[::step], separation, terms)
         # Magnitudes fall as brightness grows: the median of the nL values gives the median magnitude.
-        sky_median = float(mag_from_nanolamberts(_median(dark_nl + moon_nl * band_factor(band))))
+        sky_median = float(mag_from_nanolamberts(_median(dark_nl + moon_nl * sky_model.moon_factor)))
         median_zenith = 90.0 - math.degrees(math.asin(median_sin))
-        dark_sky = float(mag_from_nanolamberts(dark_sky_nl(climate_band.sky_mag_arcsec2, k, median_zenith)))
+        dark_sky = float(mag_from_nanolamberts(dark_sky_nl(zenith_sky, k, median_zenith)))
     else:
         airmass_median = airmass_min = lowest_airmass if math.isfinite(lowest_airmass) else constraints.max_airmass
         zenith_deg = 90.0 - altitude_for_airmass(airmass_median)
-        sky_median = dark_sky = float(mag_from_nanolamberts(dark_sky_nl(climate_band.sky_mag_arcsec2, k, zenith_deg)))
+        sky_median = dark_sky = float(mag_from_nanolamberts(dark_sky_nl(zenith_sky, k, zenith_deg)))
 
     moon_separation_min = math.degrees(math.acos(min(1.0, float(cos_moon.max())))) if cos_moon.size else None
 
