@@ -337,7 +337,9 @@ def _signal(
 
     brightness = request.brightness
     note = None
-    if brightness.band != observed_band:
+    if instrument.kind != "imager":
+        note = spectral_curves.flux_note(brightness.band, brightness.system, wavelength)
+    elif brightness.band != observed_band:
         note = (
             f"brightness is given in {brightness.band}, not the observed band {observed_band}: "
             f"zero {brightness.band}-{observed_band} colour assumed ({_SYSTEM_NAMES[brightness.system]} system)"

@@ -76,6 +76,7 @@ __all__ = [
     "SpectralCurves",
     "SpectrumPhotometry",
     "curves_for",
+    "flux_note",
     "ozone_cross_section_m2",
     "rayleigh_optical_depth",
     "site_pressure_hpa",
@@ -275,6 +276,16 @@ def spectrum_photometry(observatory: Observatory, wavelength_nm: float, conditio
     if conditions.sky_band != label and band is not None:
         sky += point[2] - curves.dark_sky_mag(band.wavelength_nm)
     return SpectrumPhotometry(label, point[0], point[1], sky)
+
+
+def flux_note(band: str, system: str, wavelength_nm: float) -> str:
+    """The sensitivity finding's words on how a spectrum's flux at its wavelength follows from a one-band magnitude."""
+    shape = "a Vega-like spectrum" if system == "vega" else "flat f_ν"
+    name = "Vega" if system == "vega" else "AB"
+    return (
+        f"flux at {wavelength_label(wavelength_nm)} from the {band} magnitude with zero colour between them "
+        f"({name} system: {shape}); zero point, extinction and sky follow smooth curves in wavelength through the site's bands"
+    )
 
 
 def sky_setting(request: ObservationRequest, instrument: Instrument, observatory: Observatory) -> SkySetting:

@@ -257,3 +257,24 @@ def test_smooth_curve_properties() -> None:
     assert SmoothCurve([1.0, 2.0], [1.0, 3.0], beyond="slope")(3.0) == pytest.approx(5.0)
     with pytest.raises(ValueError):
         SmoothCurve([1.0, 1.0], [0.0, 1.0])
+
+
+def test_spectrum_finding_states_the_zero_colour_assumption(demo_observatory: Observatory, demo_schedule: InstrumentSchedule) -> None:
+    result = check_proposal(_spectrum_proposal(402.0), demo_observatory, demo_schedule).requests[0]
+    message = next(f.message for f in result.findings if f.check == "sensitivity")
+    assert "flux at 402 nm from the V magnitude with zero colour" in message and "Vega system" in message
+
+
+def test_conditions_in_a_band_are_carried_to_the_wavelength(demo_observatory: Observatory) -> None:
+    # Conditions that give the sky in a climate band (not at the wavelength) move by the dark sky's colour; at the
+    # band's own wavelength nothing moves, and conditions already at the wavelength are used as they are.
+    from feasibility.engine.conditions import Conditions
+    from feasibility.engine.spectral_curves import spectrum_photometry
+
+    curves = curves_for(demo_observatory)
+    in_v = Conditions(10.0, 10.0, 1.2, 1.1, 20.0, "V")
+    assert spectrum_photometry(demo_observatory, 550.0, in_v).sky_mag_arcsec2 == pytest.approx(20.0, abs=1e-9)
+    moved = spectrum_photometry(demo_observatory, 402.0, in_v).sky_mag_arcsec2
+    assert moved == pytest.approx(20.0 + curves.dark_sky_mag(402.0) - 21.6, abs=1e-9)
+    at_wavelength = Conditions(10.0, 10.0, 1.2, 1.1, 20.0, "402 nm")
+    assert spectrum_photometry(demo_observatory, 402.0, at_wavelength).sky_mag_arcsec2 == 20.0
