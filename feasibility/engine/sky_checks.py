@@ -42,7 +42,7 @@ from feasibility.documents import Instrument, InstrumentSchedule, Observatory, O
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass
 from feasibility.engine.conditions import Conditions
-from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, moon_term, sky_components_nl
+from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, optical_path, sky_components_nl
 from feasibility.engine.positions import target_vector
 from feasibility.engine.skygrid import NightSamples, SkyGrid
 from feasibility.engine.spectral_curves import sky_setting
@@ -231,8 +231,8 @@ def measure_sky(
         separation = np.degrees(np.arccos(np.clip(np.take(view.moon, sampled, axis=0) @ vector, -1.0, 1.0)))
         if sky_model.per_band:
             terms = view.moon_term(k)[sampled]
-        else:  # a spectrum's own extinction: only the sampled instants, nothing cached per wavelength
-            terms = moon_term(view.moon_phase_angle_deg[sampled], 90.0 - view.moon_alt_deg[sampled], k)
+        else:  # a spectrum's own extinction: eq. 15's I* 10^(-0.4 k X(Z_moon)) from the cached k = 0 term, per sample
+            terms = view.moon_term(0.0)[sampled] * np.exp(-0.4 * math.log(10.0) * k * optical_path(90.0 - view.moon_alt_deg[sampled]))
         dark_nl, moon_nl = sky_components_nl(zenith_sky, k, chosen_sin[::step], separation, terms)
         # Magnitudes fall as brightness grows: the median of the nL values gives the median magnitude.
         sky_median = float(mag_from_nanolamberts(_median(dark_nl + moon_nl * sky_model.moon_factor)))

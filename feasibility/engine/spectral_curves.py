@@ -114,6 +114,8 @@ _OZONE_CROSS_SECTION_M2 = (
 #: Curves built, by climate and elevation (a few observatory versions at most; the oldest is dropped beyond this).
 _CURVES_KEPT = 16
 _CURVES: dict[tuple[object, ...], SpectralCurves] = {}
+#: The same, by the climate object itself (its id, the object kept so the id stays its own): skips building the key.
+_LAST: dict[int, tuple[Climate, float, SpectralCurves]] = {}
 
 _OZONE_CURVE = SmoothCurve(
     [_OZONE_BIN_START_NM + 5.0 + 10.0 * i for i in range(len(_OZONE_CROSS_SECTION_M2))], _OZONE_CROSS_SECTION_M2
@@ -243,6 +245,9 @@ class SpectralCurves:
 def curves_for(observatory: Observatory) -> SpectralCurves:
     """The observatory's curves (built once per distinct climate and elevation)."""
     climate = observatory.climate
+    last = _LAST.get(id(climate))
+    if last is not None and last[0] is climate and last[1] == observatory.site.elevation_m:
+        return last[2]
     key = (
         observatory.site.elevation_m,
         tuple(
@@ -257,6 +262,9 @@ def curves_for(observatory: Observatory) -> SpectralCurves:
         if len(_CURVES) >= _CURVES_KEPT:
             _CURVES.pop(next(iter(_CURVES)))
         curves = _CURVES[key] = SpectralCurves(climate, observatory.site.elevation_m)
+    if len(_LAST) >= _CURVES_KEPT:
+        _LAST.clear()
+    _LAST[id(climate)] = (climate, observatory.site.elevation_m, curves)
     return curves
 
 
