@@ -808,6 +808,8 @@ def _sensitivity_finding(
         "snr_goal": goal.snr,
         "exposures": outcome.plan.exposures,
         "exposure_time_s": _round(outcome.plan.exposure_time_s, 3),
+        "exposures_in_hours_requested": outcome.budget.exposures,
+        "exposure_time_s_in_hours_requested": _round(outcome.budget.exposure_time_s, 6),
         "hours_needed_faint": _round(faint_hours, 4) if faint_hours is not None else None,
         **_point_figures(outcome),
     }
