@@ -112,6 +112,13 @@ class Climate(_Part):
         default_factory=lambda: {month: 1.0 for month in range(1, 13)},
         description="Fraction of nights usable for observing, by calendar month (1-12).",
     )
+    design_percentile: float = Field(
+        default=80.0, ge=50, lt=100,
+        description=(
+            "Percentile of airmass, sky brightness and seeing over a request's usable time at which a verdict must "
+            "hold (the design conditions); the median gives the typical conditions."
+        ),
+    )
 
     @model_validator(mode="after")
     def _months(self) -> Climate:
@@ -185,6 +192,10 @@ class Detector(_Part):
     pixel_scale_arcsec: float = Field(gt=0)
     full_well_e: float = Field(gt=0)
     slit_length_arcsec: float | None = Field(default=None, gt=0)
+    adc_bits: int = Field(default=16, ge=8, le=32, description="Bit depth of the analogue-to-digital converter.")
+    linearity_fraction: float = Field(
+        default=0.8, gt=0, le=1, description="Fraction of full well up to which the detector stays linear."
+    )
 
 
 class Overheads(_Part):

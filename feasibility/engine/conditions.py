@@ -3,15 +3,28 @@
 The sky checks (visibility, moon, schedule) reduce a semester of sampled instants
 to the conditions under which a request would be observed; the exposure checks
 (sensitivity, instrument, atmosphere, image quality) need nothing else.
+
+A verdict is judged at two points over the usable instants: the *typical*
+conditions (the median airmass and sky brightness) and the *design* conditions
+(a conservative percentile of each, ``climate.design_percentile``, default 80:
+the airmass that 80 % of the usable instants do not exceed, and the sky
+brightness that 80 % of the moonlit usable instants do not exceed, i.e. the sky
+of the lunar time the request's Moon constraints allow; the dark sky when the
+Moon is never up then). The seeing at each point comes from the site's seeing distribution in
+:mod:`feasibility.engine.exposure_checks`.
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
 
 from feasibility.documents import Instrument, Observatory, ObservationRequest
 
-__all__ = ["Conditions", "sky_band_for", "wavelength_for"]
+__all__ = ["Conditions", "nearest_rank", "sky_band_for", "wavelength_for"]
 
 
 @dataclass(frozen=True)
@@ -32,6 +45,27 @@ class Conditions:
     sky_mag_arcsec2: float
     """Median sky brightness in ``sky_band`` over the observable instants, dark sky plus moonlight (Vega mag/arcsec²)."""
     sky_band: str
+    airmass_design: float | None = None
+    """Airmass at the design percentile of the usable instants (None: the median)."""
+    sky_mag_arcsec2_design: float | None = None
+    """Sky brightness in ``sky_band`` that the design percentile of the usable instants with the Moon up does not
+    exceed (None: the median)."""
+
+    @property
+    def airmass_at_design(self) -> float:
+        """The design airmass, or the median when none was measured."""
+        return self.airmass_median if self.airmass_design is None else self.airmass_design
+
+    @property
+    def sky_at_design(self) -> float:
+        """The design sky brightness (mag/arcsec²), or the median when none was measured."""
+        return self.sky_mag_arcsec2 if self.sky_mag_arcsec2_design is None else self.sky_mag_arcsec2_design
+
+
+def nearest_rank(values: NDArray[np.float64], percent: float) -> float:
+    """The ``percent`` percentile of ``values`` by nearest rank (no interpolation), one partition: O(n)."""
+    rank = min(values.size - 1, max(0, math.ceil(percent / 100.0 * values.size) - 1))
+    return float(np.partition(values, rank)[rank])
 
 
 def wavelength_for(request: ObservationRequest, instrument: Instrument) -> float | None:

@@ -14,6 +14,9 @@ Methods
   airmass (X^0.6) and wavelength (λ^-0.2) (both common practice, Kolmogorov
   turbulence), spread log-normally with σ(ln FWHM) = 0.35 (common practice), and
   the telescope's diffraction limit θ = 1.21967 λ/D (Rayleigh criterion).
+- Seeing percentiles (the design and best-case conditions of the sensitivity and
+  saturation checks) come from the same log-normal distribution:
+  FWHM_p = median × exp(σ z_p), z_p the standard normal quantile.
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ from __future__ import annotations
 import functools
 import math
 from dataclasses import dataclass
+from statistics import NormalDist
 
 from feasibility.documents import Instrument, ObservationRequest
 from feasibility.results import Finding, Level
@@ -37,6 +41,7 @@ __all__ = [
     "instrument_setup_problems",
     "rayleigh_limit_rad",
     "seeing_fwhm_arcsec",
+    "seeing_percentile_arcsec",
 ]
 
 #: First zero of the Bessel function J1 divided by π: θ = 1.21967 λ/D (Rayleigh criterion).
@@ -207,6 +212,12 @@ def seeing_fwhm_arcsec(median_zenith_500nm_arcsec: float, airmass: float, wavele
         * airmass**SEEING_AIRMASS_EXPONENT
         * (wavelength_nm / SEEING_REFERENCE_NM) ** SEEING_WAVELENGTH_EXPONENT
     )
+
+
+@functools.lru_cache(maxsize=64)
+def seeing_percentile_arcsec(median_arcsec: float, percent: float) -> float:
+    """The seeing that ``percent`` % of the time does not exceed: log-normal, σ(ln FWHM) = ``SEEING_LOG_SPREAD``."""
+    return median_arcsec * math.exp(SEEING_LOG_SPREAD * NormalDist().inv_cdf(percent / 100.0))
 
 
 def rayleigh_limit_rad(wavelength_nm: float, aperture_m: float) -> float:

@@ -41,7 +41,7 @@ from numpy.typing import NDArray
 from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass
-from feasibility.engine.conditions import Conditions
+from feasibility.engine.conditions import Conditions, nearest_rank
 from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, optical_path, sky_components_nl
 from feasibility.engine.positions import target_vector
 from feasibility.engine.skygrid import NightSamples, SkyGrid
@@ -235,13 +235,21 @@ def measure_sky(
             terms = view.moon_term(0.0)[sampled] * np.exp(-0.4 * math.log(10.0) * k * optical_path(90.0 - view.moon_alt_deg[sampled]))
         dark_nl, moon_nl = sky_components_nl(zenith_sky, k, chosen_sin[::step], separation, terms)
         # Magnitudes fall as brightness grows: the median of the nL values gives the median magnitude.
-        sky_median = float(mag_from_nanolamberts(_median(dark_nl + moon_nl * sky_model.moon_factor)))
+        sky_nl = dark_nl + moon_nl * sky_model.moon_factor
+        sky_median = float(mag_from_nanolamberts(_median(sky_nl)))
+        # Design conditions (conditions.py): the airmass, and the sky of the moonlit instants the Moon constraints
+        # allow (all of them when the Moon is never up then), that the design percentile does not exceed.
+        percent = observatory.climate.design_percentile
+        moonlit = sky_nl[moon_nl > 0.0]
+        sky_design = float(mag_from_nanolamberts(nearest_rank(moonlit if moonlit.size else sky_nl, percent)))
+        airmass_design = airmass_at(math.degrees(math.asin(min(nearest_rank(chosen_sin, 100.0 - percent), 1.0))))
         median_zenith = 90.0 - math.degrees(math.asin(median_sin))
         dark_sky = float(mag_from_nanolamberts(dark_sky_nl(zenith_sky, k, median_zenith)))
     else:
         airmass_median = airmass_min = lowest_airmass if math.isfinite(lowest_airmass) else constraints.max_airmass
         zenith_deg = 90.0 - altitude_for_airmass(airmass_median)
         sky_median = dark_sky = float(mag_from_nanolamberts(dark_sky_nl(zenith_sky, k, zenith_deg)))
+        airmass_design, sky_design = airmass_median, sky_median
 
     moon_separation_min = math.degrees(math.acos(min(1.0, float(cos_moon.max())))) if cos_moon.size else None
 
@@ -262,6 +270,8 @@ def measure_sky(
         airmass_min=airmass_min,
         sky_mag_arcsec2=sky_median,
         sky_band=band,
+        airmass_design=airmass_design,
+        sky_mag_arcsec2_design=sky_design,
     )
     return SkyMeasure(
         hours_requested=request.hours_requested,

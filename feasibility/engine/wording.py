@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["airmass", "arcsec", "degrees", "hours", "magnitude", "nanometres", "ratio", "seconds", "snr"]
+__all__ = [
+    "airmass", "arcsec", "count", "degrees", "hours", "magnitude", "nanometres", "percentile", "pixels", "ratio", "seconds", "snr",
+]
 
 
 def hours(value: float) -> str:
@@ -31,9 +33,11 @@ def snr(value: float) -> str:
 
 
 def seconds(value: float) -> str:
-    """Exposure times: "0.8 s", "12 s", "1,800 s"."""
+    """Exposure times: "0.8 s", "12 s", "1,800 s"; two significant figures below 0.1 s ("0.00019 s")."""
     if not math.isfinite(value):
         return "– s"
+    if 0 < abs(value) < 0.1:
+        return f"{value:.2g} s"
     return f"{value:.1f} s" if abs(value) < 10 else f"{value:,.0f} s"
 
 
@@ -65,3 +69,24 @@ def nanometres(value: float) -> str:
 def ratio(value: float) -> str:
     """A ratio or factor, two significant figures: "1.3×"."""
     return f"{value:.2g}×" if abs(value) < 10 else f"{value:.0f}×"
+
+
+def count(value: float) -> str:
+    """Whole quantities (electrons, ADU, resolving power): thousands separated, "104,856"."""
+    if not math.isfinite(value):
+        return "–"
+    return f"{value:,.0f}"
+
+
+def pixels(value: float) -> str:
+    """Sizes on the detector in pixels, one decimal: "5.7 pixels"."""
+    return f"{value:.1f} pixels"
+
+
+def percentile(value: float) -> str:
+    """A percentile as an ordinal: "80th percentile", "10th percentile", "82.5th percentile"."""
+    text = f"{value:g}"
+    whole = int(value) if float(value).is_integer() else None
+    if whole is not None and whole % 100 not in (11, 12, 13) and whole % 10 in (1, 2, 3):
+        return f"{text}{ {1: 'st', 2: 'nd', 3: 'rd'}[whole % 10]} percentile"
+    return f"{text}th percentile"

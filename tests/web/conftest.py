@@ -58,9 +58,9 @@ def people(app: Flask) -> dict[str, int]:
 def semester_documents() -> dict[str, dict[str, Any]]:
     """The documents of the checked semester, by proposal id."""
     return {
-        "SQ-2027A-001": demo_doc("001"),  # feasible (its header): KESTREL, 2 + 2 h, RA 13h25m
+        "SQ-2027A-001": demo_doc("001"),  # feasible (its header): KESTREL, 4 + 3.5 h, RA 13h25m
         "SQ-2027A-002": demo_doc("002"),  # infeasible (sensitivity): HERON, 6 h, RA 19h45m
-        "SQ-2027A-005": demo_doc("005"),  # marginal: OWL, 1 + 1.5 + 2 h, RA 17h46m
+        "SQ-2027A-005": demo_doc("005"),  # marginal: OWL, 1 + 2.5 + 2 h, RA 17h46m
         "M-1": MARKUP_DOC,  # KESTREL, 1 h, RA 6h
     }
 

@@ -27,16 +27,16 @@ def test_overview_sums_the_latest_checks(app: Flask, semester: dict[str, Any], e
     assert counts == {"feasible": 2, "marginal": 1, "unchecked": 0, "infeasible": 1}
     assert data.counts == counts
     lines = {line.instrument: line for line in data.instruments}
-    # Requested hours from the documents: 001 2 + 2 h and M-1 1 h on KESTREL, 002 6 h on HERON, 005 1 + 1.5 + 2 h on OWL.
-    assert lines["KESTREL"].hours_requested == 5.0 and lines["KESTREL"].requests == 3
-    assert lines["HERON"].hours_requested == 6.0 and lines["OWL"].hours_requested == 4.5
+    # Requested hours from the documents: 001 4 + 3.5 h and M-1 1 h on KESTREL, 002 6 h on HERON, 005 1 + 2.5 + 2 h on OWL.
+    assert lines["KESTREL"].hours_requested == 8.5 and lines["KESTREL"].requests == 3
+    assert lines["HERON"].hours_requested == 6.0 and lines["OWL"].hours_requested == 5.5
     # Hours needed: the sums of the engine's per-request figures.
     for instrument, line in lines.items():
         needed = sum(q.figures["hours_needed"] for r in expected.values() for q in r.requests if q.instrument == instrument)
         assert line.hours_needed == pytest.approx(needed, rel=1e-9), instrument
     # Right ascension 13h25m (001) falls in the 13h bin, 19h45m (002) in 19h, 17h46m (005) in 17h, 06h00m (M-1) in 6h.
-    assert data.ra_requested[13] == 4.0 and data.ra_requested[19] == 6.0 and data.ra_requested[17] == 4.5 and data.ra_requested[6] == 1.0
-    assert sum(data.ra_requested) == 15.5
+    assert data.ra_requested[13] == 7.5 and data.ra_requested[19] == 6.0 and data.ra_requested[17] == 5.5 and data.ra_requested[6] == 1.0
+    assert sum(data.ra_requested) == 20.0
     # The demo schedule mounts every instrument in 2027A; offered hours are positive and below 12 h a night.
     assert all(line.hours_offered and line.hours_offered > 0 for line in lines.values())
     assert data.ra_dark_offered is not None and data.ra_night_offered is not None
