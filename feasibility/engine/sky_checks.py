@@ -40,8 +40,9 @@ from numpy.typing import NDArray
 
 from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
-from feasibility.engine.airmass import airmass_at, altitude_for_airmass
+from feasibility.engine.airmass import airmass_at, altitude_for_airmass, formula_label, limit_airmass, limit_altitude
 from feasibility.engine.conditions import Conditions, sky_band_for
+from feasibility.engine.horizon import horizon_altitude
 from feasibility.engine.moonsky import band_factor, dark_sky_nl, mag_from_nanolamberts, sky_components_nl
 from feasibility.engine.positions import target_vector
 from feasibility.engine.skygrid import NightSamples, SkyGrid
@@ -92,6 +93,9 @@ class SkyMeasure:
     twilight: str
     sun_limit_deg: float
     airmass_limit: float
+    airmass_formula: str
+    lowest_limit_airmass: float
+    """The target's lowest airmass in true night in the limit's formula (comparable with ``airmass_limit``)."""
     min_altitude_deg: float
     max_altitude_deg: float
     step_minutes: float
@@ -181,7 +185,8 @@ def measure_sky(
 
     # Stage 1, visible: one product over all instants, then masks over the instants.
     sin_alt = view.up @ vector
-    min_alt = max(altitude_for_airmass(constraints.max_airmass), site.min_altitude_deg, telescope.min_altitude_deg)
+    formula = observatory.airmass_limit_formula
+    min_alt = max(limit_altitude(constraints.max_airmass, formula), site.min_altitude_deg, telescope.min_altitude_deg)
     max_alt = telescope.max_altitude_deg
     visible = sin_alt >= math.sin(math.radians(min_alt))
     if max_alt < 90.0:
@@ -213,7 +218,8 @@ def measure_sky(
     band = sky_band_for(request, instrument, observatory)
     climate_band = observatory.climate.bands[band]
     highest = float(sin_alt.max()) if sin_alt.size else -1.0  # no true night at all (polar summer)
-    lowest_airmass = airmass_at(math.degrees(math.asin(min(highest, 1.0)))) if highest > 0.0 else math.inf
+    highest_alt = math.degrees(math.asin(min(highest, 1.0))) if highest > 0.0 else -90.0
+    lowest_airmass = airmass_at(highest_alt) if highest > 0.0 else math.inf
 
     k = climate_band.extinction_mag_per_airmass
     if n_observable:
@@ -264,6 +270,8 @@ def measure_sky(
         twilight=instrument.twilight,
         sun_limit_deg=sun_limit,
         airmass_limit=constraints.max_airmass,
+        airmass_formula=formula,
+        lowest_limit_airmass=limit_airmass(highest_alt, formula),
         min_altitude_deg=min_alt,
         max_altitude_deg=max_alt,
         step_minutes=grid.step_minutes,
@@ -311,16 +319,19 @@ def visibility_finding(sky: SkyMeasure) -> Finding:
     hours, clear = sky.total_visible, sky.clear_visible
     level = level_for_hours(clear, hours, sky.hours_requested, sky.has_windows)
     nights = int(np.count_nonzero(sky.visible))
-    where = f"above airmass {sky.airmass_limit:g} (altitude {sky.min_altitude_deg:.1f}°) in {sky.twilight} night"
+    where = (
+        f"above airmass {sky.airmass_limit:g} ({formula_label(sky.airmass_formula)}; altitude {sky.min_altitude_deg:.1f}°) "
+        f"in {sky.twilight} night"
+    )
     if sky.has_windows:
         where += " within the time windows"
     if hours <= 0.0:
         if not math.isfinite(sky.lowest_airmass):
             message = f"Never rises in {sky.twilight} night this semester."
         elif sky.has_windows:
-            message = f"Not {where} at any time (lowest airmass in true night this semester {sky.lowest_airmass:.2f})."
-        elif sky.lowest_airmass > sky.airmass_limit:
-            message = f"Never {where}: its lowest airmass in true night is {sky.lowest_airmass:.2f}."
+            message = f"Not {where} at any time (lowest airmass in true night this semester {sky.lowest_limit_airmass:.2f})."
+        elif sky.lowest_limit_airmass > sky.airmass_limit:
+            message = f"Never {where}: its lowest airmass in true night is {sky.lowest_limit_airmass:.2f}."
         else:
             message = f"Never {where} while clear of the site's horizon and the telescope's limits."
     else:
@@ -332,8 +343,8 @@ def visibility_finding(sky: SkyMeasure) -> Finding:
     if level is not Level.FEASIBLE:
         if sky.has_windows:
             suggestion = "Widen the time windows or relax the airmass limit."
-        elif math.isfinite(sky.lowest_airmass) and sky.lowest_airmass > sky.airmass_limit:
-            suggestion = f"Allow airmass up to {sky.lowest_airmass * 1.1:.1f}, or propose in a semester when the target is up at night."
+        elif math.isfinite(sky.lowest_limit_airmass) and sky.lowest_limit_airmass > sky.airmass_limit:
+            suggestion = f"Allow airmass up to {sky.lowest_limit_airmass * 1.1:.1f}, or propose in a semester when the target is up at night."
         else:
             suggestion = "Relax the airmass limit, request fewer hours, or propose in a semester when the target is up longer at night."
     return Finding(
@@ -349,6 +360,7 @@ def visibility_finding(sky: SkyMeasure) -> Finding:
             "twilight": sky.twilight,
             "sun_altitude_limit_deg": sky.sun_limit_deg,
             "airmass_limit": sky.airmass_limit,
+            "airmass_limit_formula": sky.airmass_formula,
             "min_altitude_deg": round(sky.min_altitude_deg, 2),
             "max_altitude_deg": sky.max_altitude_deg,
             "lowest_airmass": round(sky.lowest_airmass, 3) if math.isfinite(sky.lowest_airmass) else None,
@@ -514,7 +526,8 @@ def _visibility_method(step_minutes: float) -> str:
     """The visibility finding's method text (formatted once per grid step)."""
     return (
         _GRID_METHOD.format(step=step_minutes)
-        + "; airmass Kasten & Young (1989); twilight: Sun's centre at -6/-12/-18 deg (U.S. Naval Observatory); "
+        + "; airmass limits in the observatory's stated formula (plain sec z unless it says Hardie 1962, Kasten & Young "
+        "1989 or Young 1994); twilight: Sun's centre at -6/-12/-18 deg (U.S. Naval Observatory); "
         "expected clear hours weight each night by climate.usable_night_fraction of its month"
     )
 
@@ -541,7 +554,7 @@ def _clear_below_horizon_profile(
     sin_alt: NDArray[np.float64],
     min_alt: float,
 ) -> None:
-    """Clear in ``visible`` the instants below the site's horizon profile (linear in azimuth, wrapping at 360°).
+    """Clear in ``visible`` the instants below the site's horizon profile (:mod:`feasibility.engine.horizon`).
 
     Only instants lower than the profile's highest point need their azimuth, so
     with the usual airmass limits the profile costs nothing.
@@ -553,9 +566,8 @@ def _clear_below_horizon_profile(
     low = np.flatnonzero(visible & (sin_alt < math.sin(math.radians(top))))
     if not low.size:
         return
-    points = sorted(horizon, key=lambda p: p.azimuth_deg)
     azimuth = np.degrees(np.arctan2(np.take(view.east, low, axis=0) @ vector, np.take(view.north, low, axis=0) @ vector))
-    floor = np.interp(azimuth % 360.0, [p.azimuth_deg for p in points], [p.altitude_deg for p in points], period=360.0)
+    floor = horizon_altitude(observatory.site, azimuth)
     visible[low[np.degrees(np.arcsin(sin_alt[low])) < floor]] = False
 
 
