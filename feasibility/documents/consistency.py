@@ -6,12 +6,14 @@ have), reported like validation errors with the field path.
 
 from __future__ import annotations
 
+from datetime import datetime, time, timedelta, timezone
+
 from feasibility.documents.loading import DocumentError, Problem
-from feasibility.documents.observatory import Observatory
-from feasibility.documents.proposal import Proposal
+from feasibility.documents.observatory import Observatory, Semester
+from feasibility.documents.proposal import Proposal, TimeWindow
 from feasibility.documents.schedule import InstrumentSchedule
 
-__all__ = ["proposal_problems", "require_consistent", "schedule_problems"]
+__all__ = ["proposal_problems", "require_consistent", "schedule_problems", "semester_span_utc", "window_problems"]
 
 
 def proposal_problems(proposal: Proposal, observatory: Observatory) -> list[Problem]:
@@ -50,7 +52,44 @@ def proposal_problems(proposal: Proposal, observatory: Observatory) -> list[Prob
         if request.brightness.band not in observatory.climate.bands:
             known = ", ".join(observatory.climate.bands)
             problems.append(Problem(f"{where}.brightness.band", f"unknown band {request.brightness.band!r} (known: {known})"))
+    semester = observatory.semester_named(proposal.semester)
+    if semester is not None:
+        for i, request in enumerate(proposal.requests):
+            problems.extend(window_problems(f"requests[{i}].windows", request.windows, observatory, semester))
     return problems
+
+
+def semester_span_utc(observatory: Observatory, semester: Semester) -> tuple[datetime, datetime]:
+    """The semester's nights as UTC times: local mean noon before the first night to local mean noon after the last.
+
+    Nights are named by the local date on which they begin; local mean time is
+    taken from the site's longitude, as the sky grid does.
+    """
+    offset = timedelta(hours=observatory.site.longitude_deg / 15.0)
+    start = datetime.combine(semester.first_night, time(12), tzinfo=timezone.utc) - offset
+    end = datetime.combine(semester.last_night + timedelta(days=1), time(12), tzinfo=timezone.utc) - offset
+    return start, end
+
+
+def window_problems(where: str, windows: list[TimeWindow], observatory: Observatory, semester: Semester) -> list[Problem]:
+    """Every time window that reaches outside the semester's nights (a window there could never be scheduled)."""
+    start, end = semester_span_utc(observatory, semester)
+    nights = (
+        f"semester {semester.name} runs from the night of {semester.first_night.isoformat()} "
+        f"to the night of {semester.last_night.isoformat()}"
+    )
+    problems = []
+    for j, window in enumerate(windows):
+        shown = f"{_utc(window.start)} to {_utc(window.end)}"
+        if window.end <= start or window.start >= end:
+            problems.append(Problem(f"{where}[{j}]", f"the window {shown} lies outside the semester: {nights}"))
+        elif window.start < start or window.end > end:
+            problems.append(Problem(f"{where}[{j}]", f"the window {shown} reaches outside the semester: {nights}"))
+    return problems
+
+
+def _utc(moment: datetime) -> str:
+    return moment.astimezone(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
 
 
 def schedule_problems(schedule: InstrumentSchedule, observatory: Observatory) -> list[Problem]:

@@ -33,7 +33,7 @@ from __future__ import annotations
 import functools
 import math
 from dataclasses import dataclass, field
-from datetime import date, datetime, timezone
+from datetime import date
 
 import numpy as np
 from numpy.typing import NDArray
@@ -42,10 +42,10 @@ from feasibility.documents import Instrument, InstrumentSchedule, Observatory, O
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass, formula_label, limit_airmass, limit_altitude
 from feasibility.engine.conditions import Conditions, sky_band_for
-from feasibility.engine.horizon import horizon_altitude
 from feasibility.engine.moonsky import band_factor, dark_sky_nl, mag_from_nanolamberts, sky_components_nl
 from feasibility.engine.positions import target_vector
-from feasibility.engine.skygrid import NightSamples, SkyGrid
+from feasibility.engine.sky_masks import in_windows, visible_mask, window_nights
+from feasibility.engine.skygrid import SkyGrid
 from feasibility.results import Finding, Level
 
 __all__ = [
@@ -75,7 +75,6 @@ SUN_MARGIN_DEG = 5.0
 #: (against the median over every instant: within 0.05 mag for 60 random targets, below the K&S model's 8-23 %).
 _SKY_SAMPLES = 400
 
-_MJD_UNIX_EPOCH = 40587.0
 _SKY_LIMIT = {"dark": DARK_ILLUMINATION, "grey": GREY_ILLUMINATION, "bright": 1.0}
 
 _GRID_METHOD = (
@@ -100,6 +99,8 @@ class SkyMeasure:
     max_altitude_deg: float
     step_minutes: float
     has_windows: bool
+    window_nights: int
+    """Nights the request's time windows touch (0 without windows)."""
     schedule_given: bool
     nights: list[date]
     hours_night: NDArray[np.float64]
@@ -188,13 +189,8 @@ def measure_sky(
     formula = observatory.airmass_limit_formula
     min_alt = max(limit_altitude(constraints.max_airmass, formula), site.min_altitude_deg, telescope.min_altitude_deg)
     max_alt = telescope.max_altitude_deg
-    visible = sin_alt >= math.sin(math.radians(min_alt))
-    if max_alt < 90.0:
-        visible &= sin_alt <= math.sin(math.radians(max_alt))
-    if site.horizon:
-        _clear_below_horizon_profile(observatory, view, vector, visible, sin_alt, min_alt)
-    if request.windows:
-        visible &= _in_windows(request, view.mjd)
+    windows = in_windows(request.windows, view.mjd) if request.windows else None
+    visible = visible_mask(view, vector, sin_alt, min_alt, max_alt, site, windows)
 
     # Stage 2, observable: the Moon constraints, while the Moon is up (its distance is needed only there).
     moon_limit = _moon_illumination_limit(request)
@@ -248,6 +244,7 @@ def measure_sky(
     moon_separation_min = math.degrees(math.acos(min(1.0, float(cos_moon.max())))) if cos_moon.size else None
 
     cos_sun = grid.sun_vector_midnight @ vector
+    touched = window_nights(request.windows, grid.midnight_mjd) if request.windows else None
     sun_limit_cos = math.cos(math.radians(telescope.min_sun_separation_deg))
     if hours_visible.any():
         seen = hours_visible > 0.0
@@ -255,7 +252,9 @@ def measure_sky(
         sun_unsafe_hours = float(hours_visible[cos_sun > sun_limit_cos].sum())
     else:
         sun_min, sun_unsafe_hours = math.nan, 0.0
-    sun_min_all = math.degrees(math.acos(min(1.0, float(cos_sun.max()))))
+    # With time windows, "never visible" speaks of the windows' nights, and so does the closest approach.
+    considered = cos_sun[touched] if touched is not None and touched.any() else cos_sun
+    sun_min_all = math.degrees(math.acos(min(1.0, float(considered.max()))))
 
     conditions = Conditions(
         hours_observable=n_observable * step_hours,
@@ -276,6 +275,7 @@ def measure_sky(
         max_altitude_deg=max_alt,
         step_minutes=grid.step_minutes,
         has_windows=bool(request.windows),
+        window_nights=int(touched.sum()) if touched is not None else 0,
         schedule_given=schedule_given,
         nights=grid.nights,
         hours_night=grid.night_hours(sun_limit),
@@ -546,45 +546,6 @@ def _moon_illumination_limit(request: ObservationRequest) -> float:
     return limit
 
 
-def _clear_below_horizon_profile(
-    observatory: Observatory,
-    view: NightSamples,
-    vector: NDArray[np.float64],
-    visible: NDArray[np.bool_],
-    sin_alt: NDArray[np.float64],
-    min_alt: float,
-) -> None:
-    """Clear in ``visible`` the instants below the site's horizon profile (:mod:`feasibility.engine.horizon`).
-
-    Only instants lower than the profile's highest point need their azimuth, so
-    with the usual airmass limits the profile costs nothing.
-    """
-    horizon = observatory.site.horizon
-    top = max(p.altitude_deg for p in horizon)
-    if top <= min_alt:
-        return
-    low = np.flatnonzero(visible & (sin_alt < math.sin(math.radians(top))))
-    if not low.size:
-        return
-    azimuth = np.degrees(np.arctan2(np.take(view.east, low, axis=0) @ vector, np.take(view.north, low, axis=0) @ vector))
-    floor = horizon_altitude(observatory.site, azimuth)
-    visible[low[np.degrees(np.arcsin(sin_alt[low])) < floor]] = False
-
-
-def _in_windows(request: ObservationRequest, mjd: NDArray[np.float64]) -> NDArray[np.bool_]:
-    """Which of the instants ``mjd`` (in time order) fall inside any of the request's time windows."""
-    inside = np.zeros(mjd.size, dtype=bool)
-    for window in request.windows:
-        first = np.searchsorted(mjd, _mjd(window.start), side="left")  # first instant at or after the start
-        stop = np.searchsorted(mjd, _mjd(window.end), side="right")  # first instant after the end
-        inside[first:stop] = True
-    return inside
-
-
-def _mjd(moment: datetime) -> float:
-    return moment.astimezone(timezone.utc).timestamp() / 86400.0 + _MJD_UNIX_EPOCH
-
-
 def _night_curve(
     grid: SkyGrid,
     vector: NDArray[np.float64],
@@ -611,3 +572,8 @@ def _night_curve(
         **{name: list(shared[name]) for name in ("hours_from_midnight", "moon_alt_deg", "sun_alt_deg")},  # type: ignore[call-overload]
         "target_alt_deg": np.degrees(np.arcsin(np.minimum(np.maximum(up, -1.0), 1.0))).round(2).tolist(),
     }
+
+
+def _in_windows(request: ObservationRequest, mjd: NDArray[np.float64]) -> NDArray[np.bool_]:
+    """Which of the instants ``mjd`` fall inside the request's time windows (:func:`sky_masks.in_windows`)."""
+    return in_windows(request.windows, mjd)

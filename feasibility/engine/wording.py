@@ -9,17 +9,37 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["airmass", "arcsec", "degrees", "hours", "magnitude", "nanometres", "ratio", "seconds", "snr"]
+__all__ = [
+    "airmass",
+    "arcsec",
+    "count",
+    "degrees",
+    "fraction",
+    "hours",
+    "magnitude",
+    "nanometres",
+    "percent",
+    "ratio",
+    "seconds",
+    "snr",
+]
 
 
 def hours(value: float) -> str:
-    """Hours: one decimal below 100 h, whole hours up to 10,000 h, thousands separated above ("1.5 h", "236 h", "47,250 h")."""
+    """Hours: one decimal below 100 h, whole hours above, thousands separated ("1.5 h", "236 h", "47,250 h").
+
+    Above 1,000 h the figure keeps four significant digits (201,812 h reads "201,800 h"), so a
+    quantity reads the same whether it is formatted from the exact value or from the figure
+    stored with four significant digits in a result.
+    """
     if not math.isfinite(value):
         return "unbounded h" if value > 0 else "– h"
     if abs(value) < 0.05 and value != 0:
         return f"{value * 60:.0f} min"
     if abs(value) < 100:
         return f"{value:.1f} h"
+    if abs(value) >= 10_000:
+        value = float(f"{value:.4g}")
     return f"{value:,.0f} h"
 
 
@@ -65,3 +85,20 @@ def nanometres(value: float) -> str:
 def ratio(value: float) -> str:
     """A ratio or factor, two significant figures: "1.3×"."""
     return f"{value:.2g}×" if abs(value) < 10 else f"{value:.0f}×"
+
+
+def count(value: int, noun: str) -> str:
+    """A count with its noun: "1 night", "12 nights", "1,204 nights"."""
+    return f"{value:,} {noun}" if value == 1 else f"{value:,} {noun}s"
+
+
+def fraction(value: float) -> str:
+    """A fraction between 0 and 1 (the Moon's illumination, a share of nights), two decimals: "0.30"."""
+    return f"{value:.2f}"
+
+
+def percent(value: float) -> str:
+    """A share in per cent, whole numbers ("26 %"), "under 1 %" for a small non-zero share."""
+    if 0.0 < value < 0.005:
+        return "under 1 %"
+    return f"{100 * value:.0f} %"
