@@ -235,6 +235,8 @@ def _check_for(problems: list[Problem]) -> str:
     for problem in problems:
         if problem.field.endswith(".brightness.band"):
             return "sensitivity"
+        if ".constraints.max_moon_illumination" in problem.field:
+            return "moon"
         if ".instrument" in problem.field or ".setup" in problem.field:
             return "instrument"
     return "visibility"

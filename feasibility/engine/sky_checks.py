@@ -17,20 +17,13 @@ summed night by night:
 Each stage's hours are also given as *expected clear* hours: each night weighted
 by the site's usable-night fraction for its month.
 
-Levels (common-practice margins, shared by visibility, moon and schedule): a stage
-is ``infeasible`` when its hours, even with every night clear, fall short of the
-hours needed, or when its expected clear hours do; ``marginal`` when its expected
-clear hours are under 1.5 times the hours needed (a typical weather and
-overheads margin). A request with time windows is time-critical: bad weather
-there is a risk, not a certainty, so an expected-clear shortfall alone makes it
-``marginal``. Visibility and moon compare with the requested hours; schedule, the
-last stage, with the larger of the requested hours and the hours the goal needs
-(from the exposure checks), so it is also the overall time comparison.
+The findings built from a :class:`SkyMeasure` (their levels, thresholds and
+computed suggestions) are in :mod:`feasibility.engine.sky_findings`, re-exported
+here; the first-stage mask is :func:`feasibility.engine.sky_masks.visible_mask`.
 """
 
 from __future__ import annotations
 
-import functools
 import math
 from dataclasses import dataclass, field
 from datetime import date
@@ -41,7 +34,7 @@ from numpy.typing import NDArray
 from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
 from feasibility.documents.proposal import SKY_ILLUMINATION
-from feasibility.engine.airmass import airmass_at, altitude_for_airmass, formula_label, limit_airmass, limit_altitude
+from feasibility.engine.airmass import airmass_at, altitude_for_airmass, limit_airmass, limit_altitude
 from feasibility.engine.conditions import Conditions, sky_band_for
 from feasibility.engine.moonsky import band_factor, dark_sky_nl, mag_from_nanolamberts, sky_components_nl
 from feasibility.engine.positions import target_vector
