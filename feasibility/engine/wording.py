@@ -28,7 +28,7 @@ __all__ = [
 def hours(value: float) -> str:
     """Hours: one decimal below 100 h, whole hours above, thousands separated ("1.5 h", "236 h", "47,250 h").
 
-    Above 1,000 h the figure keeps four significant digits (201,812 h reads "201,800 h"), so a
+    From 10,000 h the figure keeps four significant digits (201,812 h reads "201,800 h"), so a
     quantity reads the same whether it is formatted from the exact value or from the figure
     stored with four significant digits in a result.
     """
