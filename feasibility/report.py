@@ -7,7 +7,9 @@ without colour and with a screen reader.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 
+from feasibility.engine import wording
 from feasibility.results import Finding, Level, ProposalResult, RequestResult
 
 __all__ = ["SYMBOLS", "render_report", "verdict_label"]
@@ -20,15 +22,15 @@ SYMBOLS: dict[Level, str] = {
     Level.INFEASIBLE: "✗",
 }
 
-# (figure, label, unit) shown in each request's summary line, when present.
-_KEY_FIGURES: list[tuple[str, str, str]] = [
-    ("hours_requested", "requested", " h"),
-    ("hours_observable", "observable", " h"),
-    ("hours_usable", "usable", " h"),
-    ("hours_needed", "needed", " h"),
-    ("snr_expected", "S/N expected", ""),
-    ("airmass_median", "median airmass", ""),
-    ("seeing_arcsec", "seeing", "\""),
+# (figure, label, format) shown in each request's summary line, when present; numbers as the findings write them.
+_KEY_FIGURES: list[tuple[str, str, Callable[[float], str]]] = [
+    ("hours_requested", "requested", wording.hours),
+    ("hours_observable", "observable", wording.hours),
+    ("hours_usable", "usable", wording.hours),
+    ("hours_needed", "needed", wording.hours),
+    ("snr_expected", "S/N expected", lambda value: _bare_snr(value)),
+    ("airmass_median", "median airmass", wording.airmass),
+    ("seeing_arcsec", "seeing", wording.arcsec),
 ]
 
 
@@ -56,26 +58,41 @@ def _request_block(number: int, request: RequestResult) -> list[str]:
     summary = _summary(request)
     if summary:
         lines.append(f"    {summary}")
-    ordered = sorted(request.findings, key=lambda f: -f.level.rank)
-    lines.extend(line for finding in ordered for line in _finding_lines(finding))
+    caused = {}
+    for finding in request.findings:
+        if finding.see:
+            caused.setdefault(finding.see, []).append(finding.check)
+    ordered = sorted(request.findings, key=lambda f: (-f.level.rank, not f.cause, f.see is not None))
+    lines.extend(line for finding in ordered for line in _finding_lines(finding, caused.get(finding.check, [])))
     return lines
 
 
 def _summary(request: RequestResult) -> str:
     figures = request.figures
     parts = []
-    for key, label, unit in _KEY_FIGURES:
+    for key, label, shown in _KEY_FIGURES:
         value = figures.get(key)
         if isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value):
-            parts.append(f"{label} {value:.3g}{unit}")
+            parts.append(f"{label} {shown(value)}")
     goal = figures.get("snr_goal")
     if isinstance(goal, (int, float)) and not isinstance(goal, bool):
-        parts.append(f"S/N goal {goal:g}")
+        parts.append(f"S/N goal {_bare_snr(goal)}")
     return "; ".join(parts)
 
 
-def _finding_lines(finding: Finding) -> list[str]:
-    lines = [f"    {SYMBOLS[finding.level]} {finding.check} ({finding.level.value}): {finding.message}"]
+def _bare_snr(value: float) -> str:
+    """A signal-to-noise as :func:`wording.snr` writes it, without its "S/N" (the label says it)."""
+    return wording.snr(value).removeprefix("S/N ")
+
+
+def _finding_lines(finding: Finding, causes: list[str]) -> list[str]:
+    """A finding's lines; a cause says which findings it causes, a consequence which finding it follows from."""
+    tag = finding.level.value
+    if causes:
+        tag += f"; the cause of {', '.join(causes)}"
+    elif finding.see:
+        tag += f"; follows from {finding.see}"
+    lines = [f"    {SYMBOLS[finding.level]} {finding.check} ({tag}): {finding.message}"]
     if finding.suggestion:
         lines.append(f"        suggestion: {finding.suggestion}")
     return lines

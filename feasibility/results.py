@@ -53,6 +53,14 @@ class Finding(BaseModel):
     figures: dict[str, Figure] = Field(default_factory=dict)
     suggestion: str | None = None
     method: str | None = Field(default=None, description="How the figures were computed, with the published source.")
+    cause: bool = Field(
+        default=False,
+        description="True when this finding is the cause of other findings of the same request (they name it in 'see').",
+    )
+    see: str | None = Field(
+        default=None,
+        description="The check whose finding causes this one (e.g. 'sensitivity'); resolve that one first.",
+    )
 
 
 class RequestResult(BaseModel):

@@ -15,8 +15,9 @@ import click
 from pydantic import BaseModel
 
 from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, load_document, parse_document
-from feasibility.documents.consistency import proposal_problems, schedule_problems
+from feasibility.documents.consistency import schedule_problems
 from feasibility.documents.loading import Problem, json_schema
+from feasibility.documents.problems import read_proposal
 
 __all__ = ["register"]
 
@@ -93,41 +94,79 @@ def demo_files(ctx: click.Context, directory: Path, force: bool) -> None:
 def _load_inputs(
     proposal_path: Path, observatory_path: Path | None, schedule_path: Path | None
 ) -> tuple[Proposal, Observatory, InstrumentSchedule | None, list[str]]:
-    """Read and cross-check the documents; raise :class:`DocumentError` naming every problem."""
-    proposal = load_document(Proposal, proposal_path)
-    if observatory_path is None:
-        observatory = parse_document(Observatory, _data("observatory.yaml").read_bytes(), "packaged observatory")
-    else:
-        observatory = load_document(Observatory, observatory_path)
-    problems = proposal_problems(proposal, observatory)
-    if problems:
-        raise DocumentError(problems, str(proposal_path))
+    """Read and cross-check the documents; raise :class:`DocumentError` naming every problem of every document.
+
+    The proposal's schema problems and its misfits with the observatory come in one
+    answer (:func:`feasibility.documents.problems.read_proposal`), with the
+    observatory's and the schedule's problems beside them.
+    """
+    errors: list[DocumentError] = []
+    observatory: Observatory | None = None
+    try:
+        if observatory_path is None:
+            observatory = parse_document(Observatory, _data("observatory.yaml").read_bytes(), "packaged observatory")
+        else:
+            observatory = load_document(Observatory, observatory_path)
+    except DocumentError as error:
+        errors.append(error)
+
+    proposal: Proposal | None = None
+    try:
+        if observatory is None:
+            proposal = load_document(Proposal, proposal_path)
+        else:
+            proposal = read_proposal(_read_bytes(proposal_path), observatory, str(proposal_path))
+    except DocumentError as error:
+        errors.append(error)
 
     notes: list[str] = []
     schedule: InstrumentSchedule | None = None
-    if schedule_path is not None:
-        schedule = load_document(InstrumentSchedule, schedule_path)
-        name = str(schedule_path)
-    else:
-        packaged = _data(f"schedule-{proposal.semester}.yaml")
-        name = f"packaged schedule-{proposal.semester}.yaml"
-        if packaged.is_file():
-            schedule = parse_document(InstrumentSchedule, packaged.read_bytes(), name)
-            if schedule.observatory != observatory.name:
-                schedule = None
-    if schedule is None:
-        notes.append("no instrument schedule: every instrument is assumed mounted and the telescope open every night")
-    else:
+    semester = proposal.semester if proposal is not None else None
+    try:
+        if schedule_path is not None:
+            schedule = load_document(InstrumentSchedule, schedule_path)
+            name = str(schedule_path)
+        elif semester is not None and observatory is not None:
+            packaged = _data(f"schedule-{semester}.yaml")
+            name = f"packaged schedule-{semester}.yaml"
+            if packaged.is_file():
+                schedule = parse_document(InstrumentSchedule, packaged.read_bytes(), name)
+                if schedule.observatory != observatory.name:
+                    schedule = None
+    except DocumentError as error:
+        errors.append(error)
+    if schedule is not None and observatory is not None:
         problems = schedule_problems(schedule, observatory)
         if schedule.observatory != observatory.name:
             problems.append(Problem("observatory", f"{schedule.observatory!r} is not the observatory {observatory.name!r}"))
-        if schedule.semester != proposal.semester:
-            problems.append(
-                Problem("semester", f"{schedule.semester!r} is not the proposal's semester {proposal.semester!r}")
-            )
+        if semester is not None and schedule.semester != semester:
+            problems.append(Problem("semester", f"{schedule.semester!r} is not the proposal's semester {semester!r}"))
         if problems:
-            raise DocumentError(problems, name)
+            errors.append(DocumentError(problems, name))
+    if errors:
+        raise _Errors(errors)
+    assert proposal is not None and observatory is not None
+    if schedule is None:
+        notes.append("no instrument schedule: every instrument is assumed mounted and the telescope open every night")
     return proposal, observatory, schedule, notes
+
+
+class _Errors(DocumentError):
+    """The problems of several documents, each line naming its document and field."""
+
+    def __init__(self, errors: list[DocumentError]) -> None:
+        self.errors = errors
+        super().__init__([p for e in errors for p in e.problems], errors[0].document)
+
+    def describe(self) -> str:
+        return "\n".join(error.describe() for error in self.errors)
+
+
+def _read_bytes(path: Path) -> bytes:
+    try:
+        return path.read_bytes()
+    except OSError as exc:
+        raise DocumentError([Problem("", f"cannot read {path}: {exc.strerror or exc}")], str(path)) from None
 
 
 def _demo_files(directory: Path) -> dict[Path, Traversable]:

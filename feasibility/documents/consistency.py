@@ -6,12 +6,22 @@ have), reported like validation errors with the field path.
 
 from __future__ import annotations
 
+from datetime import datetime, time, timedelta, timezone
+
 from feasibility.documents.loading import DocumentError, Problem
-from feasibility.documents.observatory import Observatory
-from feasibility.documents.proposal import Proposal
+from feasibility.documents.observatory import Observatory, Semester
+from feasibility.documents.proposal import SKY_ILLUMINATION, Constraints, Proposal, Setup, TimeWindow
 from feasibility.documents.schedule import InstrumentSchedule
 
-__all__ = ["proposal_problems", "require_consistent", "schedule_problems"]
+__all__ = [
+    "constraint_problems",
+    "proposal_problems",
+    "request_problems",
+    "require_consistent",
+    "schedule_problems",
+    "semester_span_utc",
+    "window_problems",
+]
 
 
 def proposal_problems(proposal: Proposal, observatory: Observatory) -> list[Problem]:
@@ -22,12 +32,30 @@ def proposal_problems(proposal: Proposal, observatory: Observatory) -> list[Prob
         problems.append(Problem("semester", f"{proposal.semester!r} is not a semester of {observatory.name} (known: {known})"))
     for i, request in enumerate(proposal.requests):
         where = f"requests[{i}]"
-        instrument = observatory.instrument_named(request.instrument)
-        if instrument is None:
-            known = ", ".join(x.name for x in observatory.instruments)
-            problems.append(Problem(f"{where}.instrument", f"unknown instrument {request.instrument!r} (known: {known})"))
-            continue
-        setup = request.setup
+        problems.extend(request_problems(where, request.instrument, request.setup, request.brightness.band, observatory))
+        problems.extend(constraint_problems(f"{where}.constraints", request.constraints))
+    semester = observatory.semester_named(proposal.semester)
+    if semester is not None:
+        for i, request in enumerate(proposal.requests):
+            problems.extend(window_problems(f"requests[{i}].windows", request.windows, observatory, semester))
+    return problems
+
+
+def request_problems(where: str, instrument_name: str, setup: Setup | None, band: str, observatory: Observatory) -> list[Problem]:
+    """What one request names that ``observatory`` lacks: its instrument, the setup's filter, grating or slit, its band.
+
+    ``setup`` is None when the request's setup itself did not validate (its problems are reported already).
+    """
+    problems: list[Problem] = []
+    if band not in observatory.climate.bands:
+        known = ", ".join(observatory.climate.bands)
+        problems.append(Problem(f"{where}.brightness.band", f"unknown band {band!r} (known: {known})"))
+    instrument = observatory.instrument_named(instrument_name)
+    if instrument is None:
+        known = ", ".join(x.name for x in observatory.instruments)
+        problems.append(Problem(f"{where}.instrument", f"unknown instrument {instrument_name!r} (known: {known})"))
+        return problems
+    if setup is not None:
         if instrument.kind == "imager":
             if setup.filter is None:
                 problems.append(Problem(f"{where}.setup.filter", f"is required for the imager {instrument.name}"))
@@ -47,10 +75,59 @@ def proposal_problems(proposal: Proposal, observatory: Observatory) -> list[Prob
                 problems.append(Problem(f"{where}.setup.slit_arcsec", f"{instrument.name} has no {setup.slit_arcsec:g} arcsec slit (known: {known})"))
             if setup.central_wavelength_nm is None:
                 problems.append(Problem(f"{where}.setup.central_wavelength_nm", f"is required for the spectrograph {instrument.name}"))
-        if request.brightness.band not in observatory.climate.bands:
-            known = ", ".join(observatory.climate.bands)
-            problems.append(Problem(f"{where}.brightness.band", f"unknown band {request.brightness.band!r} (known: {known})"))
     return problems
+
+
+def constraint_problems(where: str, constraints: Constraints) -> list[Problem]:
+    """Constraints that contradict each other: a ``sky`` (lunar time) and a larger ``max_moon_illumination``.
+
+    Rather than silently use the stricter of the two, the proposer is asked to give one or make them agree.
+    """
+    if constraints.sky is None or constraints.max_moon_illumination is None:
+        return []
+    allowed = SKY_ILLUMINATION[constraints.sky]
+    if constraints.max_moon_illumination <= allowed:
+        return []
+    return [
+        Problem(
+            f"{where}.max_moon_illumination",
+            f"{constraints.max_moon_illumination:g} contradicts sky {constraints.sky!r}, which allows the Moon at most "
+            f"{allowed:g} illuminated while up: give only one of them, or a max_moon_illumination of at most {allowed:g}",
+        )
+    ]
+
+
+def semester_span_utc(observatory: Observatory, semester: Semester) -> tuple[datetime, datetime]:
+    """The semester's nights as UTC times: local mean noon before the first night to local mean noon after the last.
+
+    Nights are named by the local date on which they begin; local mean time is
+    taken from the site's longitude, as the sky grid does.
+    """
+    offset = timedelta(hours=observatory.site.longitude_deg / 15.0)
+    start = datetime.combine(semester.first_night, time(12), tzinfo=timezone.utc) - offset
+    end = datetime.combine(semester.last_night + timedelta(days=1), time(12), tzinfo=timezone.utc) - offset
+    return start, end
+
+
+def window_problems(where: str, windows: list[TimeWindow], observatory: Observatory, semester: Semester) -> list[Problem]:
+    """Every time window that reaches outside the semester's nights (a window there could never be scheduled)."""
+    start, end = semester_span_utc(observatory, semester)
+    nights = (
+        f"semester {semester.name} runs from the night of {semester.first_night.isoformat()} "
+        f"to the night of {semester.last_night.isoformat()}"
+    )
+    problems = []
+    for j, window in enumerate(windows):
+        shown = f"{_utc(window.start)} to {_utc(window.end)}"
+        if window.end <= start or window.start >= end:
+            problems.append(Problem(f"{where}[{j}]", f"the window {shown} lies outside the semester: {nights}"))
+        elif window.start < start or window.end > end:
+            problems.append(Problem(f"{where}[{j}]", f"the window {shown} reaches outside the semester: {nights}"))
+    return problems
+
+
+def _utc(moment: datetime) -> str:
+    return moment.astimezone(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
 
 
 def schedule_problems(schedule: InstrumentSchedule, observatory: Observatory) -> list[Problem]:

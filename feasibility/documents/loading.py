@@ -11,6 +11,8 @@ from typing import Any, TypeVar
 import yaml
 from pydantic import BaseModel, ValidationError
 
+from feasibility.documents.messages import plain_message
+
 __all__ = ["DocumentError", "Problem", "load_document", "parse_document", "read_mapping"]
 
 Model = TypeVar("Model", bound=BaseModel)
@@ -88,7 +90,7 @@ def parse_document(model: type[Model], data: dict[str, Any] | str | bytes, docum
     try:
         return model.model_validate(data)
     except ValidationError as exc:
-        problems = [Problem(field_path(err["loc"]), _message(err)) for err in exc.errors(include_url=False)]
+        problems = [Problem(field_path(err["loc"]), plain_message(err, model)) for err in exc.errors(include_url=False)]
         raise DocumentError(problems, name) from None
 
 
@@ -108,11 +110,5 @@ def json_schema(model: type[BaseModel]) -> str:
 
 
 def _message(error: dict[str, Any]) -> str:
-    message = str(error["msg"])
-    if message.startswith("Value error, "):
-        message = message[len("Value error, "):]
-    if error.get("type") == "missing":
-        return "is required"
-    if error.get("type") == "extra_forbidden":
-        return "is not a known field"
-    return message
+    """One validation error in our words (:func:`feasibility.documents.messages.plain_message`)."""
+    return plain_message(error)

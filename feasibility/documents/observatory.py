@@ -9,7 +9,7 @@ from __future__ import annotations
 from datetime import date
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 __all__ = [
     "Band",
@@ -53,6 +53,29 @@ class Site(_Part):
     elevation_m: float = Field(ge=-500, le=9000)
     min_altitude_deg: float = Field(default=15.0, ge=0, le=89)
     horizon: list[HorizonPoint] = Field(default_factory=list)
+
+    @field_validator("horizon")
+    @classmethod
+    def _horizon_closes(cls, horizon: list[HorizonPoint]) -> list[HorizonPoint]:
+        """The profile goes once round the sky: one altitude per azimuth, and 0° and 360° (the same direction) agree."""
+        by_azimuth: dict[float, float] = {}
+        for point in horizon:
+            azimuth = point.azimuth_deg % 360.0
+            if azimuth in by_azimuth and by_azimuth[azimuth] != point.altitude_deg:
+                if azimuth == 0.0:
+                    raise ValueError(
+                        f"azimuth 0° and 360° are the same direction but give altitudes "
+                        f"{by_azimuth[azimuth]:g}° and {point.altitude_deg:g}°; give them the same altitude"
+                    )
+                raise ValueError(f"azimuth {point.azimuth_deg:g}° is listed twice with different altitudes")
+            by_azimuth[azimuth] = point.altitude_deg
+        return horizon
+
+    def horizon_profile(self) -> tuple[list[float], list[float]]:
+        """The horizon profile as (azimuths in [0, 360), altitudes), sorted by azimuth, 360° folded onto 0°."""
+        folded = {p.azimuth_deg % 360.0: p.altitude_deg for p in self.horizon}
+        azimuths = sorted(folded)
+        return azimuths, [folded[a] for a in azimuths]
 
 
 class Telescope(_Part):
@@ -254,6 +277,14 @@ class Observatory(_Part):
     climate: Climate
     semesters: list[Semester] = Field(min_length=1)
     instruments: list[Instrument] = Field(min_length=1)
+    airmass_limit_formula: Literal["secant", "hardie-1962", "kasten-young-1989", "young-1994"] = Field(
+        default="secant",
+        description=(
+            "The formula the observatory's airmass LIMITS are stated in (a request's max_airmass): plain sec z "
+            "(the usual convention), Hardie (1962), Kasten & Young (1989) or Young (1994). Extinction and seeing "
+            "always use the physical airmass (Kasten & Young 1989)."
+        ),
+    )
 
     @model_validator(mode="after")
     def _unique_names(self) -> Observatory:

@@ -18,6 +18,7 @@ from pydantic import (
 from feasibility.documents.angles import parse_declination, parse_right_ascension
 
 __all__ = [
+    "SKY_ILLUMINATION",
     "Brightness",
     "Constraints",
     "Goal",
@@ -113,6 +114,10 @@ class Goal(_Document):
         if (self.snr is None) == (self.exposure_time_s is None):
             raise ValueError("give exactly one of 'snr' or 'exposure_time_s'")
         return self
+
+
+#: Lunar time: the Moon's largest illuminated fraction while up for each ``sky`` (common practice: dark ≤ 0.3, grey ≤ 0.7).
+SKY_ILLUMINATION: dict[str, float] = {"dark": 0.3, "grey": 0.7, "bright": 1.0}
 
 
 class Constraints(_Document):

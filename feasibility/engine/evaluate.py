@@ -27,6 +27,8 @@ import feasibility
 from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest, Proposal
 from feasibility.documents.consistency import proposal_problems
 from feasibility.documents.loading import Problem
+from feasibility.engine.causes import link_causes
+from feasibility.engine.explain import explain_conditions
 from feasibility.engine.sensitivity import assess_exposure
 from feasibility.engine.sky_checks import (
     measure_sky,
@@ -158,10 +160,13 @@ def check_request(
     findings: list[Finding] = [
         visibility_finding(sky),
         moon_finding(sky),
-        schedule_finding(sky, hours_needed),
+        schedule_finding(sky, hours_needed, context.schedule),
         sun_safety_finding(sky),
         *exposure.findings,
     ]
+    explain_conditions(findings, sky.conditions.hours_usable)
+    wavelength = _number(exposure.figures.get("wavelength_nm"))
+    link_causes(findings, sky, hours_needed, request, instrument, wavelength)
     conditions = sky.conditions
     figures: dict[str, Any] = {
         "hours_requested": request.hours_requested,
@@ -230,6 +235,8 @@ def _check_for(problems: list[Problem]) -> str:
     for problem in problems:
         if problem.field.endswith(".brightness.band"):
             return "sensitivity"
+        if ".constraints.max_moon_illumination" in problem.field:
+            return "moon"
         if ".instrument" in problem.field or ".setup" in problem.field:
             return "instrument"
     return "visibility"

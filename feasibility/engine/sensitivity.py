@@ -58,7 +58,7 @@ import numpy as np
 from feasibility.documents import Detector, Instrument, Observatory, ObservationRequest
 from feasibility.engine import photometry, spectral_curves, wording
 from feasibility.engine.airmass import altitude_for_airmass
-from feasibility.engine.conditions import Conditions, sky_band_for, wavelength_for
+from feasibility.engine.conditions import Conditions, wavelength_for
 from feasibility.engine.exposure_checks import (
     InstrumentProblem,
     atmosphere_finding,

@@ -17,36 +17,40 @@ summed night by night:
 Each stage's hours are also given as *expected clear* hours: each night weighted
 by the site's usable-night fraction for its month.
 
-Levels (common-practice margins, shared by visibility, moon and schedule): a stage
-is ``infeasible`` when its hours, even with every night clear, fall short of the
-hours needed, or when its expected clear hours do; ``marginal`` when its expected
-clear hours are under 1.5 times the hours needed (a typical weather and
-overheads margin). A request with time windows is time-critical: bad weather
-there is a risk, not a certainty, so an expected-clear shortfall alone makes it
-``marginal``. Visibility and moon compare with the requested hours; schedule, the
-last stage, with the larger of the requested hours and the hours the goal needs
-(from the exposure checks), so it is also the overall time comparison.
+The findings built from a :class:`SkyMeasure` (their levels, thresholds and
+computed suggestions) are in :mod:`feasibility.engine.sky_findings`, re-exported
+here; the first-stage mask is :func:`feasibility.engine.sky_masks.visible_mask`.
 """
 
 from __future__ import annotations
 
-import functools
 import math
 from dataclasses import dataclass, field
-from datetime import date, datetime, timezone
+from datetime import date
 
 import numpy as np
 from numpy.typing import NDArray
 
 from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
-from feasibility.engine.airmass import airmass_at, altitude_for_airmass
+from feasibility.documents.proposal import SKY_ILLUMINATION
+from feasibility.engine.airmass import airmass_at, altitude_for_airmass, limit_airmass, limit_altitude
 from feasibility.engine.conditions import Conditions, nearest_rank
 from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, optical_path, sky_components_nl
 from feasibility.engine.positions import target_vector
-from feasibility.engine.skygrid import NightSamples, SkyGrid
+from feasibility.engine.sky_findings import (
+    MARGIN,
+    SUN_MARGIN_DEG,
+    level_for_hours,
+    moon_finding,
+    schedule_finding,
+    sun_safety_finding,
+    visibility_finding,
+)
+from feasibility.engine.sky_masks import in_windows, visible_mask, window_nights
+from feasibility.engine.skygrid import SkyGrid
 from feasibility.engine.spectral_curves import sky_setting
-from feasibility.results import Finding, Level
+from feasibility.engine.what_if import SkyProbe
 
 __all__ = [
     "GREY_ILLUMINATION",
@@ -64,25 +68,12 @@ __all__ = [
 ]
 
 #: Lunar time: dark when the Moon's illuminated fraction is at most this (or the Moon is down).
-DARK_ILLUMINATION = 0.3
+DARK_ILLUMINATION = SKY_ILLUMINATION["dark"]
 #: Grey time: illuminated fraction at most this (or the Moon is down).
-GREY_ILLUMINATION = 0.7
-#: Expected clear hours under this multiple of the hours needed make a stage marginal (common practice).
-MARGIN = 1.5
-#: A closest approach to the Sun within this many degrees beyond the telescope's limit is flagged.
-SUN_MARGIN_DEG = 5.0
+GREY_ILLUMINATION = SKY_ILLUMINATION["grey"]
 #: Sky brightness is the median over at most this many usable instants, evenly spread in time, to bound the cost
 #: (against the median over every instant: within 0.05 mag for 60 random targets, below the K&S model's 8-23 %).
 _SKY_SAMPLES = 400
-
-_MJD_UNIX_EPOCH = 40587.0
-_SKY_LIMIT = {"dark": DARK_ILLUMINATION, "grey": GREY_ILLUMINATION, "bright": 1.0}
-
-_GRID_METHOD = (
-    "semester sky grid sampled every {step:g} min: ICRS to horizon rotation from ERFA (IAU 2006/2000A "
-    "precession-nutation, Earth rotation angle with UT1 from astropy's IERS table), held to astropy's "
-    "AltAz (no refraction) within 0.05 deg; Sun and Moon from ERFA epv00 and moon98 (Meeus)"
-)
 
 
 @dataclass
@@ -93,10 +84,21 @@ class SkyMeasure:
     twilight: str
     sun_limit_deg: float
     airmass_limit: float
+    airmass_formula: str
+    lowest_limit_airmass: float
+    """The target's lowest airmass in true night in the limit's formula (comparable with ``airmass_limit``)."""
     min_altitude_deg: float
     max_altitude_deg: float
     step_minutes: float
     has_windows: bool
+    window_nights: int
+    """Nights the request's time windows touch (0 without windows)."""
+    window_night_mask: NDArray[np.bool_] | None
+    instrument: str
+    available: NDArray[np.bool_]
+    """Per night, whether the instrument is mounted and the telescope open."""
+    highest_altitude_deg: float
+    """The target's highest altitude at any instant of true night this semester (−90 without true night)."""
     schedule_given: bool
     nights: list[date]
     hours_night: NDArray[np.float64]
@@ -114,9 +116,15 @@ class SkyMeasure:
     sun_separation_min_deg: float
     sun_separation_min_all_deg: float
     hours_sun_unsafe: float
+    hours_sun_near: float
+    """Visible hours closer to the Sun than its limit plus the margin (sky_findings.SUN_MARGIN_DEG)."""
+    sun_separation_max_deg: float
+    """The farthest the target stands from the Sun at midnight over the considered nights."""
     min_sun_separation_limit_deg: float
     moon_constraint: dict[str, object] = field(default_factory=dict)
     night_curve: dict[str, object] = field(default_factory=dict)
+    probe: SkyProbe | None = field(default=None, repr=False, compare=False)
+    """What the stages would give with other limits (for the findings' suggestions)."""
 
     total_visible: float = field(init=False, default=0.0)
     total_observable: float = field(init=False, default=0.0)
@@ -182,15 +190,11 @@ def measure_sky(
 
     # Stage 1, visible: one product over all instants, then masks over the instants.
     sin_alt = view.up @ vector
-    min_alt = max(altitude_for_airmass(constraints.max_airmass), site.min_altitude_deg, telescope.min_altitude_deg)
+    formula = observatory.airmass_limit_formula
+    min_alt = max(limit_altitude(constraints.max_airmass, formula), site.min_altitude_deg, telescope.min_altitude_deg)
     max_alt = telescope.max_altitude_deg
-    visible = sin_alt >= math.sin(math.radians(min_alt))
-    if max_alt < 90.0:
-        visible &= sin_alt <= math.sin(math.radians(max_alt))
-    if site.horizon:
-        _clear_below_horizon_profile(observatory, view, vector, visible, sin_alt, min_alt)
-    if request.windows:
-        visible &= _in_windows(request, view.mjd)
+    windows = in_windows(request.windows, view.mjd) if request.windows else None
+    visible = visible_mask(view, vector, sin_alt, min_alt, max_alt, site, windows)
 
     # Stage 2, observable: the Moon constraints, while the Moon is up (its distance is needed only there).
     moon_limit = _moon_illumination_limit(request)
@@ -215,7 +219,8 @@ def measure_sky(
     sky_model = sky_setting(request, instrument, observatory)
     band, zenith_sky = sky_model.label, sky_model.zenith_mag_arcsec2
     highest = float(sin_alt.max()) if sin_alt.size else -1.0  # no true night at all (polar summer)
-    lowest_airmass = airmass_at(math.degrees(math.asin(min(highest, 1.0)))) if highest > 0.0 else math.inf
+    highest_alt = math.degrees(math.asin(min(highest, 1.0))) if highest > 0.0 else -90.0
+    lowest_airmass = airmass_at(highest_alt) if highest > 0.0 else math.inf
 
     k = sky_model.extinction_mag_per_airmass
     if n_observable:
@@ -254,14 +259,19 @@ def measure_sky(
     moon_separation_min = math.degrees(math.acos(min(1.0, float(cos_moon.max())))) if cos_moon.size else None
 
     cos_sun = grid.sun_vector_midnight @ vector
+    touched = window_nights(request.windows, grid.midnight_mjd) if request.windows else None
     sun_limit_cos = math.cos(math.radians(telescope.min_sun_separation_deg))
     if hours_visible.any():
         seen = hours_visible > 0.0
         sun_min = math.degrees(math.acos(min(1.0, float(cos_sun[seen].max()))))
         sun_unsafe_hours = float(hours_visible[cos_sun > sun_limit_cos].sum())
+        sun_near_hours = float(hours_visible[cos_sun > math.cos(math.radians(telescope.min_sun_separation_deg + SUN_MARGIN_DEG))].sum())
     else:
-        sun_min, sun_unsafe_hours = math.nan, 0.0
-    sun_min_all = math.degrees(math.acos(min(1.0, float(cos_sun.max()))))
+        sun_min, sun_unsafe_hours, sun_near_hours = math.nan, 0.0, 0.0
+    # With time windows, "never visible" speaks of the windows' nights, and so does the closest approach.
+    considered = cos_sun[touched] if touched is not None and touched.any() else cos_sun
+    sun_min_all = math.degrees(math.acos(min(1.0, float(considered.max()))))
+    sun_max = math.degrees(math.acos(max(-1.0, float(considered.min()))))
 
     conditions = Conditions(
         hours_observable=n_observable * step_hours,
@@ -278,10 +288,17 @@ def measure_sky(
         twilight=instrument.twilight,
         sun_limit_deg=sun_limit,
         airmass_limit=constraints.max_airmass,
+        airmass_formula=formula,
+        lowest_limit_airmass=limit_airmass(highest_alt, formula),
         min_altitude_deg=min_alt,
         max_altitude_deg=max_alt,
         step_minutes=grid.step_minutes,
         has_windows=bool(request.windows),
+        window_nights=int(touched.sum()) if touched is not None else 0,
+        window_night_mask=touched,
+        instrument=instrument.name,
+        available=available,
+        highest_altitude_deg=highest_alt if highest > 0.0 else (math.degrees(math.asin(max(highest, -1.0))) if sin_alt.size else -90.0),
         schedule_given=schedule_given,
         nights=grid.nights,
         hours_night=grid.night_hours(sun_limit),
@@ -299,6 +316,8 @@ def measure_sky(
         sun_separation_min_deg=sun_min,
         sun_separation_min_all_deg=sun_min_all,
         hours_sun_unsafe=sun_unsafe_hours,
+        hours_sun_near=sun_near_hours,
+        sun_separation_max_deg=sun_max,
         min_sun_separation_limit_deg=telescope.min_sun_separation_deg,
         moon_constraint={
             "min_moon_separation_deg": constraints.min_moon_separation_deg,
@@ -306,230 +325,22 @@ def measure_sky(
             "sky": constraints.sky or "bright",
         },
         night_curve=_night_curve(grid, vector, hours_usable, hours_observable, hours_visible),
-    )
-
-
-def level_for_hours(clear: float, every_night_clear: float, needed: float, time_critical: bool) -> Level:
-    """The level of a stage from its expected clear hours and its hours with every night clear (module docstring)."""
-    if every_night_clear <= 0.0 or every_night_clear < needed:
-        return Level.INFEASIBLE
-    if clear < needed:
-        return Level.MARGINAL if time_critical else Level.INFEASIBLE
-    if clear < MARGIN * needed:
-        return Level.MARGINAL
-    return Level.FEASIBLE
-
-
-def visibility_finding(sky: SkyMeasure) -> Finding:
-    """The visibility check: hours above the limits in true night, within windows."""
-    hours, clear = sky.total_visible, sky.clear_visible
-    level = level_for_hours(clear, hours, sky.hours_requested, sky.has_windows)
-    nights = int(np.count_nonzero(sky.visible))
-    where = f"above airmass {sky.airmass_limit:g} (altitude {sky.min_altitude_deg:.1f}°) in {sky.twilight} night"
-    if sky.has_windows:
-        where += " within the time windows"
-    if hours <= 0.0:
-        if not math.isfinite(sky.lowest_airmass):
-            message = f"Never rises in {sky.twilight} night this semester."
-        elif sky.has_windows:
-            message = f"Not {where} at any time (lowest airmass in true night this semester {sky.lowest_airmass:.2f})."
-        elif sky.lowest_airmass > sky.airmass_limit:
-            message = f"Never {where}: its lowest airmass in true night is {sky.lowest_airmass:.2f}."
-        else:
-            message = f"Never {where} while clear of the site's horizon and the telescope's limits."
-    else:
-        message = (
-            f"{hours:.1f} h {where} over {nights} nights; {clear:.1f} h expected clear; "
-            f"{sky.hours_requested:g} h requested."
-        )
-    suggestion = None
-    if level is not Level.FEASIBLE:
-        if sky.has_windows:
-            suggestion = "Widen the time windows or relax the airmass limit."
-        elif math.isfinite(sky.lowest_airmass) and sky.lowest_airmass > sky.airmass_limit:
-            suggestion = f"Allow airmass up to {sky.lowest_airmass * 1.1:.1f}, or propose in a semester when the target is up at night."
-        else:
-            suggestion = "Relax the airmass limit, request fewer hours, or propose in a semester when the target is up longer at night."
-    return Finding(
-        check="visibility",
-        level=level,
-        message=message,
-        figures={
-            "hours_requested": sky.hours_requested,
-            "hours_visible": round(hours, 2),
-            "hours_visible_clear": round(clear, 2),
-            "nights_visible": nights,
-            "hours_true_night": round(float(sky.hours_night.sum()), 1),
-            "twilight": sky.twilight,
-            "sun_altitude_limit_deg": sky.sun_limit_deg,
-            "airmass_limit": sky.airmass_limit,
-            "min_altitude_deg": round(sky.min_altitude_deg, 2),
-            "max_altitude_deg": sky.max_altitude_deg,
-            "lowest_airmass": round(sky.lowest_airmass, 3) if math.isfinite(sky.lowest_airmass) else None,
-            "usable_night_fraction_mean": round(float(sky.weather.sum()) / sky.weather.size, 3),  # (the mean, cheaper)
-        },
-        suggestion=suggestion,
-        method=_visibility_method(sky.step_minutes),
-    )
-
-
-def moon_finding(sky: SkyMeasure) -> Finding:
-    """The moon check: of the visible hours, those meeting the Moon separation and illumination constraints."""
-    visible, hours, clear = sky.total_visible, sky.total_observable, sky.clear_observable
-    level = level_for_hours(clear, hours, sky.hours_requested, sky.has_windows)
-    constraint = sky.moon_constraint
-    lost = visible - hours
-    if visible <= 0.0:
-        message = "No visible hours (see visibility), so none to test against the Moon constraints."
-    else:
-        message = (
-            f"{hours:.1f} of {visible:.1f} visible hours meet the Moon constraints "
-            f"(at least {constraint['min_moon_separation_deg']:g}° away, illumination at most "
-            f"{constraint['max_moon_illumination']:g} while up); {clear:.1f} h expected clear; "
-            f"median sky {sky.sky_mag_median:.2f} mag/arcsec² in {sky.sky_band} (dark sky {sky.dark_sky_mag:.2f})."
-        )
-    suggestion = None
-    if level is not Level.FEASIBLE and lost > 0.0 and visible > 0.0:
-        suggestion = "Accept a brighter sky (grey or bright time) or a smaller Moon separation, if the signal-to-noise allows."
-    return Finding(
-        check="moon",
-        level=level,
-        message=message,
-        figures={
-            "hours_visible": round(visible, 2),
-            "hours_observable": round(hours, 2),
-            "hours_observable_clear": round(clear, 2),
-            "hours_lost_to_moon": round(lost, 2),
-            "min_moon_separation_deg": constraint["min_moon_separation_deg"],  # type: ignore[dict-item]
-            "max_moon_illumination": constraint["max_moon_illumination"],  # type: ignore[dict-item]
-            "sky": constraint["sky"],  # type: ignore[dict-item]
-            "moon_separation_min_deg": None if sky.moon_separation_min_deg is None else round(sky.moon_separation_min_deg, 1),
-            "sky_band": sky.sky_band,
-            "sky_mag_arcsec2": round(sky.sky_mag_median, 2),
-            "dark_sky_mag_arcsec2": round(sky.dark_sky_mag, 2),
-            "moon_brightening_mag": round(sky.dark_sky_mag - sky.sky_mag_median, 2),
-        },
-        suggestion=suggestion,
-        method=(
-            "Moon topocentric from ERFA moon98 on the semester grid; constraints apply while the Moon's centre is above "
-            "the horizon; dark: illumination <= 0.3 or Moon down, grey: <= 0.7; moonlit sky Krisciunas & Schaefer (1991) "
-            "eqs. 1-3, 15-20 added to the site's dark sky, carried from V with the Sun's colours (approximation)"
+        probe=SkyProbe(
+            view=view,
+            vector=vector,
+            sin_alt=sin_alt,
+            site=site,
+            floor_alt=max(site.min_altitude_deg, telescope.min_altitude_deg),
+            max_alt=max_alt,
+            windows=windows,
+            formula=formula,
+            airmass_limit=constraints.max_airmass,
+            min_moon_separation_deg=constraints.min_moon_separation_deg,
+            max_moon_illumination=moon_limit,
+            available=available,
+            weather=weather,
+            step_hours=step_hours,
         ),
-    )
-
-
-def schedule_finding(sky: SkyMeasure, hours_needed: float | None) -> Finding:
-    """The schedule check and the overall time comparison (see the module docstring)."""
-    observable, hours, clear = sky.total_observable, sky.total_usable, sky.clear_usable
-    need = sky.hours_requested
-    if hours_needed is not None and math.isfinite(hours_needed):
-        need = max(need, hours_needed)
-    level = level_for_hours(clear, hours, need, sky.has_windows)
-    nights = int(np.count_nonzero(sky.usable))
-    if sky.schedule_given:
-        where = f"on the {sky.nights_scheduled} nights the instrument is scheduled"
-    else:
-        where = "with no instrument schedule given (every night assumed available)"
-    if observable <= 0.0:
-        message = f"No observable hours (see visibility and moon) to place {where}"
-    else:
-        message = f"{hours:.1f} of {observable:.1f} observable hours fall {where}; {clear:.1f} h expected clear over {nights} nights"
-    if hours_needed is not None and math.isfinite(hours_needed) and hours_needed > sky.hours_requested:
-        message += f"; the goal needs {hours_needed:.1f} h with overheads ({sky.hours_requested:g} h requested)."
-    else:
-        message += f"; {need:g} h needed."
-    suggestion = None
-    if level is not Level.FEASIBLE:
-        if sky.schedule_given and hours < observable:
-            suggestion = "Ask the observatory whether the instrument can be scheduled on more nights when the target is observable."
-        elif hours_needed is not None and hours_needed > sky.hours_requested:
-            suggestion = "Lower the signal-to-noise goal or observe a brighter target; the time the goal needs is not available."
-    return Finding(
-        check="schedule",
-        level=level,
-        message=message,
-        figures={
-            "hours_observable": round(observable, 2),
-            "hours_usable": round(hours, 2),
-            "hours_usable_clear": round(clear, 2),
-            "nights_scheduled": sky.nights_scheduled,
-            "nights_usable": nights,
-            "hours_requested": sky.hours_requested,
-            "hours_needed": None if hours_needed is None or not math.isfinite(hours_needed) else round(hours_needed, 2),
-            "hours_compared": round(need, 2),
-            "time_ratio": round(clear / need, 3) if need > 0 else None,
-            "schedule_given": sky.schedule_given,
-        },
-        suggestion=suggestion,
-        method="instrument schedule nights (open, instrument mounted) intersected with the observable instants; "
-        "expected clear hours by climate.usable_night_fraction",
-    )
-
-
-def sun_safety_finding(sky: SkyMeasure) -> Finding:
-    """The sun-safety check: the closest approach to the Sun while the target is visible.
-
-    ``infeasible`` when the target is never visible farther from the Sun than the
-    telescope's limit, ``marginal`` when it comes closer than the limit plus
-    ``SUN_MARGIN_DEG`` at some visible time, or when it is never visible at night
-    and stands inside the limit (a warning against trying it in twilight or
-    daylight), else ``feasible``. A message that warns never comes with a
-    ``feasible`` level. Always defers to the observatory's own safety rules and staff.
-    """
-    limit = sky.min_sun_separation_limit_deg
-    visible = sky.total_visible
-    closest = sky.sun_separation_min_deg if visible > 0.0 else sky.sun_separation_min_all_deg
-    defer = "The observatory's own Sun-safety rules and its staff decide; follow them."
-    suggestion: str | None
-    if closest < limit and visible > 0.0:
-        level = Level.INFEASIBLE if sky.hours_sun_unsafe >= visible else Level.MARGINAL
-        message = (
-            f"WARNING: the target comes within {closest:.1f}° of the Sun while visible, closer than the telescope's "
-            f"{limit:g}° limit ({sky.hours_sun_unsafe:.1f} visible hours). {defer}"
-        )
-        suggestion = "Do not point there: observe only when the target is farther from the Sun, or choose another semester."
-    elif closest < limit:
-        # Never visible at night, yet near the Sun: anyone trying to catch it in twilight or
-        # daylight would point inside the limit, so a reviewer must see the warning.
-        level = Level.MARGINAL
-        message = (
-            f"WARNING: the target is never visible at night this semester and stands within {closest:.1f}° of the Sun "
-            f"(at local midnight), inside the telescope's {limit:g}° limit: do not try it in twilight or daylight. {defer}"
-        )
-        suggestion = "Choose a semester in which the target is up at night, far from the Sun."
-    elif closest < limit + SUN_MARGIN_DEG:
-        level = Level.MARGINAL if visible > 0.0 else Level.FEASIBLE
-        when = "while visible" if visible > 0.0 else "at local midnight over the semester (never visible)"
-        message = f"The target comes within {closest:.1f}° of the Sun {when}, near the telescope's {limit:g}° limit. {defer}"
-        suggestion = "Plan the observation for when the target is farthest from the Sun."
-    else:
-        level = Level.FEASIBLE
-        when = "while visible" if visible > 0.0 else "at local midnight over the semester (never visible)"
-        message = f"Closest approach to the Sun {when}: {closest:.1f}° (limit {limit:g}°)."
-        suggestion = None
-    return Finding(
-        check="sun-safety",
-        level=level,
-        message=message,
-        figures={
-            "sun_separation_min_deg": round(closest, 2),
-            "sun_separation_min_semester_deg": round(sky.sun_separation_min_all_deg, 2),
-            "min_sun_separation_deg": limit,
-            "hours_closer_than_limit": round(sky.hours_sun_unsafe, 2),
-        },
-        suggestion=suggestion,
-        method="angular distance to the Sun's geocentric direction at each night's local midnight (ERFA epv00), "
-        "over the target's visible instants; the Sun moves under 0.6 deg in a night",
-    )
-
-
-@functools.lru_cache(maxsize=16)
-def _visibility_method(step_minutes: float) -> str:
-    """The visibility finding's method text (formatted once per grid step)."""
-    return (
-        _GRID_METHOD.format(step=step_minutes)
-        + "; airmass Kasten & Young (1989); twilight: Sun's centre at -6/-12/-18 deg (U.S. Naval Observatory); "
-        "expected clear hours weight each night by climate.usable_night_fraction of its month"
     )
 
 
@@ -543,48 +354,8 @@ def _moon_illumination_limit(request: ObservationRequest) -> float:
     constraints = request.constraints
     limit = 1.0 if constraints.max_moon_illumination is None else constraints.max_moon_illumination
     if constraints.sky is not None:
-        limit = min(limit, _SKY_LIMIT[constraints.sky])
+        limit = min(limit, SKY_ILLUMINATION[constraints.sky])
     return limit
-
-
-def _clear_below_horizon_profile(
-    observatory: Observatory,
-    view: NightSamples,
-    vector: NDArray[np.float64],
-    visible: NDArray[np.bool_],
-    sin_alt: NDArray[np.float64],
-    min_alt: float,
-) -> None:
-    """Clear in ``visible`` the instants below the site's horizon profile (linear in azimuth, wrapping at 360°).
-
-    Only instants lower than the profile's highest point need their azimuth, so
-    with the usual airmass limits the profile costs nothing.
-    """
-    horizon = observatory.site.horizon
-    top = max(p.altitude_deg for p in horizon)
-    if top <= min_alt:
-        return
-    low = np.flatnonzero(visible & (sin_alt < math.sin(math.radians(top))))
-    if not low.size:
-        return
-    points = sorted(horizon, key=lambda p: p.azimuth_deg)
-    azimuth = np.degrees(np.arctan2(np.take(view.east, low, axis=0) @ vector, np.take(view.north, low, axis=0) @ vector))
-    floor = np.interp(azimuth % 360.0, [p.azimuth_deg for p in points], [p.altitude_deg for p in points], period=360.0)
-    visible[low[np.degrees(np.arcsin(sin_alt[low])) < floor]] = False
-
-
-def _in_windows(request: ObservationRequest, mjd: NDArray[np.float64]) -> NDArray[np.bool_]:
-    """Which of the instants ``mjd`` (in time order) fall inside any of the request's time windows."""
-    inside = np.zeros(mjd.size, dtype=bool)
-    for window in request.windows:
-        first = np.searchsorted(mjd, _mjd(window.start), side="left")  # first instant at or after the start
-        stop = np.searchsorted(mjd, _mjd(window.end), side="right")  # first instant after the end
-        inside[first:stop] = True
-    return inside
-
-
-def _mjd(moment: datetime) -> float:
-    return moment.astimezone(timezone.utc).timestamp() / 86400.0 + _MJD_UNIX_EPOCH
 
 
 def _night_curve(
@@ -613,3 +384,8 @@ def _night_curve(
         **{name: list(shared[name]) for name in ("hours_from_midnight", "moon_alt_deg", "sun_alt_deg")},  # type: ignore[call-overload]
         "target_alt_deg": np.degrees(np.arcsin(np.minimum(np.maximum(up, -1.0), 1.0))).round(2).tolist(),
     }
+
+
+def _in_windows(request: ObservationRequest, mjd: NDArray[np.float64]) -> NDArray[np.bool_]:
+    """Which of the instants ``mjd`` fall inside the request's time windows (:func:`sky_masks.in_windows`)."""
+    return in_windows(request.windows, mjd)

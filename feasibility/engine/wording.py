@@ -10,18 +10,26 @@ from __future__ import annotations
 import math
 
 __all__ = [
-    "airmass", "arcsec", "count", "degrees", "hours", "magnitude", "nanometres", "percentile", "pixels", "ratio", "seconds", "snr",
+    "airmass", "arcsec", "count", "degrees", "fraction", "hours", "magnitude", "nanometres", "percent", "percentile",
+    "pixels", "ratio", "seconds", "snr",
 ]
 
 
 def hours(value: float) -> str:
-    """Hours: one decimal below 100 h, whole hours up to 10,000 h, thousands separated above ("1.5 h", "236 h", "47,250 h")."""
+    """Hours: one decimal below 100 h, whole hours above, thousands separated ("1.5 h", "236 h", "47,250 h").
+
+    From 10,000 h the figure keeps four significant digits (201,812 h reads "201,800 h"), so a
+    quantity reads the same whether it is formatted from the exact value or from the figure
+    stored with four significant digits in a result.
+    """
     if not math.isfinite(value):
         return "unbounded h" if value > 0 else "– h"
     if abs(value) < 0.05 and value != 0:
         return f"{value * 60:.0f} min"
     if abs(value) < 100:
         return f"{value:.1f} h"
+    if abs(value) >= 10_000:
+        value = float(f"{value:.4g}")
     return f"{value:,.0f} h"
 
 
@@ -71,11 +79,14 @@ def ratio(value: float) -> str:
     return f"{value:.2g}×" if abs(value) < 10 else f"{value:.0f}×"
 
 
-def count(value: float) -> str:
-    """Whole quantities (electrons, ADU, resolving power): thousands separated, "104,856"."""
+def count(value: float, noun: str | None = None) -> str:
+    """Whole quantities, thousands separated ("104,856"); with a noun, counted: "1 night", "12 nights"."""
     if not math.isfinite(value):
-        return "–"
-    return f"{value:,.0f}"
+        return "–" if noun is None else f"– {noun}s"
+    text = f"{value:,.0f}"
+    if noun is None:
+        return text
+    return f"{text} {noun}" if value == 1 else f"{text} {noun}s"
 
 
 def pixels(value: float) -> str:
@@ -90,3 +101,15 @@ def percentile(value: float) -> str:
     if whole is not None and whole % 100 not in (11, 12, 13) and whole % 10 in (1, 2, 3):
         return f"{text}{ {1: 'st', 2: 'nd', 3: 'rd'}[whole % 10]} percentile"
     return f"{text}th percentile"
+
+
+def fraction(value: float) -> str:
+    """A fraction between 0 and 1 (the Moon's illumination, a share of nights), two decimals: "0.30"."""
+    return f"{value:.2f}"
+
+
+def percent(value: float) -> str:
+    """A share in per cent, whole numbers ("26 %"), "under 1 %" for a small non-zero share."""
+    if 0.0 < value < 0.005:
+        return "under 1 %"
+    return f"{100 * value:.0f} %"

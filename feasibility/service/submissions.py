@@ -17,7 +17,7 @@ from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.orm import Session
 
 from feasibility.documents import Proposal, parse_document
-from feasibility.documents.consistency import proposal_problems
+from feasibility.documents.problems import read_proposal
 from feasibility.documents.loading import DocumentError, Problem
 from feasibility.service.current import current_observatory, current_schedule, observatory_of
 from feasibility.service.engine_version import engine_version
@@ -68,13 +68,12 @@ def submit(
     """
     if submitted_by is not None and submitted_by.role not in ("proposer", "portal", "admin"):
         raise NotAllowed(f"the role {submitted_by.role!r} may not submit proposals")
-    proposal = parse_document(Proposal, document, "proposal")
     observatory_row = current_observatory(session)
     if observatory_row is None:
+        parse_document(Proposal, document, "proposal")  # a bad document is named first
         raise DocumentError([Problem("", "the service has no observatory description yet")], "proposal")
-    problems = proposal_problems(proposal, observatory_of(observatory_row))
-    if problems:
-        raise DocumentError(problems, "proposal")
+    # Schema and observatory problems in one answer (documents.problems).
+    proposal = read_proposal(document, observatory_of(observatory_row), "proposal")
     if owner is None and submitted_by is not None and submitted_by.role == "proposer":
         owner = submitted_by
 

@@ -265,3 +265,26 @@ def test_schedule_of_another_observatory_exits_2(tmp_path: Path) -> None:
     )
     assert result.exit_code == 2
     assert "observatory" in result.stderr and "Some Other Observatory" in result.stderr
+
+
+def test_every_problem_of_the_proposal_at_once(tmp_path: Path) -> None:
+    # Schema (declination 95) and observatory (unknown filter) problems in one answer, one line each.
+    document = _changed(**{"target.dec": 95, "setup.filter": "Halpha", "constraints": {"sky": "dark", "max_moon_illumination": 0.5}})
+    result = _invoke("check", str(_write(tmp_path / "p.yaml", document)))
+    assert result.exit_code == 2
+    lines = [line for line in result.stderr.splitlines() if line.strip()]
+    assert any("requests[0].target.dec" in line and "between -90 and +90" in line for line in lines)
+    assert any("requests[0].setup.filter" in line and "Halpha" in line for line in lines)
+    assert any("requests[0].constraints.max_moon_illumination" in line for line in lines)
+    assert len(lines) == 3, lines
+
+
+def test_problems_of_proposal_and_observatory_together(tmp_path: Path) -> None:
+    observatory = yaml.safe_load((files("feasibility") / "data" / "observatory.yaml").read_text(encoding="utf-8"))
+    observatory["site"]["horizon"] = [{"azimuth_deg": 0, "altitude_deg": 40}, {"azimuth_deg": 360, "altitude_deg": 5}]
+    result = _invoke(
+        "check", str(_write(tmp_path / "p.yaml", _changed(**{"target.dec": 95}))),
+        "--observatory", str(_write(tmp_path / "o.yaml", observatory)),
+    )
+    assert result.exit_code == 2
+    assert "site.horizon" in result.stderr and "requests[0].target.dec" in result.stderr

@@ -78,10 +78,10 @@ def test_yaml_and_json_text_are_both_read() -> None:
         (("target", "dec"), 95, "requests[0].target.dec", "between -90 and +90"),
         (("target", "ra"), "25:00:00", "requests[0].target.ra", "range [0,24)"),
         (("target", "ra"), "not an angle", "requests[0].target.ra", "cannot read"),
-        (("brightness", "error"), -0.1, "requests[0].brightness.error", "greater than or equal to 0"),
+        (("brightness", "error"), -0.1, "requests[0].brightness.error", "must be at least 0 and at most 5; got -0.1"),
         (("brightness", "system"), "st", "requests[0].brightness.system", "'vega' or 'ab'"),
-        (("hours_requested",), 0, "requests[0].hours_requested", "greater than 0"),
-        (("constraints",), {"max_airmass": 0.5}, "requests[0].constraints.max_airmass", "greater than or equal to 1"),
+        (("hours_requested",), 0, "requests[0].hours_requested", "hours requested must be more than 0 and at most 2000; got 0"),
+        (("constraints",), {"max_airmass": 0.5}, "requests[0].constraints.max_airmass", "max airmass must be at least 1 and at most 6; got 0.5"),
         (("goal",), {"snr": 10, "exposure_time_s": 100}, "requests[0].goal", "exactly one"),
         (("windows",), [{"start": "2027-05-02T00:00", "end": "2027-05-01T00:00"}], "requests[0].windows[0]", "after"),
     ],
@@ -103,7 +103,9 @@ def test_missing_and_unknown_fields_are_named() -> None:
     data["requests"][0]["colour"] = "red"
     problems = problems_of(data)
     assert problems["pi.email"] == "is required"
-    assert problems["requests[0].colour"] == "is not a known field"
+    assert problems["requests[0].colour"] == (
+        "is not a known field (known: label, target, instrument, setup, brightness, goal, hours_requested, constraints, windows)"
+    )
 
 
 def test_malformed_text_is_a_document_error_not_a_crash() -> None:

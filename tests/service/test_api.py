@@ -221,3 +221,18 @@ def test_proposals_without_an_owner_cannot_be_taken_over(app: Flask, client: Fla
     assert client.post("/api/v1/proposals", json=proposal("CLI-1", hours=9), headers=auth(make_token("proposer"))).status_code == 403
     assert client.post("/api/v1/proposals", json=proposal("CLI-1", hours=9), headers=auth(make_token("portal"))).status_code == 403
     assert client.post("/api/v1/proposals", json=proposal("CLI-1", hours=9), headers=auth(make_token("admin"))).status_code == 202
+
+
+def test_schema_and_observatory_problems_come_in_one_answer(app: Flask, client: FlaskClient, make_token: Callable[..., str]) -> None:
+    token = make_token("proposer")
+    bad = proposal("P-ALL")
+    bad["requests"][0]["target"]["dec"] = 95  # declinations lie within ±90 degrees (definition)
+    bad["requests"][0]["setup"]["filter"] = "Halpha"  # the demo imager has no such filter
+    bad["requests"][0]["hours_requsted"] = 3  # misspelt
+    answer = client.post("/api/v1/proposals", json=bad, headers=auth(token))
+    assert answer.status_code == 422
+    problems = {p["field"]: p["problem"] for p in answer.json["problems"]}
+    assert "between -90 and +90" in problems["requests[0].target.dec"]
+    assert "no filter 'Halpha'" in problems["requests[0].setup.filter"]
+    assert problems["requests[0].hours_requsted"] == "is not a known field; did you mean 'hours_requested'?"
+    assert _count(app, ProposalVersion) == 0
