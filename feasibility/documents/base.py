@@ -9,7 +9,9 @@
   and e-mail addresses are one line. Free-text fields a model lists in ``multiline_fields``
   (the proposal's title, a schedule night's note) may also hold tabs and line breaks.
 
-The checks run after each field's own validation, so the error names the field.
+The checks run after each field's own validation (so the error names the field) and
+so after surrounding whitespace is stripped: a vertical tab or NEL at either end of a
+name is whitespace that is dropped, never stored.
 """
 
 from __future__ import annotations
