@@ -24,9 +24,16 @@ from importlib import resources
 from typing import Any
 
 import yaml
+from hypothesis import HealthCheck, settings
 from hypothesis import strategies as st
 
-__all__ = ["BASES", "ENCODINGS", "ordinary_values", "poisoned"]
+__all__ = ["BASES", "ENCODINGS", "fuzz", "ordinary_values", "poisoned"]
+
+
+def fuzz(examples: int) -> settings:
+    """Reproducible runs (derandomized, no example database), no time limit per example; fixtures shared by the examples."""
+    return settings(max_examples=examples, derandomize=True, database=None, deadline=None,
+                    suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large, HealthCheck.function_scoped_fixture])
 
 
 def _demo(path: str) -> dict[str, Any]:

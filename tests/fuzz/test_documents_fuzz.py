@@ -14,22 +14,16 @@ import json
 from typing import Any
 
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import given
 from hypothesis import strategies as st
 
 from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, parse_document
 from feasibility.documents.problems import MAX_FIELD_CHARS, MAX_MESSAGE_CHARS, MAX_PROBLEMS
 
 from . import tally
-from .mutations import BASES, ENCODINGS, ordinary_values, poisoned
+from .mutations import BASES, ENCODINGS, fuzz, ordinary_values, poisoned
 
 MODELS: dict[str, type] = {"proposal": Proposal, "observatory": Observatory, "schedule": InstrumentSchedule}
-def fuzz(examples: int) -> settings:
-    """Reproducible runs (derandomized, no example database), no time limit per example."""
-    return settings(max_examples=examples, derandomize=True, database=None, deadline=None,
-                    suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large, HealthCheck.function_scoped_fixture])
-
-
 def assert_well_formed(error: DocumentError) -> None:
     """At most MAX_PROBLEMS problems plus one counting line; each one line, bounded, naming a field or the document."""
     assert 1 <= len(error.problems) <= MAX_PROBLEMS + 1
