@@ -82,11 +82,17 @@ def read_data(text: str | bytes, document: str = "document", *, max_values: int 
         except UnicodeDecodeError:
             raise UnreadableDocument([Problem("", "is not UTF-8 text")], document) from None
     try:
+        deep = False
         if text.lstrip()[:1] in ("{", "["):
-            data, ok = _read_json(text, max_values)
+            data, ok, deep = _read_json(text, max_values)
             if ok:
                 return data
-        return _read_yaml(text, max_values)
+        try:
+            return _read_yaml(text, max_values)
+        except _Refused:
+            if deep:  # libyaml stops at its own depth limit before the event scan can: say why
+                raise _Refused(_too_deep()) from None
+            raise
     except _Refused as refusal:
         raise UnreadableDocument([Problem("", str(refusal))], document) from None
 
@@ -119,21 +125,24 @@ _JSON_STRING = re.compile(r'"(?:[^"\\]++|\\[\s\S]?)*+(?:"|\Z)')
 _NOT_BRACKET = re.compile(r"[^\[\]{}]++")
 
 
-def _read_json(text: str, max_values: int) -> tuple[Any, bool]:
-    """``(data, True)``, or ``(None, False)`` when the text is not JSON (perhaps YAML in flow style)."""
+def _read_json(text: str, max_values: int) -> tuple[Any, bool, bool]:
+    """``(data, True, False)``; or ``(None, False, too_deep)`` when the text is not JSON within the depth bound.
+
+    Text that is not JSON may be YAML in flow style: the YAML reader decides then.
+    """
     skeleton = _JSON_STRING.sub("", text)
     brackets = _NOT_BRACKET.sub("", skeleton).encode("ascii")
     if brackets:
         codes = np.frombuffer(brackets, dtype=np.uint8)
         steps = np.where((codes == ord("[")) | (codes == ord("{")), 1, -1)
         if int(np.cumsum(steps).max()) > MAX_DEPTH:
-            return None, False  # let the YAML reader measure the depth exactly and say so
+            return None, False, True  # the YAML reader measures the depth exactly (brackets in '...' strings)
     if skeleton.count(",") + len(brackets) // 2 + 1 > max_values:
         raise _Refused(_too_many(max_values))
     try:
-        return json.loads(text, parse_int=_json_int, parse_float=_json_float, parse_constant=_json_constant), True
+        return json.loads(text, parse_int=_json_int, parse_float=_json_float, parse_constant=_json_constant), True, False
     except ValueError:
-        return None, False
+        return None, False, False
 
 
 def _json_int(literal: str) -> int:
