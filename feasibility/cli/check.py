@@ -17,7 +17,8 @@ from pydantic import BaseModel
 from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, load_document, parse_document
 from feasibility.documents.consistency import schedule_problems
 from feasibility.documents.loading import Problem, json_schema
-from feasibility.documents.problems import read_proposal
+from feasibility.documents.proposal_problems import read_proposal
+from feasibility.documents.reading import read_file
 
 __all__ = ["register"]
 
@@ -97,7 +98,7 @@ def _load_inputs(
     """Read and cross-check the documents; raise :class:`DocumentError` naming every problem of every document.
 
     The proposal's schema problems and its misfits with the observatory come in one
-    answer (:func:`feasibility.documents.problems.read_proposal`), with the
+    answer (:func:`feasibility.documents.proposal_problems.read_proposal`), with the
     observatory's and the schedule's problems beside them.
     """
     errors: list[DocumentError] = []
@@ -115,7 +116,7 @@ def _load_inputs(
         if observatory is None:
             proposal = load_document(Proposal, proposal_path)
         else:
-            proposal = read_proposal(_read_bytes(proposal_path), observatory, str(proposal_path))
+            proposal = read_proposal(read_file(proposal_path), observatory, str(proposal_path))
     except DocumentError as error:
         errors.append(error)
 
@@ -160,13 +161,6 @@ class _Errors(DocumentError):
 
     def describe(self) -> str:
         return "\n".join(error.describe() for error in self.errors)
-
-
-def _read_bytes(path: Path) -> bytes:
-    try:
-        return path.read_bytes()
-    except OSError as exc:
-        raise DocumentError([Problem("", f"cannot read {path}: {exc.strerror or exc}")], str(path)) from None
 
 
 def _demo_files(directory: Path) -> dict[Path, Traversable]:

@@ -116,13 +116,14 @@ def notices_send(as_json: bool) -> None:
 
 
 def _upload(action: Any, path: Path, document: str, as_json: bool, wait_s: float | None) -> None:
-    from feasibility.documents.loading import DocumentError, Problem
+    from feasibility.documents.loading import DocumentError
+    from feasibility.documents.reading import read_file
     from feasibility.store.db import session_scope
 
     try:
-        data = path.read_bytes()
-    except OSError as exc:
-        _bad(DocumentError([Problem("", f"cannot read {path}: {exc.strerror or exc}")], str(path)))
+        data = read_file(path)  # at most the size limit: /dev/zero is refused, not read
+    except DocumentError as error:
+        _bad(error)
     app = _app()
     with app.app_context():
         try:

@@ -36,7 +36,10 @@ def _parse(value: object, default_unit: str) -> float:
     if isinstance(value, bool):
         raise ValueError("expected an angle, got a boolean")
     if isinstance(value, (int, float)):
-        number = float(value)
+        try:
+            number = float(value)
+        except OverflowError:  # an integer beyond any float
+            raise ValueError("angle is out of range") from None
     elif isinstance(value, str):
         number = _parse_string(value.strip(), default_unit)
     else:

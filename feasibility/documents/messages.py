@@ -132,7 +132,7 @@ def _shown(value: object) -> str:
     if isinstance(value, str):
         return repr(value if len(value) <= 60 else value[:57] + "...")
     if isinstance(value, (int, float)) and not isinstance(value, bool):
-        return f"{value:g}"
+        return _number(value)
     return _kind_of(value)
 
 
@@ -146,11 +146,15 @@ def _kind_of(value: object) -> str:
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, (int, float)):
-        return f"{value:g}"
+        return _number(value)
     return f"a {type(value).__name__}"
 
 
 def _number(value: object) -> str:
+    """A number as written in a message; an integer too large for a float is described by its length."""
+    if isinstance(value, int) and abs(value) >= 10**15:
+        # From the bit length: str() of a Python int over 4300 digits raises, and a mapping handed in needs no reader.
+        return f"a number of about {int(abs(value).bit_length() * 0.30103) + 1} digits"
     return f"{value:g}" if isinstance(value, (int, float)) else str(value)
 
 

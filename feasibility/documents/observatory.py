@@ -9,7 +9,9 @@ from __future__ import annotations
 from datetime import date
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import Field, field_validator, model_validator
+
+from feasibility.documents.base import DocumentModel
 
 __all__ = [
     "Band",
@@ -33,8 +35,8 @@ __all__ = [
 TWILIGHT_SUN_ALTITUDE_DEG: dict[str, float] = {"civil": -6.0, "nautical": -12.0, "astronomical": -18.0}
 
 
-class _Part(BaseModel):
-    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True)
+class _Part(DocumentModel):
+    """Base of every part: unknown fields are errors, numbers finite, text printable (see documents.base)."""
 
 
 class HorizonPoint(_Part):

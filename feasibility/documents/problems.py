@@ -1,85 +1,92 @@
-"""Every problem of a proposal in one answer: its schema, and its fit to the observatory, together.
+"""What is wrong with a document: problems that name the field path, bounded in number and length.
 
-Validation alone stops at the schema: a proposal with a declination of 95° and
-an unknown filter would report only the declination, then the filter on the
-next try. :func:`read_proposal` validates the document and, whatever the schema
-says, checks against the observatory every part that did validate on its own
-(the semester, each request's instrument, setup, band, constraints and time
-windows), so one answer names every problem.
+A hostile document must not be able to make a huge answer or print control
+characters to a terminal: every problem is one line of at most a few hundred
+characters, with control characters shown as escapes, and a :class:`DocumentError`
+keeps only the first :data:`MAX_PROBLEMS` problems plus a line counting the rest.
 """
 
 from __future__ import annotations
 
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import Any
 
-from pydantic import BaseModel, ValidationError
+__all__ = [
+    "MAX_PROBLEMS",
+    "DocumentError",
+    "DocumentTooLarge",
+    "Problem",
+    "UnreadableDocument",
+    "printable",
+]
 
-from feasibility.documents.consistency import constraint_problems, proposal_problems, request_problems, window_problems
-from feasibility.documents.loading import DocumentError, Problem, parse_document, read_mapping
-from feasibility.documents.observatory import Observatory
-from feasibility.documents.proposal import Constraints, Proposal, Setup, TimeWindow
+#: Most problems listed for one document; the rest are counted on one more line.
+MAX_PROBLEMS = 50
+#: Longest field path and problem text kept, in characters (a longer one is cut with an ellipsis).
+MAX_FIELD_CHARS = 200
+MAX_MESSAGE_CHARS = 300
 
-__all__ = ["proposal_document_problems", "read_proposal"]
-
-
-def read_proposal(data: dict[str, Any] | str | bytes, observatory: Observatory, document: str = "proposal") -> Proposal:
-    """The proposal in ``data``, or :class:`DocumentError` naming every problem: schema and observatory alike."""
-    if not isinstance(data, dict):
-        data = read_mapping(data, document)
-    try:
-        proposal = parse_document(Proposal, data, document)
-    except DocumentError as error:
-        problems = error.problems + _raw_problems(data, observatory, {p.field for p in error.problems})
-        raise DocumentError(problems, document) from None
-    problems = proposal_problems(proposal, observatory)
-    if problems:
-        raise DocumentError(problems, document)
-    return proposal
+#: Unicode control characters (C0, DEL, C1) and lone surrogates: never printed as they are.
+_UNPRINTABLE = re.compile(r"[\x00-\x1f\x7f-\x9f\ud800-\udfff]")
 
 
-def proposal_document_problems(data: dict[str, Any], observatory: Observatory) -> list[Problem]:
-    """Every problem of the proposal document ``data`` (empty when it is good to check)."""
-    try:
-        read_proposal(data, observatory)
-    except DocumentError as error:
-        return error.problems
-    return []
+def printable(text: str, limit: int | None = None) -> str:
+    """``text`` on one line: control characters as escapes (``\\x00``, ``\\n``), cut to ``limit`` characters."""
+    text = _UNPRINTABLE.sub(_escape, text)
+    if limit is not None and len(text) > limit:
+        text = text[: limit - 1] + "…"
+    return text
 
 
-def _raw_problems(data: dict[str, Any], observatory: Observatory, reported: set[str]) -> list[Problem]:
-    """The observatory checks on the parts of a proposal that failed validation elsewhere."""
-    problems: list[Problem] = []
-    name = data.get("semester")
-    semester = observatory.semester_named(name) if isinstance(name, str) else None
-    if isinstance(name, str) and semester is None:
-        known = ", ".join(s.name for s in observatory.semesters)
-        problems.append(Problem("semester", f"{name!r} is not a semester of {observatory.name} (known: {known})"))
-    requests = data.get("requests")
-    if not isinstance(requests, list):
-        return problems
-    for i, raw in enumerate(requests):
-        if not isinstance(raw, dict):
-            continue
-        where = f"requests[{i}]"
-        instrument, brightness = raw.get("instrument"), raw.get("brightness")
-        band = brightness.get("band") if isinstance(brightness, dict) else None
-        if isinstance(instrument, str) and instrument.strip() and isinstance(band, str) and band.strip():
-            setup = _part(Setup, raw.get("setup", {}))
-            problems.extend(request_problems(where, instrument.strip(), setup, band.strip(), observatory))
-        constraints = _part(Constraints, raw.get("constraints", {}))
-        if constraints is not None:
-            problems.extend(constraint_problems(f"{where}.constraints", constraints))
-        windows = raw.get("windows")
-        if semester is not None and isinstance(windows, list):
-            parts = [_part(TimeWindow, item) for item in windows]
-            if all(part is not None for part in parts):
-                problems.extend(window_problems(f"{where}.windows", parts, observatory, semester))  # type: ignore[arg-type]
-    return [p for p in problems if p.field not in reported]
+def _escape(match: re.Match[str]) -> str:
+    return repr(match.group())[1:-1]
 
 
-def _part(model: type[BaseModel], data: object) -> Any:
-    """``data`` validated as ``model``, or None when it does not validate (its problems are reported already)."""
-    try:
-        return model.model_validate(data)
-    except ValidationError:
-        return None
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong with a document: where (a field path such as ``requests[0].target.dec``) and what."""
+
+    field: str
+    message: str
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "field", printable(str(self.field), MAX_FIELD_CHARS))
+        object.__setattr__(self, "message", printable(str(self.message), MAX_MESSAGE_CHARS))
+
+    def as_dict(self) -> dict[str, str]:
+        return {"field": self.field, "problem": self.message}
+
+
+class DocumentError(ValueError):
+    """A document that cannot be used, with the problems found (the first :data:`MAX_PROBLEMS`, and a count of the rest)."""
+
+    def __init__(self, problems: Sequence[Problem], document: str = "document", *, total: int | None = None) -> None:
+        problems = list(problems)
+        self.total = max(total or 0, len(problems))
+        if self.total > MAX_PROBLEMS:
+            more = self.total - MAX_PROBLEMS
+            problems = problems[:MAX_PROBLEMS] + [Problem("", f"and {more} more problems (only the first {MAX_PROBLEMS} are listed)")]
+        self.problems = problems
+        self.document = printable(str(document), MAX_FIELD_CHARS)
+        super().__init__(self.describe())
+
+    def describe(self) -> str:
+        """Every problem on a line of its own, field path first."""
+        lines = [f"{self.document}: {p.field}: {p.message}" if p.field else f"{self.document}: {p.message}" for p in self.problems]
+        return "\n".join(lines)
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"error": "invalid document", "document": self.document, "problems": [p.as_dict() for p in self.problems]}
+
+
+class UnreadableDocument(DocumentError):
+    """Text that is not a document at all: not UTF-8, not JSON or YAML, nested too deep, numbers out of bounds."""
+
+
+class DocumentTooLarge(UnreadableDocument):
+    """A document over the size limit (HTTP 413 Content Too Large)."""
+
+    def __init__(self, limit: int, document: str = "document") -> None:
+        super().__init__([Problem("", f"is larger than the limit of {limit} bytes")], document)

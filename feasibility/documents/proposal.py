@@ -3,11 +3,10 @@
 from __future__ import annotations
 
 from datetime import datetime, timezone
-from typing import Annotated, Literal
+from typing import Annotated, ClassVar, Literal
 
 from pydantic import (
     AfterValidator,
-    BaseModel,
     BeforeValidator,
     ConfigDict,
     Field,
@@ -16,6 +15,7 @@ from pydantic import (
 )
 
 from feasibility.documents.angles import parse_declination, parse_right_ascension
+from feasibility.documents.base import DocumentModel
 
 __all__ = [
     "SKY_ILLUMINATION",
@@ -35,7 +35,10 @@ def _utc(value: datetime) -> datetime:
     """Read naive times as UTC and keep every time timezone-aware."""
     if value.tzinfo is None:
         return value.replace(tzinfo=timezone.utc)
-    return value.astimezone(timezone.utc)
+    try:
+        return value.astimezone(timezone.utc)
+    except OverflowError:  # e.g. 9999-12-31T23:00-05:00 is in the year 10000 in UTC
+        raise ValueError("lies outside the years 1 to 9999 once converted to UTC") from None
 
 
 UtcDatetime = Annotated[datetime, AfterValidator(_utc)]
@@ -43,10 +46,8 @@ RightAscension = Annotated[float, BeforeValidator(parse_right_ascension)]
 Declination = Annotated[float, BeforeValidator(parse_declination)]
 
 
-class _Document(BaseModel):
-    """Base of every document part: unknown fields are errors, not silently dropped."""
-
-    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True)
+class _Document(DocumentModel):
+    """Base of every document part: unknown fields are errors, numbers finite, text printable (see documents.base)."""
 
 
 class Person(_Document):
@@ -161,6 +162,8 @@ class ObservationRequest(_Document):
 
 class Proposal(_Document):
     """What a proposer submits for one semester."""
+
+    multiline_fields: ClassVar[frozenset[str]] = frozenset({"title"})  # a long title may be wrapped over lines
 
     id: str = Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
     semester: str = Field(min_length=1, max_length=20)

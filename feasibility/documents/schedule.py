@@ -3,17 +3,19 @@
 from __future__ import annotations
 
 from datetime import date
-from typing import Literal
+from typing import ClassVar, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import Field, field_validator, model_validator
+
+from feasibility.documents.base import DocumentModel
 
 __all__ = ["InstrumentSchedule", "ScheduledNight"]
 
 
-class ScheduledNight(BaseModel):
+class ScheduledNight(DocumentModel):
     """One night (named by the local date on which it begins)."""
 
-    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True)
+    multiline_fields: ClassVar[frozenset[str]] = frozenset({"note"})
 
     night: date
     instrument: str | None = Field(default=None, min_length=1)
@@ -27,10 +29,8 @@ class ScheduledNight(BaseModel):
         return self
 
 
-class InstrumentSchedule(BaseModel):
+class InstrumentSchedule(DocumentModel):
     """The schedule of one semester. Nights not listed are closed."""
-
-    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True)
 
     observatory: str = Field(min_length=1)
     semester: str = Field(min_length=1, max_length=20)

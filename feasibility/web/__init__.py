@@ -16,6 +16,7 @@ from flask import Flask, request
 from sqlalchemy.exc import OperationalError, ProgrammingError
 from werkzeug.exceptions import HTTPException
 
+from feasibility.documents.reading import MAX_DOCUMENT_BYTES
 from feasibility.store import db
 
 __all__ = ["create_app"]
@@ -42,7 +43,7 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         SWEEP_INTERVAL_S=30,
         RUN_TIMEOUT_S=900,
         QUEUED_TIMEOUT_S=600,
-        MAX_CONTENT_LENGTH=8 * 1024 * 1024,
+        MAX_CONTENT_LENGTH=MAX_DOCUMENT_BYTES,  # the documents' own limit: the API, the pages and the CLI agree
         MAX_BULK=500,
         MAX_WAIT_S=30,
         SEED_DEMO=True,

@@ -17,7 +17,7 @@ from flask import Blueprint, abort, current_app, request
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from feasibility.documents.loading import DocumentError, Problem
+from feasibility.documents.loading import DocumentError, DocumentTooLarge, Problem
 from feasibility.service.current import current_observatory, current_schedule, schedule_of
 from feasibility.service.rechecks import (
     DEFAULT_STALE_DAYS,
@@ -34,6 +34,7 @@ from feasibility.store import queries
 from feasibility.store.db import session_scope
 from feasibility.store.models import ProposalRecord, ScheduleVersion, User, VerdictChange
 from feasibility.web.auth import current_user, require_role
+from feasibility.web.bodies import read_request_data, request_body
 
 __all__ = ["OPENAPI_PATHS", "bp", "change_json", "changes_since"]
 
@@ -41,11 +42,13 @@ bp = Blueprint("admin_api", __name__, url_prefix="/api/v1")
 
 #: Most changes returned by one request.
 MAX_CHANGES = 1000
+#: Longest ``stale_days`` of a re-check request (a century; a larger number overflows a time span).
+_MAX_STALE_DAYS = 36_525
 
 
 @bp.errorhandler(DocumentError)
 def _invalid(error: DocumentError) -> tuple[dict[str, Any], int]:
-    status = 400 if error.document == "query" else 422
+    status = 400 if error.document == "query" else 413 if isinstance(error, DocumentTooLarge) else 422
     return error.as_dict(), status
 
 
@@ -53,7 +56,7 @@ def _invalid(error: DocumentError) -> tuple[dict[str, Any], int]:
 @require_role("admin")
 def post_schedule() -> tuple[dict[str, Any], int]:
     """Upload an instrument schedule (JSON or YAML). 201 with the new version, its changes and the re-checks queued."""
-    return _upload(upload_schedule)
+    return _upload(upload_schedule, "schedule")
 
 
 @bp.get("/schedules/<semester>")
@@ -108,7 +111,7 @@ def compare_schedule_versions(semester: str) -> dict[str, Any]:
 @require_role("admin")
 def post_observatory() -> tuple[dict[str, Any], int]:
     """Upload an observatory description. 201 with the new version and the re-checks of every proposal queued."""
-    return _upload(upload_observatory)
+    return _upload(upload_observatory, "observatory")
 
 
 @bp.get("/observatory")
@@ -129,13 +132,13 @@ def post_rechecks() -> dict[str, Any]:
 
     Optional JSON body: ``{"changed_since": ISO time, "stale_days": N}``.
     """
-    body = request.get_json(silent=True) or {}
+    body = _small_json() or {}
     if not isinstance(body, dict):
         raise DocumentError([Problem("", "must be a JSON object")], "query")
     since = _parse_time(body.get("changed_since"), "changed_since")
     stale_days = body.get("stale_days", current_app.config.get("STALE_DAYS", DEFAULT_STALE_DAYS))
-    if isinstance(stale_days, bool) or not isinstance(stale_days, (int, float)) or stale_days <= 0:
-        raise DocumentError([Problem("stale_days", "must be a positive number of days")], "query")
+    if isinstance(stale_days, bool) or not isinstance(stale_days, (int, float)) or not 0 < stale_days <= _MAX_STALE_DAYS:
+        raise DocumentError([Problem("stale_days", f"must be a positive number of days, at most {_MAX_STALE_DAYS}")], "query")
     with session_scope() as session:
         plan = plan_rechecks(session, changed_since=since, stale_after=timedelta(days=float(stale_days)))
     dispatch_plan(plan)
@@ -159,7 +162,7 @@ def list_changes() -> dict[str, Any]:
 @require_role("admin")
 def put_webhook(name: str) -> dict[str, Any]:
     """Set a portal user's webhook address and shared secret: ``{"url": ..., "secret": ...}``."""
-    body = request.get_json(silent=True)
+    body = _small_json()
     if not isinstance(body, dict):
         raise DocumentError([Problem("", "send a JSON object with 'url' and 'secret'")], "webhook")
     problems = []
@@ -224,15 +227,24 @@ def change_json(change: VerdictChange, record: ProposalRecord) -> dict[str, Any]
     }
 
 
-def _upload(action: Any) -> tuple[dict[str, Any], int]:
+def _upload(action: Any, document: str) -> tuple[dict[str, Any], int]:
     """Validate and store the uploaded document; queue its re-checks once committed."""
-    data = request.get_data(cache=False)
+    data = request_body(document)  # over MAX_CONTENT_LENGTH: a 413 in the documents' error shape
     user = current_user()
     with session_scope() as session:
         outcome = action(session, data, session.merge(user, load=False) if user is not None else None)
         answer = outcome.as_dict()
     dispatch_plan(outcome.plan)  # only now: the runs are committed
     return answer, 201 if outcome.created else 200
+
+
+def _small_json() -> Any:
+    """A small JSON or YAML body read safely (bounded depth and numbers), or None when absent or unreadable."""
+    try:
+        data = request_body("query")
+        return read_request_data(data, "query") if data.strip() else None
+    except DocumentError:
+        return None
 
 
 def _parse_time(raw: Any, field: str) -> datetime | None:

@@ -7,11 +7,9 @@ stored before is changed by a rejected submission. The OpenAPI document is at
 
 from __future__ import annotations
 
-import json
 import time
 from typing import Any
 
-import yaml
 from flask import Blueprint, abort, current_app, request, url_for
 from sqlalchemy import select
 from sqlalchemy.orm import Session
@@ -23,13 +21,11 @@ from feasibility.store import queries
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
 from feasibility.web.auth import READ_ALL, SUBMITTERS, current_user, require_role
+from feasibility.web.bodies import problem_status, read_request_data, request_body
 
 __all__ = ["bp", "proposal_json", "run_json"]
 
 bp = Blueprint("api", __name__, url_prefix="/api/v1")
-
-#: PyYAML's C parser when built with libyaml, else the pure-Python one; both safe.
-_YamlLoader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 #: How often a waiting self-check looks at the store, in seconds.
 _POLL_S = 0.1
@@ -41,7 +37,7 @@ class Malformed(DocumentError):
 
 @bp.errorhandler(DocumentError)
 def _invalid(error: DocumentError) -> tuple[dict[str, Any], int]:
-    return error.as_dict(), 400 if isinstance(error, Malformed) else 422
+    return error.as_dict(), 400 if isinstance(error, Malformed) else problem_status(error)
 
 
 @bp.errorhandler(NotAllowed)
@@ -307,27 +303,15 @@ def _on_behalf_of(user: User | None) -> User | None:
 
 
 def _body() -> bytes:
-    data = request.get_data(cache=True)  # a body over MAX_CONTENT_LENGTH raises 413 here
+    data = request_body("proposal")  # a body over MAX_CONTENT_LENGTH is a 413 here
     if not data.strip():
         raise Malformed([Problem("", "the request body is empty; send the proposal as JSON or YAML")], "proposal")
     return data
 
 
 def _parse_body(data: bytes, document: str) -> Any:
-    """JSON (fast path) or YAML; YAML 1.1 reads JSON too, but far more slowly."""
-    if data.lstrip()[:1] in (b"{", b"["):
-        try:
-            return json.loads(data)
-        except ValueError:
-            pass  # perhaps YAML flow style; let the YAML parser say what is wrong
-    try:
-        return yaml.load(data.decode("utf-8"), Loader=_YamlLoader)
-    except UnicodeDecodeError:
-        raise Malformed([Problem("", "is not UTF-8 text")], document) from None
-    except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark is not None else ""
-        raise Malformed([Problem("", f"is neither valid JSON nor YAML{where}")], document) from None
+    """JSON or YAML, read safely (feasibility.documents.reading: bounded size, depth and numbers)."""
+    return read_request_data(data, document)
 
 
 def _wait_seconds() -> float:

@@ -9,7 +9,7 @@ from importlib import resources
 import pytest
 
 from feasibility.documents import DocumentError, Observatory, Proposal, load_document, parse_document
-from feasibility.documents.problems import read_proposal
+from feasibility.documents.proposal_problems import read_proposal
 
 GOOD = {
     "id": "T-1",

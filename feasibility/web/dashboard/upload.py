@@ -11,9 +11,10 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask import abort, redirect, render_template, request, url_for
+from flask import abort, current_app, redirect, render_template, request, url_for
+from werkzeug.exceptions import RequestEntityTooLarge
 
-from feasibility.documents.loading import DocumentError, Problem
+from feasibility.documents.loading import DocumentError, DocumentTooLarge, Problem
 from feasibility.service.dispatch import enqueue
 from feasibility.service.submissions import NotAllowed, submit
 from feasibility.store.db import session_scope
@@ -35,7 +36,11 @@ def upload() -> Any:
         return render_template("dashboard/upload.html", problems=None)
     user = current_user()
     assert user is not None
-    upload_file = request.files.get("document")
+    try:
+        upload_file = request.files.get("document")
+    except RequestEntityTooLarge:
+        too_large = DocumentTooLarge(int(current_app.config["MAX_CONTENT_LENGTH"]), "upload")
+        return render_template("dashboard/upload.html", problems=too_large, filename=None), 413
     if upload_file is None or not upload_file.filename:
         problems = DocumentError([Problem("document", "choose a proposal file (JSON or YAML) to upload")], "upload")
         return render_template("dashboard/upload.html", problems=problems, filename=None), 400
@@ -43,7 +48,8 @@ def upload() -> Any:
     try:
         run_id, created = _submit(content, user.id)
     except DocumentError as error:
-        return render_template("dashboard/upload.html", problems=error, filename=upload_file.filename), 422
+        status = 413 if isinstance(error, DocumentTooLarge) else 422
+        return render_template("dashboard/upload.html", problems=error, filename=upload_file.filename), status
     except NotAllowed as error:
         return render_template("dashboard/upload.html", problems=None, forbidden=str(error), filename=upload_file.filename), 403
     if created:
