@@ -133,8 +133,8 @@ def _resend_horizon(session: Session, dispatcher: Any, config: Any, now: datetim
 
 
 def _to_send(session: Session, created_before: datetime, resend_before: datetime, exclude: set[int], limit: int) -> list[tuple[int, int]]:
-    """Queued runs never sent (created before ``created_before``) or sent before ``resend_before``; by priority."""
-    unsent = and_(CheckRun.dispatched_at.is_(None), CheckRun.queued_at <= created_before)
+    """Queued runs unsent (new ones only once created before ``created_before``) or sent before ``resend_before``; by priority."""
+    unsent = and_(CheckRun.dispatched_at.is_(None), or_(CheckRun.queued_at <= created_before, CheckRun.attempts > 0))
     query = (
         select(CheckRun.id, CheckRun.priority)
         .where(CheckRun.state == "queued", or_(unsent, CheckRun.dispatched_at < resend_before))
