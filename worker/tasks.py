@@ -58,7 +58,11 @@ def sweep_runs() -> int:
     Acknowledged on receipt: a lost pass is replaced by the next one, and it is then
     not counted among the broker's unacknowledged messages.
     """
-    return relay(current_app.extensions[EXTENSION], current_app.config).sent
+    try:
+        return relay(current_app.extensions[EXTENSION], current_app.config).sent
+    except Exception as exc:  # noqa: BLE001 - the store or the broker away: the next pass, seconds later, does it
+        log.warning("relay pass skipped: %s: %s", type(exc).__name__, str(exc).splitlines()[0] if str(exc) else "")
+        return 0
 
 
 @worker_init.connect
