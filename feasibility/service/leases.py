@@ -113,7 +113,7 @@ class Heartbeat:
 
     def __exit__(self, *_: object) -> None:
         self._stop.set()
-        self._thread.join(self.lease.total_seconds())
+        self._thread.join(1.0)  # a renewal stuck on an unreachable store need not hold the run up: it matches nothing later
         with _active_lock:
             if _active.get(self.run_id) == self.attempt:
                 del _active[self.run_id]
