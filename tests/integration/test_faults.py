@@ -104,7 +104,7 @@ class Faulty:
         seconds = round(time.monotonic() - whole_at, 1)
         figure = {"fault": fault, "runs_affected": len(run_ids), "recovery_s": seconds, "all_done": set(states.values()) == {"done"}}
         self.figures.append(figure)
-        print(f"\nfault: {fault:<44} runs affected: {len(run_ids):>3}   recovered in {seconds:5.1f} s")
+        print(f"\nfault: {fault:<54} runs affected: {len(run_ids):>3}   recovered in {seconds:5.1f} s")
         assert figure["all_done"], (fault, states)
         return seconds
 
