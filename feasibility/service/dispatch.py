@@ -130,3 +130,20 @@ class CeleryDispatcher:
                 return True
             with channel.conn_or_acquire() as client:
                 return bool(client.getset(f"{self.queue}.{BROKER_MARKER}", "1"))
+
+    def noted_twice(self, name: str, seen: bool, *, seconds: float) -> bool:
+        """Whether ``seen`` holds now and held on the previous pass too (within ``seconds``); notes it in the broker.
+
+        The relay runs in whichever worker takes its message, so what it noted last
+        time is kept where every worker sees it: in the broker, for a short while.
+        """
+        key = f"{self.queue}.{BROKER_MARKER}.{name}"
+        with self.celery.connection_for_write() as connection:
+            channel = connection.default_channel
+            with channel.conn_or_acquire() as client:
+                # GETSET and EXPIRE only: commands the transport's key prefixing leaves alone, as for the marker.
+                pipe = client.pipeline()
+                pipe.getset(key, "1" if seen else "0")
+                pipe.expire(key, max(int(seconds), 1))
+                before, _ = pipe.execute()
+                return seen and before == b"1"

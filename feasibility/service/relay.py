@@ -11,9 +11,11 @@ embedded pool's timer — does three things in each pass:
    broker lost its data (a Redis restart without persistence): the relay keeps a
    marker key in the broker and, when it is gone, every queued run is sent again.
    Short of that, the broker is asked how many messages it holds (waiting and
-   delivered-but-unacknowledged); when it holds fewer than the runs queued or
-   running, some messages are gone, and every run sent longer than a grace
-   (twice the relay interval) ago is sent again. As a last backstop a run sent
+   delivered-but-unacknowledged); when, on two passes in a row, it holds fewer
+   than the runs that should have one (queued and sent, or running), some
+   messages are gone, and every run sent longer than a grace (twice the relay
+   interval) ago is sent again. (One pass could catch a message between the
+   broker's list and its unacknowledged set.) As a last backstop a run sent
    longer than ``QUEUED_TIMEOUT_S`` ago is sent again anyway.
 3. Sends the unsent runs (and those from step 2), fresh submissions before bulk,
    then marks them sent.
@@ -126,8 +128,11 @@ def _resend_horizon(session: Session, dispatcher: Any, config: Any, now: datetim
         return now, True
     held = dispatcher.message_count() if hasattr(dispatcher, "message_count") else None
     if held is not None:
-        waiting = session.scalar(select(func.count()).select_from(CheckRun).where(CheckRun.state.in_(("queued", "running")))) or 0
-        if held < waiting:
+        with_message = or_(CheckRun.state == "running", and_(CheckRun.state == "queued", CheckRun.dispatched_at.is_not(None)))
+        waiting = session.scalar(select(func.count()).select_from(CheckRun).where(with_message)) or 0
+        short = held < waiting
+        if dispatcher.noted_twice("message-deficit", short, seconds=3 * interval + 5):
+            log.warning("relay: the broker holds %d messages for %d runs; sending the waiting runs again", held, waiting)
             return now - grace, True
     return backstop, False
 

@@ -13,10 +13,11 @@ says when to try again (the lease's remaining time), by which time the run is do
 whose lease lapsed, or whose holder is a dead process of this host, is taken over
 at once.
 
-Faults while storing: one that passes (:func:`~feasibility.service.faults.is_passing`)
-gives the claim back, retrying the release, and propagates for the caller to retry;
-one that will not change (:func:`~feasibility.service.faults.is_lasting`) makes the
-run ``failed`` with the reason, so it is never queued again by itself.
+Faults while storing: a database fault that may pass (not
+:func:`~feasibility.service.faults.is_lasting`) gives the claim back, retrying the
+release, and propagates for the caller to retry; one that will not change, or any
+other error this result raises on its way to the store, makes the run ``failed``
+with the reason, so it is never queued again by itself.
 """
 
 from __future__ import annotations
@@ -92,8 +93,8 @@ def execute_run(run_id: int) -> str:
             try:
                 return _store_result(run_id, attempt, result)
             except Exception as exc:
-                if not is_lasting(exc):
-                    raise
+                if isinstance(exc, SQLAlchemyError) and not is_lasting(exc):
+                    raise  # the store, not this result: give the claim back and retry
                 log.exception("check run %s: the result cannot be stored", run_id)
                 return _store_failure(run_id, attempt, exc, "the result could not be stored: ")
         except SQLAlchemyError:
