@@ -15,6 +15,8 @@ import logging
 import os
 import socket
 import threading
+from collections.abc import Iterator
+from contextlib import contextmanager
 from datetime import datetime, timedelta, timezone
 from typing import Any
 
@@ -25,7 +27,7 @@ from sqlalchemy.exc import SQLAlchemyError
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, utcnow
 
-__all__ = ["DEFAULT_LEASE", "Heartbeat", "active_here", "holder_is_gone", "lease_length", "owner_id"]
+__all__ = ["DEFAULT_LEASE", "Heartbeat", "active_here", "holder_is_gone", "lease_length", "owner_id", "working_on"]
 
 log = logging.getLogger(__name__)
 
@@ -34,7 +36,7 @@ DEFAULT_LEASE = timedelta(seconds=30)
 
 _RUNS: Table = CheckRun.__table__  # type: ignore[assignment]
 
-#: Runs this process is computing now (run id -> attempt): a claim of ours on any other run is stale.
+#: Runs this process is claiming or computing now (run id -> how many threads): a claim of ours on any other run is stale.
 _active: dict[int, int] = {}
 _active_lock = threading.Lock()
 
@@ -55,8 +57,29 @@ def active_here(run_id: int) -> bool:
         return run_id in _active
 
 
-def holder_is_gone(owner: str | None, run_id: int) -> bool:
+@contextmanager
+def working_on(run_id: int) -> Iterator[None]:
+    """Mark ``run_id`` as being claimed or computed by this process, from before its claim until the run is left.
+
+    So another thread here (the relay, a second message) never takes a claim of ours
+    for a stale one while it is being made or used.
+    """
+    with _active_lock:
+        _active[run_id] = _active.get(run_id, 0) + 1
+    try:
+        yield
+    finally:
+        with _active_lock:
+            if _active[run_id] <= 1:
+                del _active[run_id]
+            else:
+                _active[run_id] -= 1
+
+
+def holder_is_gone(owner: str | None, run_id: int, *, ours: int = 0) -> bool:
     """True when the claim's holder is a process of this host that no longer runs (or is us, not computing it).
+
+    ``ours``: how many of this process's marks on the run (:func:`working_on`) are the caller's own.
 
     Only a holder on this host can be checked; elsewhere the lease has to lapse. A
     re-used pid only makes us wait for the lease; two hosts with the same name and
@@ -70,7 +93,8 @@ def holder_is_gone(owner: str | None, run_id: int) -> bool:
         return False
     pid = int(pid_text)
     if pid == os.getpid():
-        return not active_here(run_id)
+        with _active_lock:
+            return _active.get(run_id, 0) <= ours
     try:
         os.kill(pid, 0)
     except ProcessLookupError:
@@ -92,9 +116,8 @@ def _is_zombie(pid: int) -> bool:
 class Heartbeat:
     """Renews one claim every third of a lease, in a thread, while the run computes (a context manager).
 
-    It marks the run as computed by this process (so a redelivered message here
-    knows our claim is live), stops renewing after ``max_running``, and notes when
-    the claim was taken over (the result will then be dropped by the finish).
+    It stops renewing after ``max_running``, and notes when the claim was taken
+    over (the result will then be dropped by the finish).
     """
 
     def __init__(self, run_id: int, attempt: int, lease: timedelta, max_running: timedelta) -> None:
@@ -106,17 +129,12 @@ class Heartbeat:
         self._thread = threading.Thread(target=self._run, name=f"lease-{run_id}", daemon=True)
 
     def __enter__(self) -> Heartbeat:
-        with _active_lock:
-            _active[self.run_id] = self.attempt
         self._thread.start()
         return self
 
     def __exit__(self, *_: object) -> None:
         self._stop.set()
         self._thread.join(1.0)  # a renewal stuck on an unreachable store need not hold the run up: it matches nothing later
-        with _active_lock:
-            if _active.get(self.run_id) == self.attempt:
-                del _active[self.run_id]
 
     def _run(self) -> None:
         interval = max(self.lease.total_seconds() / 3, 0.05)

@@ -37,7 +37,7 @@ from feasibility.documents import InstrumentSchedule, Observatory, Proposal, par
 from feasibility.results import ProposalResult
 from feasibility.service.current import cached_document
 from feasibility.service.faults import is_lasting, is_passing
-from feasibility.service.leases import Heartbeat, aware, holder_is_gone, lease_length, owner_id
+from feasibility.service.leases import Heartbeat, aware, holder_is_gone, lease_length, owner_id, working_on
 from feasibility.store.db import JSONText, session_scope
 from feasibility.store.models import CheckRun, FindingRow, ObservatoryVersion, ProposalVersion, RequestOutcome, ScheduleVersion, utcnow
 
@@ -77,6 +77,11 @@ def execute_run(run_id: int) -> str:
     :class:`LeaseHeld` when a live worker holds the run, and passing database faults
     (after giving the claim back) so the caller can retry with back-off.
     """
+    with working_on(run_id):
+        return _execute(run_id)
+
+
+def _execute(run_id: int) -> str:
     claimed = _claim(run_id)
     if claimed is None:
         return "skipped"
@@ -137,7 +142,7 @@ def _claim(run_id: int) -> tuple[int, tuple[Any, ...]] | None:
             ).first()
             if current is None or current.state not in ("queued", "running"):
                 return None
-            if current.state == "running" and holder_is_gone(current.lease_owner, run_id):
+            if current.state == "running" and holder_is_gone(current.lease_owner, run_id, ours=1):
                 log.info("check run %s: its holder %s is gone; taking it over", run_id, current.lease_owner)
                 claimed = session.execute(
                     update(_RUNS)
