@@ -91,8 +91,8 @@ def _execute(run_id: int) -> str:
             try:
                 result = check(*_parse_inputs(*inputs))
             except Exception as exc:  # an engine fault (or unreadable inputs) is stored with the run, not retried forever
-                if is_passing(exc):
-                    raise
+                if isinstance(exc, SQLAlchemyError) and not is_lasting(exc):
+                    raise  # reading the inputs met a store fault: give the claim back and retry
                 log.exception("check run %s failed", run_id)
                 return _store_failure(run_id, attempt, exc)
             try:
