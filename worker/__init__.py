@@ -11,8 +11,9 @@ from typing import Any
 from celery import Celery, Task
 from celery.schedules import crontab
 from flask import Flask
+from kombu import Queue
 
-from feasibility.service.dispatch import SUBMISSION_PRIORITY, queue_names
+from feasibility.service.dispatch import SUBMISSION_PRIORITY, control_queue_name, queue_names
 
 __all__ = ["celery_config", "celery_init_app"]
 
@@ -35,11 +36,14 @@ def celery_init_app(app: Flask) -> Celery:
 def celery_config(config: Any) -> dict[str, Any]:
     """Celery settings from the Flask config; each reliability setting is chosen on purpose."""
     run_timeout = float(config["RUN_TIMEOUT_S"])
+    relay_interval = float(config["SWEEP_INTERVAL_S"] or 5)
+    control = control_queue_name(config)
     transport: dict[str, Any] = {
         # Redis re-delivers a message not acknowledged within this time. With late acks a
         # message is acknowledged only when its run is stored, so this must be longer than
-        # the longest check (and than RUN_TIMEOUT_S, after which the run counts as lost):
-        # otherwise a slow but healthy run would be handed to a second worker.
+        # the longest check (RUN_TIMEOUT_S): otherwise a slow but healthy run would be handed
+        # to a second worker (which would only wait for its lease). A worker that dies
+        # does not wait for this: its runs' leases lapse and the relay sends them again.
         "visibility_timeout": int(run_timeout * 4),
         # Priorities on one queue: Redis keeps one list per step and workers pop the lists
         # in order, lowest number first. Fresh submissions go at 0, bulk re-checks at 6,
@@ -59,6 +63,11 @@ def celery_config(config: Any) -> dict[str, Any]:
         "task_ignore_result": True,
         "task_default_queue": queue_names(config),
         "task_default_priority": SUBMISSION_PRIORITY,
+        # Check runs on one queue; the periodic tasks (relay, re-checks, notices) on a second,
+        # so the relay is not queued behind a thousand checks. Workers consume both; kombu's
+        # Redis transport pops by priority first, then round-robin over the queues.
+        "task_queues": (Queue(queue_names(config)), Queue(control)),
+        "task_routes": {name: {"queue": control} for name in ("feasibility.sweep_runs", "feasibility.nightly_recheck", "feasibility.deliver_notices")},
         # Acknowledge a message after the task finishes, not when it starts: a worker that
         # dies mid-run leaves the message to be delivered again (the task is idempotent).
         "task_acks_late": True,
@@ -76,9 +85,15 @@ def celery_config(config: Any) -> dict[str, Any]:
         "task_soft_time_limit": int(run_timeout * 0.8),
         "task_time_limit": int(run_timeout * 0.9),
         "task_track_started": False,
-        # The sweeper: re-queue runs whose message was lost or whose worker died.
+        # The relay (feasibility.service.relay): send runs stored but not yet sent, and those
+        # whose message was lost or whose worker died. Every few seconds; a pass that waits
+        # longer than a few intervals is dropped (the next one does the same work).
         "beat_schedule": {
-            "sweep-stale-runs": {"task": "feasibility.sweep_runs", "schedule": float(config["SWEEP_INTERVAL_S"] or 60)},
+            "sweep-stale-runs": {
+                "task": "feasibility.sweep_runs",
+                "schedule": relay_interval,
+                "options": {"queue": control, "priority": SUBMISSION_PRIORITY, "expires": max(4 * relay_interval, 20.0)},
+            },
             # Re-checks (worker/recheck_tasks.py): nightly at RECHECK_HOUR UTC; notices every minute.
             "nightly-recheck": {"task": "feasibility.nightly_recheck", "schedule": crontab(minute=0, hour=int(config.get("RECHECK_HOUR", 3)))},
             "deliver-notices": {"task": "feasibility.deliver_notices", "schedule": float(config.get("NOTICE_INTERVAL_S", 60))},

@@ -1,46 +1,68 @@
-"""The Celery tasks: compute one check run; sweep for stale runs. Both take ids only."""
+"""The Celery tasks: compute one check run; relay unsent runs and take back lapsed ones. Both take ids only."""
 
 from __future__ import annotations
 
-from datetime import timedelta
+import logging
+import random
+from typing import Any
 
 from celery import shared_task
 from celery.signals import worker_init, worker_process_init
 from flask import current_app
-from sqlalchemy.exc import OperationalError
+from sqlalchemy.exc import SQLAlchemyError
 
-from feasibility.service.dispatch import CHECK_TASK, enqueue
-from feasibility.service.runs import execute_run
-from feasibility.service.sweeper import stale_runs
+from feasibility.service.dispatch import CHECK_TASK, EXTENSION
+from feasibility.service.relay import relay
+from feasibility.service.runs import LeaseHeld, execute_run
 from feasibility.store.db import dispose_pools_after_fork
 
-__all__ = ["check_run", "sweep_runs"]
+__all__ = ["RELAY_TASK", "check_run", "sweep_runs"]
+
+log = logging.getLogger(__name__)
+
+#: The relay's registered name (kept from when it was only a sweeper, so beat schedules and scripts still work).
+RELAY_TASK = "feasibility.sweep_runs"
+
+#: Database faults: back-off doubling from 1 s up to this, jittered; given up after _DB_RETRIES tries (about an hour),
+#: after which the relay's count of the broker's messages finds the run without one and sends it again.
+_DB_BACKOFF_MAX_S = 30.0
+_DB_RETRIES = 120
 
 
-@shared_task(
-    name=CHECK_TASK,
-    # A database fault (connection dropped, server restarting, SQLite busy) passes;
-    # retry with exponential back-off (1, 2, 4 ... s, jittered, at most 5 min), then give up
-    # and leave the run to the sweeper.
-    autoretry_for=(OperationalError,),
-    retry_backoff=1,
-    retry_backoff_max=300,
-    retry_jitter=True,
-    max_retries=8,
-)
-def check_run(run_id: int) -> str:
-    """Compute and store check run ``run_id``; running it twice stores one result."""
-    return execute_run(run_id)
+@shared_task(bind=True, name=CHECK_TASK, max_retries=None)
+def check_run(task: Any, run_id: int) -> str:
+    """Compute and store check run ``run_id``; running it twice stores one result.
+
+    A run whose lease a live worker holds is tried again when the lease would lapse
+    (never acknowledged and forgotten): by then it is done, and this message is
+    skipped, or its worker is gone, and this message takes it over. A passing
+    database fault is retried with back-off (the claim was given back first).
+    """
+    try:
+        return execute_run(run_id)
+    except LeaseHeld as held:
+        raise task.retry(countdown=held.retry_in)
+    except SQLAlchemyError as exc:
+        tries = task.request.retries
+        if tries >= _DB_RETRIES:
+            log.error("check run %s: database faults on %d tries; left for the relay", run_id, tries)
+            return "given up"
+        delay = min(2.0**min(tries, 10), _DB_BACKOFF_MAX_S) * random.uniform(0.5, 1.0)
+        raise task.retry(exc=exc, countdown=delay)
 
 
-@shared_task(name="feasibility.sweep_runs")
+@shared_task(name=RELAY_TASK, acks_late=False)
 def sweep_runs() -> int:
-    """Re-queue runs queued or running for too long (periodic, from Celery beat)."""
-    config = current_app.config
-    fresh, bulk = stale_runs(timedelta(seconds=float(config["QUEUED_TIMEOUT_S"])), timedelta(seconds=float(config["RUN_TIMEOUT_S"])))
-    enqueue(fresh)
-    enqueue(bulk, bulk=True)
-    return len(fresh) + len(bulk)
+    """The relay (periodic, from Celery beat): take back runs of dead workers, send unsent and lost runs.
+
+    Acknowledged on receipt: a lost pass is replaced by the next one, and it is then
+    not counted among the broker's unacknowledged messages.
+    """
+    try:
+        return relay(current_app.extensions[EXTENSION], current_app.config).sent
+    except Exception as exc:  # noqa: BLE001 - the store or the broker away: the next pass, seconds later, does it
+        log.warning("relay pass skipped: %s: %s", type(exc).__name__, str(exc).splitlines()[0] if str(exc) else "")
+        return 0
 
 
 @worker_init.connect

@@ -3,8 +3,12 @@
 Used when no ``BROKER_URL`` is set, so ``feasibility serve`` needs no Redis. A
 priority queue puts fresh submissions before bulk re-checks; the task body is
 the same :func:`~feasibility.service.runs.execute_run` the Celery workers run.
-Database faults are retried with exponential back-off, and a timer sweeps the
-store for runs queued by other processes (the command line) or left running.
+Database faults are retried with exponential back-off; a run whose lease another
+worker holds is tried again when that lease would lapse. A timer runs the relay
+(:mod:`feasibility.service.relay`) every ``sweep_interval_s`` — at once when the
+pool starts, so runs left by a process that was killed (queued, or claimed by the
+dead process) are taken over straight away — and queues runs stored by other
+processes (the command line).
 """
 
 from __future__ import annotations
@@ -13,14 +17,13 @@ import itertools
 import logging
 import queue
 import threading
-from datetime import timedelta
 from typing import Any
 
-from sqlalchemy.exc import OperationalError
+from sqlalchemy.exc import SQLAlchemyError
 
 from feasibility.service.dispatch import BULK_PRIORITY, SUBMISSION_PRIORITY
-from feasibility.service.runs import execute_run
-from feasibility.service.sweeper import stale_runs
+from feasibility.service.relay import relay
+from feasibility.service.runs import LeaseHeld, execute_run
 
 __all__ = ["EmbeddedPool"]
 
@@ -31,6 +34,8 @@ class EmbeddedPool:
     """A few daemon threads taking run ids from a priority queue; started on first use."""
 
     mode = "embedded"
+    #: Its queue is this process's memory: a run is sent again whenever it is queued in the store but not here.
+    durable = False
 
     def __init__(self, app: Any, workers: int = 2, sweep_interval_s: float = 30.0, max_retries: int = 5, retry_base_s: float = 0.5) -> None:
         self.app = app
@@ -84,15 +89,11 @@ class EmbeddedPool:
             thread.join(timeout)
 
     def sweep(self) -> int:
-        """Queue runs that wait in the store but not here, and runs left running too long."""
+        """One relay pass: take back runs of dead workers; queue runs that wait in the store but not here."""
         with self.app.app_context():
             with self._lock:
                 waiting = set(self._pending)
-            timeout = timedelta(seconds=float(self.app.config["RUN_TIMEOUT_S"]))
-            fresh, bulk = stale_runs(timedelta(0), timeout, exclude=waiting)
-        self.enqueue(fresh)
-        self.enqueue(bulk, bulk=True)
-        return len(fresh) + len(bulk)
+            return relay(self, self.app.config, exclude=waiting).sent
 
     def _work(self) -> None:
         while not self._stop.is_set():
@@ -105,9 +106,12 @@ class EmbeddedPool:
             try:
                 with self.app.app_context():
                     execute_run(run_id)
-            except OperationalError:
+            except LeaseHeld as held:  # computed elsewhere: look again when its lease would lapse
+                retry = True
+                self._put_later(run_id, priority, held.retry_in)
+            except SQLAlchemyError:
                 retry = self._retry_later(run_id, priority)
-            except Exception:  # keep the thread alive; the run stays queued or running for the sweeper
+            except Exception:  # keep the thread alive; the run stays queued or running for the relay
                 log.exception("check run %s could not be computed", run_id)
             finally:
                 with self._idle:
@@ -123,18 +127,23 @@ class EmbeddedPool:
             n = self._retries.get(run_id, 0) + 1
             self._retries[run_id] = n
         if n > self.max_retries:
-            log.error("check run %s: database faults on %d attempts; left for the sweeper", run_id, n - 1)
+            log.error("check run %s: database faults on %d attempts; left for the relay", run_id, n - 1)
             return False
         delay = self.retry_base_s * 2 ** (n - 1)
         log.warning("check run %s: database fault, retry %d in %.1f s", run_id, n, delay)
+        self._put_later(run_id, priority, delay)
+        return True
+
+    def _put_later(self, run_id: int, priority: int, delay: float) -> None:
         timer = threading.Timer(delay, lambda: self._queue.put((priority, next(self._order), run_id)))
         timer.daemon = True
         timer.start()
-        return True
 
     def _sweep_loop(self) -> None:
-        while not self._stop.wait(self.sweep_interval_s):
+        wait = 0.0  # the first pass at once: take over what a killed predecessor left
+        while not self._stop.wait(wait):
+            wait = self.sweep_interval_s
             try:
                 self.sweep()
             except Exception:
-                log.exception("sweeping for stale check runs failed")
+                log.exception("relaying check runs failed")

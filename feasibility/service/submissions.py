@@ -4,7 +4,11 @@ A submission is validated (fields, then consistency with the observatory in
 force), stored as a new proposal version unless that exact content was stored
 before, and given a check run against the observatory and schedule in force.
 Identical content gives the existing run back, so re-submitting is harmless.
-The caller commits, then enqueues the run (:func:`feasibility.service.dispatch.enqueue`).
+The caller commits, then enqueues the run (:func:`feasibility.service.dispatch.enqueue`)
+when :attr:`Submission.must_send` says so: a new run, and also a run found still
+queued — its first message may never have reached the broker, and a second is
+harmless (the task is idempotent). A run created here is unsent until then, so the
+relay sends it should the caller fail to.
 """
 
 from __future__ import annotations
@@ -38,12 +42,17 @@ class NotAllowed(PermissionError):
 
 @dataclass
 class Submission:
-    """What a submission did: the run to wait for, and whether it is new (and so must be enqueued)."""
+    """What a submission did: the run to wait for, and whether it is new."""
 
     run: CheckRun
     created: bool
     proposal: ProposalRecord
     version: ProposalVersion
+
+    @property
+    def must_send(self) -> bool:
+        """Whether the caller enqueues the run after commit: it is new, or it was found waiting in the queue."""
+        return self.created or self.run.state == "queued"
 
 
 def submit_proposal(session: Session, document: dict[str, Any] | str | bytes, submitted_by: User | None, reason: str = "submitted") -> CheckRun:
@@ -120,7 +129,7 @@ def ensure_run(
     )
     if not created and run.state == "failed":
         # The engine failed on these inputs before; asking again queues the run again (it must be enqueued).
-        run.state, run.error, run.queued_at, run.reason = "queued", None, utcnow(), reason
+        run.state, run.error, run.queued_at, run.reason, run.dispatched_at = "queued", None, utcnow(), reason, None
         return run, True
     return run, created
 

@@ -152,6 +152,7 @@ class CheckRun(Base):
     __table_args__ = (
         UniqueConstraint("proposal_version_id", "observatory_version_id", "schedule_key", "engine_version", name="uq_check_runs_inputs"),
         Index("ix_check_runs_state_queued", "state", "queued_at"),
+        Index("ix_check_runs_state_dispatched", "state", "dispatched_at"),
     )
 
     id: Mapped[int] = mapped_column(primary_key=True)
@@ -170,6 +171,13 @@ class CheckRun(Base):
     queued_at: Mapped[datetime] = mapped_column(default=utcnow)
     started_at: Mapped[datetime | None]
     finished_at: Mapped[datetime | None]
+    dispatched_at: Mapped[datetime | None] = mapped_column(
+        doc="When the run's message was last sent to the workers; NULL while it still has to be sent (the outbox)."
+    )
+    lease_expires_at: Mapped[datetime | None] = mapped_column(
+        doc="While running: when the worker's claim lapses unless its heartbeat renews it; then anyone may take the run over."
+    )
+    lease_owner: Mapped[str | None] = mapped_column(String(100), doc="While running: 'host:pid' of the process holding the claim.")
 
     proposal_version: Mapped[ProposalVersion] = relationship()
     outcomes: Mapped[list[RequestOutcome]] = relationship(back_populates="run", cascade="all, delete-orphan", order_by="RequestOutcome.id")

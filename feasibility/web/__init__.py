@@ -40,8 +40,16 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         BROKER_URL=os.environ.get("BROKER_URL") or None,
         QUEUE_PREFIX="feasibility",
         EMBEDDED_WORKERS=2,
-        SWEEP_INTERVAL_S=30,
+        # How often the relay runs (Celery beat, or the embedded pool's timer; 0: never): it sends
+        # runs stored but not yet sent, and takes back runs whose worker is gone (service/relay.py).
+        SWEEP_INTERVAL_S=5,
+        # A worker's claim on a run lasts this long unless its heartbeat (every third of it) renews
+        # it; a dead worker's runs are taken over after at most this long (service/leases.py).
+        LEASE_S=30,
+        # The longest a run may compute; then its heartbeat stops and another worker takes it over.
         RUN_TIMEOUT_S=900,
+        # Backstop: a queued run whose message was sent this long ago is sent again even when
+        # the broker seems to hold it (lost messages are usually found within a relay pass).
         QUEUED_TIMEOUT_S=600,
         MAX_CONTENT_LENGTH=MAX_DOCUMENT_BYTES,  # the documents' own limit: the API, the pages and the CLI agree
         MAX_BULK=500,

@@ -7,15 +7,18 @@ stored before is changed by a rejected submission. The OpenAPI document is at
 
 from __future__ import annotations
 
+import logging
 import time
 from typing import Any
 
 from flask import Blueprint, abort, current_app, request, url_for
 from sqlalchemy import select
+from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, Problem
 from feasibility.service.dispatch import enqueue
+from feasibility.service.faults import is_lasting, is_passing
 from feasibility.service.submissions import NotAllowed, Submission, submit
 from feasibility.store import queries
 from feasibility.store.db import session_scope
@@ -26,6 +29,8 @@ from feasibility.web.bodies import problem_status, read_request_data, request_bo
 __all__ = ["bp", "proposal_json", "run_json"]
 
 bp = Blueprint("api", __name__, url_prefix="/api/v1")
+
+log = logging.getLogger(__name__)
 
 #: How often a waiting self-check looks at the store, in seconds.
 _POLL_S = 0.1
@@ -84,9 +89,13 @@ def submit_one() -> tuple[dict[str, Any], int, dict[str, str]]:
     body = _parse_body(_body(), "proposal")
     if not isinstance(body, dict):
         raise DocumentError([Problem("", "must be a mapping of fields at the top level")], "proposal")
-    run_id, created, payload = _submit_one(body, user, owner, describe=True)
-    if created:
-        enqueue([run_id])  # only now: the transaction that created the run has committed
+    try:
+        run_id, created, send, payload = _submit_one(body, user, owner, describe=True)
+    except SQLAlchemyError as exc:
+        status, answer = _store_fault(exc)
+        return answer, status, {"Retry-After": "5"} if status == 503 else {}
+    if send:
+        enqueue([run_id])  # only now that the run is committed; should the broker fail, the relay sends it
     if wait > 0 and payload["state"] in ("queued", "running"):
         payload = _wait_for(run_id, wait)
     status = 202 if created and payload["state"] in ("queued", "running") else 200
@@ -119,24 +128,43 @@ def submit_many() -> dict[str, Any]:
     if len(items) > limit:
         raise DocumentError([Problem("proposals", f"holds {len(items)} proposals; at most {limit} at once")], "bulk submission")
     answers: list[dict[str, Any]] = []
-    created_ids: list[int] = []
-    for index, item in enumerate(items):
-        try:
-            if not isinstance(item, dict):
-                raise DocumentError([Problem("", "must be a mapping of fields")], "proposal")
-            run_id, created, _ = _submit_one(item, user, owner)
-        except DocumentError as error:
-            answers.append({"index": index, "status": 422, **error.as_dict()})
-            continue
-        except NotAllowed as error:
-            answers.append({"index": index, "status": 403, "error": "forbidden", "message": str(error)})
-            continue
-        if created:
-            created_ids.append(run_id)
-        answers.append({"index": index, "status": 202 if created else 200, "created": created, "run_id": run_id, "run": url_for("api.get_run", run_id=run_id)})
-    enqueue(created_ids)
+    to_send: list[int] = []
+    try:
+        for index, item in enumerate(items):
+            # Each item in its own transaction: a bad item is answered on its own, the others are stored and queued.
+            try:
+                if not isinstance(item, dict):
+                    raise DocumentError([Problem("", "must be a mapping of fields")], "proposal")
+                run_id, created, send, _ = _submit_one(item, user, owner)
+            except DocumentError as error:
+                answers.append({"index": index, "status": 422, **error.as_dict()})
+                continue
+            except NotAllowed as error:
+                answers.append({"index": index, "status": 403, "error": "forbidden", "message": str(error)})
+                continue
+            except SQLAlchemyError as exc:
+                status, answer = _store_fault(exc)
+                answers.append({"index": index, "status": status, **answer})
+                continue
+            if send:
+                to_send.append(run_id)
+            answers.append({"index": index, "status": 202 if created else 200, "created": created, "run_id": run_id, "run": url_for("api.get_run", run_id=run_id)})
+    finally:
+        enqueue(to_send)  # what was stored is queued, whatever happened to the items after it
     accepted = sum(1 for a in answers if a["status"] in (200, 202))
     return {"accepted": accepted, "rejected": len(answers) - accepted, "items": answers}
+
+
+def _store_fault(exc: SQLAlchemyError) -> tuple[int, dict[str, Any]]:
+    """A submission the store could not take: 503 when the store is away (send it again), else 422 (it never will)."""
+    if is_passing(exc):
+        log.warning("a submission was not stored: the store is unavailable (%s)", type(exc).__name__)
+        return 503, {"error": "unavailable", "message": "the store is unavailable; nothing was stored, send the proposal again shortly"}
+    if is_lasting(exc):
+        reason = str(getattr(exc, "orig", exc)).strip().splitlines()[0][:300]
+        problem = Problem("", f"cannot be stored: {reason}")
+        return 422, DocumentError([problem], "proposal").as_dict()
+    raise exc
 
 
 @bp.get("/runs/<int:run_id>")
@@ -259,10 +287,11 @@ def _version_summary(version: ProposalVersion) -> dict[str, Any]:
     }
 
 
-def _submit_one(body: Any, user: User | None, owner: User | None, *, describe: bool = False) -> tuple[int, bool, dict[str, Any]]:
+def _submit_one(body: Any, user: User | None, owner: User | None, *, describe: bool = False) -> tuple[int, bool, bool, dict[str, Any]]:
     """Store one submission in its own transaction (on SQLite it waits for the write lock; see feasibility.store.db).
 
-    Returns the run id, whether the run is new, and (with ``describe``) the run as the API shows it.
+    Returns the run id, whether the run is new, whether it must be sent to the workers
+    after commit (new, or found still queued), and (with ``describe``) the run as the API shows it.
     """
     with session_scope() as session:
         if owner is not None:
@@ -270,7 +299,7 @@ def _submit_one(body: Any, user: User | None, owner: User | None, *, describe: b
         user_here = session.merge(user, load=False) if user is not None else None
         result: Submission = submit(session, body, user_here, owner=owner)
         payload = run_json(session, result.run, with_result=True) if describe else {}
-        return result.run.id, result.created, payload
+        return result.run.id, result.created, result.must_send, payload
 
 
 def _readable_proposal(session: Session, proposal_id: str) -> ProposalRecord:

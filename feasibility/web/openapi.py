@@ -92,9 +92,9 @@ _PATHS: dict[str, Any] = {
             ],
             "requestBody": _PROPOSAL_BODY,
             "responses": {
-                "202": {"description": "Stored; a new check run is queued.", "content": _json("Submitted")},
-                "200": {"description": "Identical content was submitted before, or the verdict came within `wait`.", "content": _json("Submitted")},
-                **_errors(400, 401, 403, 413, 422),
+                "202": {"description": "Stored; a new check run is queued (if the queue is unreachable, it is sent as soon as it is back).", "content": _json("Submitted")},
+                "200": {"description": "Identical content was submitted before (a run still waiting is queued again), or the verdict came within `wait`.", "content": _json("Submitted")},
+                **_errors(400, 401, 403, 413, 422, 503),
             },
         },
         "get": {
@@ -202,7 +202,7 @@ _API_SCHEMAS: dict[str, Any] = {
                     "type": "object",
                     "properties": {
                         "index": {"type": "integer"},
-                        "status": {"type": "integer"},
+                        "status": {"type": "integer", "description": "This item's own answer: 202 or 200 stored, 403, 422 with its problems, 503 store unavailable (send it again)."},
                         "created": {"type": "boolean"},
                         "run_id": {"type": "integer"},
                         "problems": {"type": "array"},

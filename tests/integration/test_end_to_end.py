@@ -123,6 +123,25 @@ def test_the_sweeper_requeues_a_lost_run(live: LiveService) -> None:
     assert live.wait_for_run(run_id)["state"] == "done"
 
 
+def test_a_message_for_a_run_held_by_a_live_worker_elsewhere_waits_for_its_lease(live: LiveService) -> None:
+    with live.app.app_context():
+        from feasibility.service.submissions import submit
+
+        with session_scope() as session:
+            run_id = submit(session, _proposal("INT-HELD", ra="16:40:00"), None).run.id
+        now = utcnow()
+        with session_scope() as session:  # claimed by a worker on another host, whose lease still has 4 s to run
+            session.execute(update(CheckRun).where(CheckRun.id == run_id).values(
+                state="running", attempts=1, started_at=now, lease_owner="another-host:4242", lease_expires_at=now + timedelta(seconds=4)))
+        live.app.extensions["feasibility.dispatch"].enqueue([run_id])
+    time.sleep(2)
+    with live.app.app_context(), session_scope() as session:
+        assert session.get_one(CheckRun, run_id).attempts == 1  # the message was not used to take over a live claim...
+    run = live.wait_for_run(run_id, timeout=60)
+    assert run["state"] == "done" and run["attempts"] == 2  # ...nor dropped: tried again once the lease lapsed
+    assert _outcomes(live, run_id) == 1
+
+
 def test_bad_input_is_rejected_and_nothing_stored_is_lost(live: LiveService) -> None:
     good = _post(live, "bob", _proposal("INT-BAD"))
     assert good.status_code == 202

@@ -19,7 +19,7 @@ from sqlalchemy import func, select
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion
 
-from .test_admin_api import _auth, _submit, _wait, _without_heron
+from .test_admin_api import _auth, _submit, _without_heron
 
 
 def _runs_of(session: Any, proposal_id: str) -> list[CheckRun]:

@@ -1,0 +1,174 @@
+"""Leases on check runs: a claim lasts ``LEASE_S`` seconds and a heartbeat renews it while the run computes.
+
+A worker that dies stops renewing, so its claim lapses within one lease and the
+run can be taken over then — not after the longest a check could ever take.
+Every claim names its holder (``host:pid``); a holder on this host whose process
+is gone (a killed worker child, a ``serve`` killed and started again) is known
+dead at once, so its runs are taken over without waiting for the lease. The
+heartbeat stops after ``RUN_TIMEOUT_S`` of computing, so a hung check loses its
+lease too.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import socket
+import threading
+from collections.abc import Iterator
+from contextlib import contextmanager
+from datetime import datetime, timedelta, timezone
+from typing import Any
+
+from flask import current_app, has_app_context
+from sqlalchemy import Table, update
+from sqlalchemy.exc import SQLAlchemyError
+
+from feasibility.store.db import session_scope
+from feasibility.store.models import CheckRun, utcnow
+
+__all__ = ["DEFAULT_LEASE", "Heartbeat", "active_here", "holder_is_gone", "lease_length", "owner_id", "working_on"]
+
+log = logging.getLogger(__name__)
+
+#: How long a claim lasts without renewal; the app's ``LEASE_S`` setting overrides it.
+DEFAULT_LEASE = timedelta(seconds=30)
+
+_RUNS: Table = CheckRun.__table__  # type: ignore[assignment]
+
+#: Runs this process is claiming or computing now (run id -> how many threads): a claim of ours on any other run is stale.
+_active: dict[int, int] = {}
+_active_lock = threading.Lock()
+
+
+def owner_id() -> str:
+    """This process, as written into the claims it holds (the pid is read each time: workers fork)."""
+    return f"{socket.gethostname()[:80]}:{os.getpid()}"
+
+
+def lease_length() -> timedelta:
+    if has_app_context() and current_app.config.get("LEASE_S"):
+        return timedelta(seconds=float(current_app.config["LEASE_S"]))
+    return DEFAULT_LEASE
+
+
+def active_here(run_id: int) -> bool:
+    with _active_lock:
+        return run_id in _active
+
+
+@contextmanager
+def working_on(run_id: int) -> Iterator[None]:
+    """Mark ``run_id`` as being claimed or computed by this process, from before its claim until the run is left.
+
+    So another thread here (the relay, a second message) never takes a claim of ours
+    for a stale one while it is being made or used.
+    """
+    with _active_lock:
+        _active[run_id] = _active.get(run_id, 0) + 1
+    try:
+        yield
+    finally:
+        with _active_lock:
+            if _active[run_id] <= 1:
+                del _active[run_id]
+            else:
+                _active[run_id] -= 1
+
+
+def holder_is_gone(owner: str | None, run_id: int, *, ours: int = 0) -> bool:
+    """True when the claim's holder is a process of this host that no longer runs (or is us, not computing it).
+
+    ``ours``: how many of this process's marks on the run (:func:`working_on`) are the caller's own.
+
+    Only a holder on this host can be checked; elsewhere the lease has to lapse. A
+    re-used pid only makes us wait for the lease; two hosts with the same name and
+    separate pid spaces could make us take over a live claim, which costs a
+    recomputation, never a second result (finishing needs the claim's attempt).
+    """
+    if not owner or ":" not in owner:
+        return False
+    host, _, pid_text = owner.rpartition(":")
+    if host != socket.gethostname()[:80] or not pid_text.isdigit():
+        return False
+    pid = int(pid_text)
+    if pid == os.getpid():
+        with _active_lock:
+            return _active.get(run_id, 0) <= ours
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return True
+    except PermissionError:  # a live process of another user
+        return False
+    return _is_zombie(pid)
+
+
+def _is_zombie(pid: int) -> bool:
+    """A killed process its parent has not reaped yet is dead all the same."""
+    try:
+        with open(f"/proc/{pid}/stat", "rb") as handle:
+            return handle.read().rsplit(b")", 1)[1].split()[0] == b"Z"
+    except (OSError, IndexError):
+        return False
+
+
+class Heartbeat:
+    """Renews one claim every third of a lease, in a thread, while the run computes (a context manager).
+
+    It stops renewing after ``max_running``, and notes when the claim was taken
+    over (the result will then be dropped by the finish).
+    """
+
+    def __init__(self, run_id: int, attempt: int, lease: timedelta, max_running: timedelta) -> None:
+        self.run_id, self.attempt, self.lease = run_id, attempt, lease
+        self.deadline = utcnow() + max_running
+        self.lost = False
+        self._stop = threading.Event()
+        self._app: Any = current_app._get_current_object() if has_app_context() else None  # type: ignore[attr-defined]
+        self._thread = threading.Thread(target=self._run, name=f"lease-{run_id}", daemon=True)
+
+    def __enter__(self) -> Heartbeat:
+        self._thread.start()
+        return self
+
+    def __exit__(self, *_: object) -> None:
+        self._stop.set()
+        self._thread.join(1.0)  # a renewal stuck on an unreachable store need not hold the run up: it matches nothing later
+
+    def _run(self) -> None:
+        interval = max(self.lease.total_seconds() / 3, 0.05)
+        while not self._stop.wait(interval):
+            now = utcnow()
+            if now > self.deadline:
+                log.warning("check run %s has computed longer than allowed; its lease is left to lapse", self.run_id)
+                return
+            try:
+                if not self._renew(now + self.lease):
+                    self.lost = True
+                    log.warning("check run %s: claim %s was taken over", self.run_id, self.attempt)
+                    return
+            except SQLAlchemyError as exc:  # the store restarting: try again at the next beat
+                log.warning("check run %s: lease not renewed (%s)", self.run_id, exc.__class__.__name__)
+
+    def _renew(self, until: datetime) -> bool:
+        if self._app is None:
+            return self._renew_here(until)
+        with self._app.app_context():
+            return self._renew_here(until)
+
+    def _renew_here(self, until: datetime) -> bool:
+        with session_scope() as session:
+            statement = (
+                update(_RUNS)
+                .where(_RUNS.c.id == self.run_id, _RUNS.c.state == "running", _RUNS.c.attempts == self.attempt)
+                .values(lease_expires_at=until)
+            )
+            return bool(session.execute(statement).rowcount)
+
+
+def aware(moment: datetime | None) -> datetime | None:
+    """SQLite hands back naive datetimes (stored as UTC): make them comparable with ``utcnow()``."""
+    if moment is not None and moment.tzinfo is None:
+        return moment.replace(tzinfo=timezone.utc)
+    return moment
