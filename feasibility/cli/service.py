@@ -1,4 +1,7 @@
-"""Commands that run and administer the service: ``serve``, ``db upgrade``, ``token create``, ``user create``."""
+"""Commands that run and administer the service: ``serve``, ``db upgrade``, ``token create``, ``user create``.
+
+The ``token`` and ``user`` groups also get the commands of :mod:`feasibility.cli.access` (list, revoke, set-password).
+"""
 
 from __future__ import annotations
 
@@ -17,6 +20,9 @@ def register(main: click.Group) -> None:
     main.add_command(db_group)
     main.add_command(token_group)
     main.add_command(user_group)
+    from feasibility.cli import access
+
+    access.attach(token_group, user_group)
 
 
 @click.command()
@@ -38,7 +44,10 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
 
     url = default_database_url()
     upgrade(url)
-    app = create_app({"EMBEDDED_WORKERS": workers})
+    settings: dict[str, object] = {"EMBEDDED_WORKERS": workers}
+    if demo and _loopback(host) and not _cookie_security_set():
+        settings["SESSION_COOKIE_SECURE"] = False  # the demo on this machine is plain http; nobody else can reach it
+    app = create_app(settings)
     with app.app_context():
         _first_admin_token()
         if demo:
@@ -50,6 +59,9 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
     server = make_server(host, port, app, threaded=True)
     mode = "Celery workers via BROKER_URL" if app.config["BROKER_URL"] else f"{workers} embedded workers"
     click.echo(f"Serving on http://{host}:{server.server_port}/  (dashboard: /, API: /api/v1, store: {_safe(app.config['DATABASE_URL'])}, {mode})")
+    if app.config["SESSION_COOKIE_SECURE"]:
+        click.echo("The dashboard's cookie is sent over https only: sign in through an https proxy, "
+                   "or set FEASIBILITY_SESSION_COOKIE_SECURE=false on a closed network.")
     click.echo("Press Ctrl+C to stop.")
     try:
         server.serve_forever()
@@ -124,9 +136,11 @@ def user_create(name: str, role: str, email: str | None, password: bool) -> None
     """Create a user; with --password, ask for a password (stored as a salted hash)."""
     from feasibility.store.db import session_scope
     from feasibility.web import create_app
-    from feasibility.web.auth import create_user
+    from feasibility.web.auth import create_user, password_problem
 
     secret = click.prompt("Password", hide_input=True, confirmation_prompt=True) if password else None
+    if secret is not None and (problem := password_problem(secret)) is not None:
+        _fail(f"password: {problem}")
     with create_app().app_context(), session_scope() as session:
         try:
             create_user(session, name, role, password=secret, email=email)
@@ -192,6 +206,25 @@ def _demo_reviewer() -> None:
 
 #: The reviewer that ``serve --demo`` makes for the dashboard.
 DEMO_REVIEWER = "demo-reviewer"
+
+
+def _loopback(host: str) -> bool:
+    """Whether ``host`` is this machine only (localhost, 127.0.0.0/8, ::1)."""
+    import ipaddress
+
+    if host.lower() in ("localhost", "localhost."):
+        return True
+    try:
+        return ipaddress.ip_address(host.strip("[]")).is_loopback
+    except ValueError:
+        return False
+
+
+def _cookie_security_set() -> bool:
+    """Whether the environment sets the cookie's Secure flag itself (then ``serve --demo`` leaves it alone)."""
+    import os
+
+    return "SESSION_COOKIE_SECURE" in os.environ or "FEASIBILITY_SESSION_COOKIE_SECURE" in os.environ
 
 
 def _safe(url: str) -> str:
