@@ -26,6 +26,7 @@ log = logging.getLogger(__name__)
 _BLUEPRINTS: list[str] = [
     "feasibility.web.api:bp",
     "feasibility.web.admin_api:bp",
+    "feasibility.web.access_api:bp",
     "feasibility.web.dashboard:bp",
 ]
 
