@@ -12,6 +12,8 @@ from typing import TYPE_CHECKING, NoReturn
 import click
 from sqlalchemy import select
 
+from feasibility.cli.command_app import command_app
+
 if TYPE_CHECKING:
     from sqlalchemy.orm import Session
 
@@ -33,9 +35,8 @@ def token_list(user_name: str | None) -> None:
     """List API tokens: id, user, note, when made and, if so, when revoked (the tokens themselves are never stored)."""
     from feasibility.store.db import session_scope
     from feasibility.store.models import ApiToken, User
-    from feasibility.web import create_app
 
-    with create_app({"SEED_DEMO": False}).app_context(), session_scope(read_only=True) as session:
+    with command_app(SEED_DEMO=False), session_scope(read_only=True) as session:
         query = select(ApiToken, User.name).join(User, User.id == ApiToken.user_id).order_by(ApiToken.id)
         if user_name is not None:
             _user_named(session, user_name, "--user")
@@ -55,12 +56,11 @@ def token_revoke(token_id: int | None, user_name: str | None) -> None:
     """Revoke one API token by its id, or every token of a user; print what was revoked."""
     from feasibility.store.db import session_scope
     from feasibility.store.models import ApiToken
-    from feasibility.web import create_app
     from feasibility.web.auth import revoke_tokens
 
     if (token_id is None) == (user_name is None):
         _fail("give --id or --user (one of them)")
-    with create_app({"SEED_DEMO": False}).app_context(), session_scope() as session:
+    with command_app(SEED_DEMO=False), session_scope() as session:
         if token_id is not None:
             token = session.get(ApiToken, token_id)
             if token is None:
@@ -86,20 +86,19 @@ def token_revoke(token_id: int | None, user_name: str | None) -> None:
 def user_set_password(name: str, from_stdin: bool) -> None:
     """Give a user a new password (asked twice, or read from standard input) and end their dashboard sessions."""
     from feasibility.store.db import session_scope
-    from feasibility.web import create_app
     from feasibility.web.auth import password_problem, set_password
 
-    app = create_app({"SEED_DEMO": False})
-    with app.app_context(), session_scope(read_only=True) as session:
-        _user_named(session, name, "NAME")  # before asking for a password
-    if from_stdin:
-        password = sys.stdin.readline().rstrip("\r\n")
-    else:
-        password = click.prompt("New password", hide_input=True, confirmation_prompt="Repeat it")
-    if (problem := password_problem(password)) is not None:
-        _fail(f"password: {problem}")
-    with app.app_context(), session_scope() as session:
-        ended = set_password(session, _user_named(session, name, "NAME"), password)
+    with command_app(SEED_DEMO=False):
+        with session_scope(read_only=True) as session:
+            _user_named(session, name, "NAME")  # before asking for a password
+        if from_stdin:
+            password = sys.stdin.readline().rstrip("\r\n")
+        else:
+            password = click.prompt("New password", hide_input=True, confirmation_prompt="Repeat it")
+        if (problem := password_problem(password)) is not None:
+            _fail(f"password: {problem}")
+        with session_scope() as session:
+            ended = set_password(session, _user_named(session, name, "NAME"), password)
     click.echo(f"Password of {name} changed; {ended} dashboard session{'' if ended == 1 else 's'} ended.")
 
 

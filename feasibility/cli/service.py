@@ -83,14 +83,15 @@ def db_group() -> None:
 @click.option("--no-demo", is_flag=True, help="Do not load the demo observatory into an empty store.")
 def db_upgrade(revision: str, no_demo: bool) -> None:
     """Create or upgrade the tables of the store at DATABASE_URL (default: SQLite in ./instance)."""
+    from feasibility.cli.command_app import command_app
     from feasibility.store.db import default_database_url
     from feasibility.store.migrate import upgrade
-    from feasibility.web import create_app
 
     url = default_database_url()
     upgrade(url, revision)
     if not no_demo:
-        create_app({"SEED_DEMO": True})
+        with command_app(SEED_DEMO=True):
+            pass  # loading the demo observatory is part of making the app
     click.echo(f"Store at {_safe(url)} is at revision {revision}.")
 
 
@@ -106,11 +107,11 @@ def token_group() -> None:
 def token_create(user_name: str, role: str | None, label: str | None) -> None:
     """Make an API token and print it once; only its hash is stored."""
     from feasibility.store.db import session_scope
+    from feasibility.cli.command_app import command_app
     from feasibility.store.models import User
-    from feasibility.web import create_app
     from feasibility.web.auth import create_token, create_user
 
-    with create_app().app_context(), session_scope() as session:
+    with command_app(), session_scope() as session:
         user = session.scalar(select(User).where(User.name == user_name))
         if user is None:
             if role is None:
@@ -134,14 +135,14 @@ def user_group() -> None:
 @click.option("--password", is_flag=True, help="Ask for a password (for signing in to the dashboard).")
 def user_create(name: str, role: str, email: str | None, password: bool) -> None:
     """Create a user; with --password, ask for a password (stored as a salted hash)."""
+    from feasibility.cli.command_app import command_app
     from feasibility.store.db import session_scope
-    from feasibility.web import create_app
     from feasibility.web.auth import create_user, password_problem
 
     secret = click.prompt("Password", hide_input=True, confirmation_prompt=True) if password else None
     if secret is not None and (problem := password_problem(secret)) is not None:
         _fail(f"password: {problem}")
-    with create_app().app_context(), session_scope() as session:
+    with command_app(), session_scope() as session:
         try:
             create_user(session, name, role, password=secret, email=email)
         except ValueError as exc:
