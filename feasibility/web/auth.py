@@ -26,7 +26,7 @@ from werkzeug.security import check_password_hash, generate_password_hash
 
 from feasibility.store.db import session_scope
 from feasibility.store.models import ApiToken, User, utcnow
-from feasibility.web.page_sessions import revoke_user_sessions
+from feasibility.web.page_sessions import COOKIE_KEY, revoke_user_sessions
 
 __all__ = [
     "READ_ALL",
@@ -151,7 +151,7 @@ def authenticate() -> User | None:
     if scheme.lower() == "bearer" and credentials.strip():
         with session_scope(read_only=True) as db:
             user = user_for_token(db, credentials.strip())
-    elif not header and request.method in ("GET", "HEAD") and session.get("sid") is not None:
+    elif not header and request.method in ("GET", "HEAD") and session.get(COOKIE_KEY) is not None:
         # The pages' own test: a live server-side session (ended by signing out or a password change).
         from feasibility.web.auth_pages import current_user as signed_in_user
 

@@ -57,8 +57,7 @@ PAGE_ROLES = ("reviewer", "proposer", "admin")
 ALL_PROPOSALS_ROLES = ("reviewer", "admin")
 
 _UNSAFE_METHODS = {"POST", "PUT", "PATCH", "DELETE"}
-#: The one key of the session cookie: a random session id (signed in or not).
-SESSION_ID_KEY = "sid"
+SESSION_ID_KEY = page_sessions.COOKIE_KEY
 
 View = TypeVar("View", bound=Callable[..., Any])
 

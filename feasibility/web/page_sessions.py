@@ -21,6 +21,7 @@ from sqlalchemy.orm import Session
 from feasibility.store.models import PageSession, User, utcnow
 
 __all__ = [
+    "COOKIE_KEY",
     "end_session",
     "hash_session_id",
     "new_session_id",
@@ -30,6 +31,9 @@ __all__ = [
     "start_session",
     "user_for_session",
 ]
+
+#: The one key of Flask's session cookie: the random session id (signed in or not).
+COOKIE_KEY = "sid"
 
 
 def new_session_id() -> str:
