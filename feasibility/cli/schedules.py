@@ -112,7 +112,8 @@ def notices_send(as_json: bool) -> None:
 
     with _app().app_context():
         report = deliver_due(session_factory)
-    click.echo(json.dumps(report.as_dict()) if as_json else f"sent {report.sent}, to retry {report.retrying}, given up {report.failed}")
+    refused = f", refused (not a public address) {report.refused}" if report.refused else ""
+    click.echo(json.dumps(report.as_dict()) if as_json else f"sent {report.sent}, to retry {report.retrying}, given up {report.failed}{refused}")
 
 
 def _upload(action: Any, path: Path, document: str, as_json: bool, wait_s: float | None) -> None:

@@ -1,4 +1,7 @@
-"""Commands that run and administer the service: ``serve``, ``db upgrade``, ``token create``, ``user create``."""
+"""Commands that run and administer the service: ``serve``, ``db upgrade``, ``token create``, ``user create``.
+
+The ``token`` and ``user`` groups also get the commands of :mod:`feasibility.cli.access` (list, revoke, set-password).
+"""
 
 from __future__ import annotations
 
@@ -17,6 +20,9 @@ def register(main: click.Group) -> None:
     main.add_command(db_group)
     main.add_command(token_group)
     main.add_command(user_group)
+    from feasibility.cli import access
+
+    access.attach(token_group, user_group)
 
 
 @click.command()
@@ -38,7 +44,10 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
 
     url = default_database_url()
     upgrade(url)
-    app = create_app({"EMBEDDED_WORKERS": workers})
+    settings: dict[str, object] = {"EMBEDDED_WORKERS": workers}
+    if demo and _loopback(host) and not _cookie_security_set():
+        settings["SESSION_COOKIE_SECURE"] = False  # the demo on this machine is plain http; nobody else can reach it
+    app = create_app(settings)
     with app.app_context():
         _first_admin_token()
         if demo:
@@ -50,6 +59,9 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
     server = make_server(host, port, app, threaded=True)
     mode = "Celery workers via BROKER_URL" if app.config["BROKER_URL"] else f"{workers} embedded workers"
     click.echo(f"Serving on http://{host}:{server.server_port}/  (dashboard: /, API: /api/v1, store: {_safe(app.config['DATABASE_URL'])}, {mode})")
+    if app.config["SESSION_COOKIE_SECURE"]:
+        click.echo("The dashboard's cookie is sent over https only: sign in through an https proxy, "
+                   "or set FEASIBILITY_SESSION_COOKIE_SECURE=false on a closed network.")
     click.echo("Press Ctrl+C to stop.")
     try:
         server.serve_forever()
@@ -71,14 +83,15 @@ def db_group() -> None:
 @click.option("--no-demo", is_flag=True, help="Do not load the demo observatory into an empty store.")
 def db_upgrade(revision: str, no_demo: bool) -> None:
     """Create or upgrade the tables of the store at DATABASE_URL (default: SQLite in ./instance)."""
+    from feasibility.cli.command_app import command_app
     from feasibility.store.db import default_database_url
     from feasibility.store.migrate import upgrade
-    from feasibility.web import create_app
 
     url = default_database_url()
     upgrade(url, revision)
     if not no_demo:
-        create_app({"SEED_DEMO": True})
+        with command_app(SEED_DEMO=True):
+            pass  # loading the demo observatory is part of making the app
     click.echo(f"Store at {_safe(url)} is at revision {revision}.")
 
 
@@ -94,11 +107,11 @@ def token_group() -> None:
 def token_create(user_name: str, role: str | None, label: str | None) -> None:
     """Make an API token and print it once; only its hash is stored."""
     from feasibility.store.db import session_scope
+    from feasibility.cli.command_app import command_app
     from feasibility.store.models import User
-    from feasibility.web import create_app
     from feasibility.web.auth import create_token, create_user
 
-    with create_app().app_context(), session_scope() as session:
+    with command_app(), session_scope() as session:
         user = session.scalar(select(User).where(User.name == user_name))
         if user is None:
             if role is None:
@@ -122,12 +135,14 @@ def user_group() -> None:
 @click.option("--password", is_flag=True, help="Ask for a password (for signing in to the dashboard).")
 def user_create(name: str, role: str, email: str | None, password: bool) -> None:
     """Create a user; with --password, ask for a password (stored as a salted hash)."""
+    from feasibility.cli.command_app import command_app
     from feasibility.store.db import session_scope
-    from feasibility.web import create_app
-    from feasibility.web.auth import create_user
+    from feasibility.web.auth import create_user, password_problem
 
     secret = click.prompt("Password", hide_input=True, confirmation_prompt=True) if password else None
-    with create_app().app_context(), session_scope() as session:
+    if secret is not None and (problem := password_problem(secret)) is not None:
+        _fail(f"password: {problem}")
+    with command_app(), session_scope() as session:
         try:
             create_user(session, name, role, password=secret, email=email)
         except ValueError as exc:
@@ -192,6 +207,25 @@ def _demo_reviewer() -> None:
 
 #: The reviewer that ``serve --demo`` makes for the dashboard.
 DEMO_REVIEWER = "demo-reviewer"
+
+
+def _loopback(host: str) -> bool:
+    """Whether ``host`` is this machine only (localhost, 127.0.0.0/8, ::1)."""
+    import ipaddress
+
+    if host.lower() in ("localhost", "localhost."):
+        return True
+    try:
+        return ipaddress.ip_address(host.strip("[]")).is_loopback
+    except ValueError:
+        return False
+
+
+def _cookie_security_set() -> bool:
+    """Whether the environment sets the cookie's Secure flag itself (then ``serve --demo`` leaves it alone)."""
+    import os
+
+    return "SESSION_COOKIE_SECURE" in os.environ or "FEASIBILITY_SESSION_COOKIE_SECURE" in os.environ
 
 
 def _safe(url: str) -> str:

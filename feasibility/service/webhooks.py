@@ -13,6 +13,12 @@ by :func:`deliver_due` (a periodic worker task, or the embedded timer), so a slo
 or absent portal never holds up a check. A failed delivery is tried again after
 an exponentially growing delay, up to :data:`MAX_ATTEMPTS` times. Redirects are
 not followed and no proxy is used: a notice goes only to the configured URL.
+
+Addresses are http(s) only and, unless the ``WEBHOOK_ALLOW_PRIVATE`` setting
+allows it, must lead to a public internet address (:mod:`feasibility.service.outbound`):
+one that does not is refused with a field error when it is set, and a notice
+whose address resolves to one when it is due is not sent: the delivery fails at
+once with the reason, which is logged.
 """
 
 from __future__ import annotations
@@ -35,6 +41,7 @@ from flask import current_app, has_app_context
 from sqlalchemy import event, func, select, update
 from sqlalchemy.orm import Session
 
+from feasibility.service.outbound import RefusedAddress, host_problem, opener
 from feasibility.store.models import ProposalRecord, ProposalVersion, User, VerdictChange, WebhookDelivery, utcnow
 
 __all__ = [
@@ -126,9 +133,10 @@ class DeliveryReport:
     sent: int = 0
     retrying: int = 0
     failed: int = 0
+    refused: int = 0  #: not sent: the address is not a public one (given up at once, not counted in ``failed``)
 
     def as_dict(self) -> dict[str, int]:
-        return {"sent": self.sent, "retrying": self.retrying, "failed": self.failed}
+        return {"sent": self.sent, "retrying": self.retrying, "failed": self.failed, "refused": self.refused}
 
 
 SessionMaker = Callable[[], AbstractContextManager[Session]]
@@ -141,6 +149,7 @@ def deliver_due(
     limit: int = 50,
     timeout_s: float = TIMEOUT_S,
     max_attempts: int = MAX_ATTEMPTS,
+    allow_private: bool | None = None,
 ) -> DeliveryReport:
     """Send every pending notice whose time has come; retry later or give up on failure.
 
@@ -153,17 +162,30 @@ def deliver_due(
         The time to compare ``next_attempt_at`` with (default: now).
     limit
         Most notices sent in one call.
+    allow_private
+        Send to loopback, private and other non-public addresses too (default: the
+        app's ``WEBHOOK_ALLOW_PRIVATE`` setting, False outside an app).
     """
     now = now or utcnow()
+    if allow_private is None:
+        allow_private = bool(has_app_context() and current_app.config.get("WEBHOOK_ALLOW_PRIVATE"))
     report = DeliveryReport()
     for delivery_id, url, secret, body, attempts in _claim(sessions, now, limit):
-        error = _post(url, secret or "", body, delivery_id, timeout_s)
+        refused: str | None = None
+        try:
+            error = _post(url, secret or "", body, delivery_id, timeout_s, allow_private=allow_private)
+        except RefusedAddress as exc:
+            refused = error = f"refused: {exc}"
+            log.warning("webhook notice %s not sent to %s: %s", delivery_id, url, exc)
         with sessions() as session, session.begin():
             row = session.get(WebhookDelivery, delivery_id)
             if row is None:
                 continue
             row.attempts = attempts + 1
-            if error is None:
+            if refused is not None:
+                row.state, row.last_error = "failed", refused
+                report.refused += 1
+            elif error is None:
                 row.state, row.last_error = "sent", None
                 report.sent += 1
             elif row.attempts >= max_attempts:
@@ -181,12 +203,17 @@ def retry_delay(attempts: int) -> timedelta:
     return min(FIRST_RETRY_DELAY * (2 ** max(attempts - 1, 0)), MAX_DELAY)
 
 
-def webhook_url_problem(url: str) -> str | None:
-    """Why ``url`` cannot be a webhook address (None when it can): http(s), a host, no credentials."""
+def webhook_url_problem(url: str, *, allow_private: bool = False) -> str | None:
+    """Why ``url`` cannot be a webhook address (None when it can).
+
+    http(s), a host, no credentials; unless ``allow_private``, a host that is not,
+    and does not resolve to, a loopback, private or other non-public address.
+    """
     try:
         parts = urlsplit(url)
+        port = parts.port
     except ValueError:
-        return "is not a URL"
+        return "is not a URL (or has a bad port)"
     if parts.scheme not in ("http", "https"):
         return "must start with http:// or https://"
     if not parts.hostname:
@@ -195,6 +222,8 @@ def webhook_url_problem(url: str) -> str | None:
         return "must not carry a user name or password"
     if len(url) > 2000:
         return "is longer than 2000 characters"
+    if not allow_private and (problem := host_problem(parts.hostname, port or (443 if parts.scheme == "https" else 80))) is not None:
+        return f"must lead to a public internet address: {problem} (an administrator may allow such addresses with WEBHOOK_ALLOW_PRIVATE)"
     return None
 
 
@@ -298,18 +327,10 @@ def _seconds_to_next(sessions: SessionMaker) -> float | None:
     return max((due - utcnow()).total_seconds(), 0.05)
 
 
-class _NoRedirect(urllib.request.HTTPRedirectHandler):
-    """Answer a redirect as an error: a notice goes only to the address the administrator set."""
-
-    def redirect_request(self, *args: Any, **kwargs: Any) -> None:
-        return None
-
-
-_OPENER = urllib.request.build_opener(urllib.request.ProxyHandler({}), _NoRedirect())
-
-
-def _post(url: str, secret: str, body: str, delivery_id: int, timeout_s: float) -> str | None:
-    """POST the signed notice; None on a 2xx answer, else what went wrong."""
+def _post(url: str, secret: str, body: str, delivery_id: int, timeout_s: float, *, allow_private: bool = False) -> str | None:
+    """POST the signed notice; None on a 2xx answer, else what went wrong. Raises RefusedAddress for a non-public address."""
+    if (problem := webhook_url_problem(url, allow_private=True)) is not None:  # stored before the rules were what they are
+        raise RefusedAddress(f"the address {problem}")
     raw = body.encode("utf-8")
     request = urllib.request.Request(
         url,
@@ -323,12 +344,16 @@ def _post(url: str, secret: str, body: str, delivery_id: int, timeout_s: float) 
         },
     )
     try:
-        with _OPENER.open(request, timeout=timeout_s) as answer:
+        with opener(allow_private=allow_private).open(request, timeout=timeout_s) as answer:
             status = answer.status
     except urllib.error.HTTPError as exc:
         exc.close()
         return f"HTTP {exc.code}"
-    except (urllib.error.URLError, OSError, ValueError) as exc:
+    except urllib.error.URLError as exc:
+        if isinstance(exc.reason, RefusedAddress):
+            raise exc.reason from None
+        return f"not delivered: {exc.reason}"
+    except (OSError, ValueError) as exc:
         reason = getattr(exc, "reason", exc)
         return f"not delivered: {reason}"
     return None if 200 <= status < 300 else f"HTTP {status}"

@@ -19,10 +19,12 @@ __all__ = [
     "CheckRun",
     "FindingRow",
     "ObservatoryVersion",
+    "PageSession",
     "ProposalRecord",
     "ProposalVersion",
     "RequestOutcome",
     "ScheduleVersion",
+    "SignInFailure",
     "User",
     "VerdictChange",
     "WebhookDelivery",
@@ -76,6 +78,41 @@ class ApiToken(Base):
     revoked_at: Mapped[datetime | None]
 
     user: Mapped[User] = relationship()
+
+
+class PageSession(Base):
+    """A signed-in dashboard session. The browser's cookie holds only a random id; the store keeps its SHA-256.
+
+    Signing out or changing the password revokes the row, so a cookie copied
+    earlier stops working; ``password_stamp`` (a digest of the password hash at
+    sign-in) also ends it when the hash changes by any other path.
+    """
+
+    __tablename__ = "page_sessions"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    id_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    password_stamp: Mapped[str] = mapped_column(String(64))
+    address: Mapped[str | None] = mapped_column(String(64), doc="The client address that signed in.")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    expires_at: Mapped[datetime] = mapped_column(index=True)
+    revoked_at: Mapped[datetime | None]
+
+
+class SignInFailure(Base):
+    """One refused sign-in: the name tried and the client address, kept for the throttle's window only."""
+
+    __tablename__ = "sign_in_failures"
+    __table_args__ = (
+        Index("ix_sign_in_failures_account_failed_at", "account", "failed_at"),
+        Index("ix_sign_in_failures_address_failed_at", "address", "failed_at"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    account: Mapped[str] = mapped_column(String(200))
+    address: Mapped[str] = mapped_column(String(64))
+    failed_at: Mapped[datetime] = mapped_column(default=utcnow, index=True)
 
 
 class ObservatoryVersion(Base):

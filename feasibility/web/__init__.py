@@ -27,6 +27,7 @@ log = logging.getLogger(__name__)
 _BLUEPRINTS: list[str] = [
     "feasibility.web.api:bp",
     "feasibility.web.admin_api:bp",
+    "feasibility.web.access_api:bp",
     "feasibility.web.dashboard:bp",
 ]
 
@@ -56,10 +57,26 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         MAX_WAIT_S=30,
         SEED_DEMO=True,
         CREATE_TABLES=False,
+        # The dashboard's session cookie (RFC 6265). It carries only a random session id; who is signed in is kept in the store.
+        # Secure: sent over https only. None means True, except when TESTING; `serve --demo` on a loopback address sets False.
+        # FEASIBILITY_SESSION_COOKIE_SECURE=false (or the plain SESSION_COOKIE_SECURE=false) allows plain http anywhere.
+        SESSION_COOKIE_SECURE=None,
+        SESSION_COOKIE_HTTPONLY=True,  # never readable by scripts in the page
+        SESSION_COOKIE_SAMESITE="Lax",  # not sent with cross-site posts
+        SESSION_LIFETIME_H=12,  # a dashboard session ends this many hours after sign-in (or at sign-out, or a password change)
+        # The sign-in throttle (web/sign_in_limits.py), kept in the store so it holds across every web process.
+        SIGN_IN_FAILURES_PER_ACCOUNT=5,  # failures of one account name within the window before it must wait
+        SIGN_IN_FAILURES_PER_ADDRESS=20,  # failures from one client address within the window before it must wait
+        SIGN_IN_WINDOW_S=3600,  # how long a failure counts, in seconds
+        SIGN_IN_FIRST_DELAY_S=30,  # the first wait after reaching a limit; doubles with each further failure
+        SIGN_IN_MAX_DELAY_S=900,  # the longest wait
+        TRUSTED_PROXIES=0,  # reverse proxies in front of the app whose X-Forwarded-For/-Proto are believed (client address)
+        WEBHOOK_ALLOW_PRIVATE=False,  # allow webhook addresses on loopback, private, link-local... networks (tests, closed sites)
     )
     app.config.from_prefixed_env("FEASIBILITY")
     if test_config is not None:
         app.config.from_mapping(test_config)
+    _cookie_security(app)
 
     if not app.config["SECRET_KEY"]:
         app.config["SECRET_KEY"] = _instance_secret_key(app)
@@ -76,6 +93,26 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         app.register_blueprint(getattr(import_module(module), attribute))
     app.register_error_handler(HTTPException, _api_error)
     return app
+
+
+def _cookie_security(app: Flask) -> None:
+    """Settle ``SESSION_COOKIE_SECURE``: the plain environment variable wins, else the setting, else True unless TESTING.
+
+    Also believe ``TRUSTED_PROXIES`` reverse proxies' forwarded headers, so the sign-in
+    throttle counts per real client address and ``Secure`` cookies work behind TLS proxies.
+    """
+    plain = os.environ.get("SESSION_COOKIE_SECURE")
+    if plain is not None:
+        app.config["SESSION_COOKIE_SECURE"] = plain.strip().lower() in {"1", "true", "yes", "on"}
+    elif app.config.get("SESSION_COOKIE_SECURE") is None:
+        app.config["SESSION_COOKIE_SECURE"] = not app.config.get("TESTING", False)
+    else:
+        app.config["SESSION_COOKIE_SECURE"] = bool(app.config["SESSION_COOKIE_SECURE"])
+    hops = int(app.config.get("TRUSTED_PROXIES") or 0)
+    if hops > 0:
+        from werkzeug.middleware.proxy_fix import ProxyFix
+
+        app.wsgi_app = ProxyFix(app.wsgi_app, x_for=hops, x_proto=hops)  # type: ignore[method-assign]
 
 
 def _instance_secret_key(app: Flask) -> str:

@@ -167,7 +167,8 @@ def put_webhook(name: str) -> dict[str, Any]:
         raise DocumentError([Problem("", "send a JSON object with 'url' and 'secret'")], "webhook")
     problems = []
     url, secret = body.get("url"), body.get("secret")
-    if not isinstance(url, str) or (reason := webhook_url_problem(url)) is not None:
+    allow_private = bool(current_app.config.get("WEBHOOK_ALLOW_PRIVATE"))
+    if not isinstance(url, str) or (reason := webhook_url_problem(url, allow_private=allow_private)) is not None:
         problems.append(Problem("url", "is required" if not isinstance(url, str) else reason or ""))
     if not isinstance(secret, str) or len(secret) < 16 or len(secret) > 200:
         problems.append(Problem("secret", "must be text of 16 to 200 characters"))
@@ -316,7 +317,9 @@ OPENAPI_PATHS: dict[str, Any] = {
         {"name": "limit", "in": "query", "schema": {"type": "integer", "minimum": 1, "maximum": MAX_CHANGES, "default": 100}}])},
     "/api/v1/users/{name}/webhook": {
         "put": _path_item("Set a user's webhook address and secret (admin)", "Notices carry the hex HMAC-SHA256 of the body in "
-                          "X-Feasibility-Signature.", parameters=[{"name": "name", "in": "path", "required": True, "schema": {"type": "string"}}]),
+                          "X-Feasibility-Signature. The address must be http(s) and, unless the WEBHOOK_ALLOW_PRIVATE setting allows "
+                          "it, lead to a public internet address (not loopback, private, link-local, multicast or reserved): "
+                          "else 422 naming the field `url`.", parameters=[{"name": "name", "in": "path", "required": True, "schema": {"type": "string"}}]),
         "delete": _path_item("Stop a user's notices (admin)", parameters=[{"name": "name", "in": "path", "required": True, "schema": {"type": "string"}}]),
     },
 }

@@ -5,7 +5,9 @@ own proposals; ``portal`` submits on behalf of proposers and reads what it
 submitted; ``admin`` manages the observatory description and schedules and may
 do everything. A token is a high-entropy random string shown once; the store
 keeps its SHA-256, which is enough for a secret that is not guessable (unlike a
-password, it needs no slow hash).
+password, it needs no slow hash). Tokens are revoked, never deleted
+(:func:`revoke_tokens`); a password change (:func:`set_password`) ends the
+user's dashboard sessions.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ import hashlib
 import secrets
 from collections.abc import Callable
 from functools import wraps
+from datetime import datetime
 from typing import Any, TypeVar
 
 from flask import abort, g, request, session
@@ -22,7 +25,8 @@ from sqlalchemy.orm import Session
 from werkzeug.security import check_password_hash, generate_password_hash
 
 from feasibility.store.db import session_scope
-from feasibility.store.models import ApiToken, User
+from feasibility.store.models import ApiToken, User, utcnow
+from feasibility.web.page_sessions import COOKIE_KEY, revoke_user_sessions
 
 __all__ = [
     "READ_ALL",
@@ -34,7 +38,10 @@ __all__ = [
     "current_user",
     "hash_password",
     "hash_token",
+    "password_problem",
     "require_role",
+    "revoke_tokens",
+    "set_password",
     "user_for_token",
 ]
 
@@ -43,6 +50,11 @@ ROLES = ("reviewer", "proposer", "portal", "admin")
 READ_ALL = frozenset({"reviewer", "admin"})
 #: Roles that may submit proposals.
 SUBMITTERS = frozenset({"proposer", "portal", "admin"})
+
+#: Shortest password accepted (NIST SP 800-63B, 5.1.1.2: at least 8 characters; see docs/references.md).
+MIN_PASSWORD_LENGTH = 8
+#: Longest password accepted: enough for any passphrase, short enough that hashing it costs nothing extra.
+MAX_PASSWORD_LENGTH = 1000
 
 F = TypeVar("F", bound=Callable[..., Any])
 
@@ -53,6 +65,8 @@ def create_user(session: Session, name: str, role: str, *, password: str | None 
         raise ValueError(f"unknown role {role!r} (known: {', '.join(ROLES)})")
     if session.scalar(select(User).where(User.name == name)) is not None:
         raise ValueError(f"a user named {name!r} exists already")
+    if password is not None and (problem := password_problem(password)) is not None:
+        raise ValueError(f"the password {problem}")
     user = User(name=name, role=role, email=email, password_hash=hash_password(password) if password else None)
     session.add(user)
     session.flush()
@@ -62,6 +76,43 @@ def create_user(session: Session, name: str, role: str, *, password: str | None 
 def hash_password(password: str) -> str:
     """A salted hash of ``password`` to store in ``User.password_hash`` (werkzeug's default method)."""
     return generate_password_hash(password)
+
+
+def password_problem(password: str) -> str | None:
+    """Why ``password`` cannot be used (None when it can): the one rule for every way a password is set."""
+    if len(password) < MIN_PASSWORD_LENGTH:
+        return f"must be at least {MIN_PASSWORD_LENGTH} characters long"
+    if len(password) > MAX_PASSWORD_LENGTH:
+        return f"must be at most {MAX_PASSWORD_LENGTH} characters long"
+    if password.strip() == "":
+        return "must not be only spaces"
+    return None
+
+
+def set_password(session: Session, user: User, password: str) -> int:
+    """Give ``user`` a new password and end every one of their dashboard sessions; how many were ended.
+
+    Raises ValueError naming the problem when the password is not acceptable.
+    """
+    if (problem := password_problem(password)) is not None:
+        raise ValueError(f"the password {problem}")
+    user.password_hash = hash_password(password)
+    session.flush()
+    return revoke_user_sessions(session, user.id)
+
+
+def revoke_tokens(session: Session, *, token_id: int | None = None, user: User | None = None) -> list[ApiToken]:
+    """Revoke one token (by id) or every token of ``user``; the tokens revoked now (already revoked ones are left out)."""
+    if (token_id is None) == (user is None):
+        raise ValueError("give a token id or a user, not both")
+    query = select(ApiToken).where(ApiToken.revoked_at.is_(None)).order_by(ApiToken.id)
+    query = query.where(ApiToken.id == token_id) if token_id is not None else query.where(ApiToken.user_id == user.id)  # type: ignore[union-attr]
+    tokens = list(session.scalars(query))
+    now: datetime = utcnow()
+    for token in tokens:
+        token.revoked_at = now
+    session.flush()
+    return tokens
 
 
 def check_password(user: User, password: str) -> bool:
@@ -100,8 +151,8 @@ def authenticate() -> User | None:
     if scheme.lower() == "bearer" and credentials.strip():
         with session_scope(read_only=True) as db:
             user = user_for_token(db, credentials.strip())
-    elif not header and request.method in ("GET", "HEAD") and session.get("user_id") is not None:
-        # The same test as the pages: a session ends when its user's password changes.
+    elif not header and request.method in ("GET", "HEAD") and session.get(COOKIE_KEY) is not None:
+        # The pages' own test: a live server-side session (ended by signing out or a password change).
         from feasibility.web.auth_pages import current_user as signed_in_user
 
         user = signed_in_user()

@@ -1,16 +1,20 @@
-"""Signing in to the dashboard's pages: sessions, roles and protection of forms against CSRF.
+"""Signing in to the dashboard's pages: server-side sessions, the sign-in throttle, roles and CSRF protection.
 
 Passwords are checked with :mod:`werkzeug.security` (salted scrypt hashes made by
-``generate_password_hash``). The session is Flask's signed cookie, HTTP-only,
-``SameSite=Lax``, and ``Secure`` when ``SESSION_COOKIE_SECURE`` is set in the
-environment (or the app's configuration). It holds the user's id and a digest of
-their password hash, so changing a password ends every other session.
+``generate_password_hash``). The session cookie is Flask's signed cookie, but it
+carries only a random session id (:mod:`feasibility.web.page_sessions`): who is
+signed in is kept in the store, so signing out or a password change ends the
+session everywhere, including copies of the cookie. The cookie is HTTP-only,
+``SameSite=Lax`` and ``Secure`` (see ``create_app`` for the settings). Failed
+sign-ins are throttled per account and per client address
+(:mod:`feasibility.web.sign_in_limits`).
 
-CSRF: our own synchroniser token (OWASP CSRF Prevention Cheat Sheet). A random
-token is kept in the session; every form posts it back in ``csrf_token`` (or a
-script sends it in the ``X-CSRF-Token`` header) and the pages' blueprints reject
-an unsafe request whose token is missing or different, compared in constant
-time. The JSON API (bearer tokens, no cookies) is not affected.
+CSRF: a synchroniser token (OWASP CSRF Prevention Cheat Sheet) derived from the
+session id with an HMAC keyed by the app's secret key, so it lives and dies with
+the session and the cookie needs nothing else. Every form posts it back in
+``csrf_token`` (or a script sends it in the ``X-CSRF-Token`` header) and the
+pages' blueprints reject an unsafe request whose token is missing or different,
+compared in constant time. The JSON API (bearer tokens, no cookies) is not affected.
 """
 
 from __future__ import annotations
@@ -18,9 +22,9 @@ from __future__ import annotations
 import functools
 import hashlib
 import hmac
-import os
 import secrets
 from collections.abc import Callable
+from datetime import timedelta
 from typing import Any, TypeVar
 from urllib.parse import urlsplit
 
@@ -28,13 +32,15 @@ from flask import Blueprint, Flask, Response, abort, current_app, flash, g, redi
 from sqlalchemy import select
 from werkzeug.security import check_password_hash, generate_password_hash
 
-from feasibility.store.db import session_factory
+from feasibility.store.db import session_factory, session_scope
 from feasibility.store.models import User
+from feasibility.web import page_sessions, sign_in_limits
 
 __all__ = [
     "PAGE_ROLES",
     "bp",
     "check_csrf",
+    "SESSION_ID_KEY",
     "csrf_token",
     "current_user",
     "db",
@@ -51,19 +57,13 @@ PAGE_ROLES = ("reviewer", "proposer", "admin")
 ALL_PROPOSALS_ROLES = ("reviewer", "admin")
 
 _UNSAFE_METHODS = {"POST", "PUT", "PATCH", "DELETE"}
-_CSRF_KEY = "csrf"
+SESSION_ID_KEY = page_sessions.COOKIE_KEY
 
 View = TypeVar("View", bound=Callable[..., Any])
 
 
 def init_app(app: Flask) -> None:
-    """Set the session cookie's attributes and register the sign-in pages on ``app``."""
-    if app.config.get("SESSION_COOKIE_SAMESITE") is None:
-        app.config["SESSION_COOKIE_SAMESITE"] = "Lax"
-    app.config["SESSION_COOKIE_HTTPONLY"] = True
-    secure = os.environ.get("SESSION_COOKIE_SECURE")
-    if secure is not None:
-        app.config["SESSION_COOKIE_SECURE"] = secure.strip().lower() in {"1", "true", "yes", "on"}
+    """Register the sign-in pages and the templates' helpers on ``app`` (the cookie's attributes are set by ``create_app``)."""
     app.jinja_env.globals["csrf_token"] = csrf_token
     app.jinja_env.globals["current_user"] = current_user
     app.teardown_appcontext(_close_db)
@@ -93,19 +93,14 @@ def db() -> Any:
 
 
 def current_user() -> User | None:
-    """The signed-in user of this request, or None."""
+    """The signed-in user of this request (a live server-side session of a page role), or None."""
     if "dashboard_user" in g:
         return g.dashboard_user
     user = None
-    user_id = session.get("user_id")
-    if isinstance(user_id, int):
-        candidate = db().get(User, user_id)
-        if (
-            candidate is not None
-            and candidate.role in PAGE_ROLES
-            and candidate.password_hash
-            and hmac.compare_digest(str(session.get("pw", "")), _password_digest(candidate.password_hash))
-        ):
+    raw_id = session.get(SESSION_ID_KEY)
+    if isinstance(raw_id, str) and raw_id:
+        candidate = page_sessions.user_for_session(db(), raw_id)
+        if candidate is not None and candidate.role in PAGE_ROLES:
             user = candidate
     g.dashboard_user = user
     return user
@@ -137,22 +132,26 @@ def sign_in_required(*roles: str) -> Callable[[View], View]:
 
 
 def csrf_token() -> str:
-    """This session's CSRF token (made on first use)."""
-    token = session.get(_CSRF_KEY)
-    if not isinstance(token, str) or len(token) < 32:
-        token = secrets.token_urlsafe(32)
-        session[_CSRF_KEY] = token
-    return token
+    """This session's CSRF token: an HMAC of the session id (a fresh anonymous id is made on first use)."""
+    raw_id = session.get(SESSION_ID_KEY)
+    if not isinstance(raw_id, str) or len(raw_id) < 32:
+        raw_id = session[SESSION_ID_KEY] = page_sessions.new_session_id()
+    return _csrf_for(raw_id)
 
 
 def check_csrf() -> None:
     """Reject an unsafe request whose CSRF token is missing or wrong (400). Register with ``before_request``."""
     if request.method not in _UNSAFE_METHODS or current_app.config.get("DASHBOARD_CSRF_DISABLED"):
         return
-    expected = session.get(_CSRF_KEY)
+    raw_id = session.get(SESSION_ID_KEY)
     sent = request.form.get("csrf_token") or request.headers.get("X-CSRF-Token") or ""
-    if not isinstance(expected, str) or not expected or not hmac.compare_digest(sent.encode(), expected.encode()):
+    if not isinstance(raw_id, str) or len(raw_id) < 32 or not hmac.compare_digest(sent.encode(), _csrf_for(raw_id).encode()):
         abort(400, description="The form had expired or did not come from this site. Reload the page and try again.")
+
+
+def _csrf_for(raw_id: str) -> str:
+    key = str(current_app.config["SECRET_KEY"]).encode()
+    return hmac.new(key, b"csrf:" + raw_id.encode(), hashlib.sha256).hexdigest()
 
 
 bp.before_request(check_csrf)
@@ -161,28 +160,46 @@ bp.after_request(security_headers)
 
 @bp.route("/sign-in", methods=["GET", "POST"])
 def sign_in() -> Any:
-    """The sign-in form; on success, back to where the user was going."""
+    """The sign-in form; on success, back to where the user was going. Throttled per account and per address."""
     target = _safe_next(request.values.get("next"))
     if request.method == "GET":
         return render_template("dashboard/sign_in.html", next=target, name="")
     name = request.form.get("name", "").strip()
     password = request.form.get("password", "")
+    address = request.remote_addr or "unknown"
+    limits = sign_in_limits.Limits.from_config(current_app.config)
+    wait = sign_in_limits.seconds_to_wait(db(), name, address, limits)
+    if wait:
+        page = render_template("dashboard/sign_in.html", next=target, name=name, wait_s=wait)
+        return page, 429, {"Retry-After": str(wait)}  # RFC 6585 section 4
     user = db().scalars(select(User).where(User.name == name)).first() if name else None
     stored = user.password_hash if user is not None and user.password_hash else _dummy_hash()
     valid = check_password_hash(stored, password) and user is not None and user.password_hash is not None
     if not valid or user is None or user.role not in PAGE_ROLES:
+        with session_scope() as writer:
+            sign_in_limits.record_failure(writer, name, address, limits)
         return render_template("dashboard/sign_in.html", next=target, name=name, failed=True), 401
-    session.clear()  # a fresh session (and CSRF token) for the signed-in user
-    session["user_id"] = user.id
-    session["pw"] = _password_digest(user.password_hash or "")
+    raw_id = page_sessions.new_session_id()  # a new id on every sign-in: a planted id is never signed in
+    with session_scope() as writer:
+        sign_in_limits.clear_account(writer, name)
+        page_sessions.purge_old_sessions(writer)
+        lifetime = timedelta(hours=float(current_app.config.get("SESSION_LIFETIME_H", 12)))
+        page_sessions.start_session(writer, user, raw_id, lifetime=lifetime, address=address)
+    session.clear()
+    session[SESSION_ID_KEY] = raw_id
     g.pop("dashboard_user", None)
     return redirect(target or url_for("dashboard.home"))
 
 
 @bp.post("/sign-out")
 def sign_out() -> Any:
-    """End the session."""
+    """End the session: revoked in the store, so a copy of the cookie no longer works either."""
+    raw_id = session.get(SESSION_ID_KEY)
+    if isinstance(raw_id, str) and raw_id:
+        with session_scope() as writer:
+            page_sessions.end_session(writer, raw_id)
     session.clear()
+    g.pop("dashboard_user", None)
     flash("You are signed out.")
     return redirect(url_for("auth.sign_in"))
 
@@ -191,10 +208,6 @@ def sign_out() -> Any:
 def _dummy_hash() -> str:
     """A hash to check against when the user name is unknown, so the answer takes as long either way."""
     return generate_password_hash(secrets.token_hex(16))
-
-
-def _password_digest(password_hash: str) -> str:
-    return hashlib.sha256(password_hash.encode()).hexdigest()[:24]
 
 
 def _safe_next(target: str | None) -> str | None:

@@ -38,7 +38,8 @@ def openapi_document() -> dict[str, Any]:
         "paths": _PATHS,
         "components": {
             "schemas": schemas,
-            "securitySchemes": {"bearer": {"type": "http", "scheme": "bearer", "description": "An API token from `feasibility token create`."}},
+            "securitySchemes": {"bearer": {"type": "http", "scheme": "bearer", "description": "An API token from `feasibility token create`; "
+                                   "revoked with `feasibility token revoke` or POST /api/v1/tokens/{token_id}/revoke."}},
             "responses": {
                 "Invalid": {"description": "The document or a parameter has problems.", "content": _json("Invalid")},
                 "Error": {"description": "An error.", "content": _json("Error")},
@@ -254,3 +255,8 @@ _API_SCHEMAS: dict[str, Any] = {
 from feasibility.web.admin_api import OPENAPI_PATHS as _ADMIN_PATHS  # noqa: E402 - schedules, re-checks, changes (re-check helper)
 
 _PATHS.update(_ADMIN_PATHS)
+
+from feasibility.web.access_api import OPENAPI_PATHS as _ACCESS_PATHS, OPENAPI_SCHEMAS as _ACCESS_SCHEMAS  # noqa: E402 - tokens, passwords
+
+_PATHS.update(_ACCESS_PATHS)
+_API_SCHEMAS.update(_ACCESS_SCHEMAS)

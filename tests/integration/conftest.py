@@ -154,6 +154,7 @@ def service_env(postgres_url: str, redis_prefix: str) -> dict[str, str]:
         FEASIBILITY_QUEUE_PREFIX=redis_prefix,
         FEASIBILITY_QUEUED_TIMEOUT_S="5",
         FEASIBILITY_SWEEP_INTERVAL_S="5",
+        FEASIBILITY_WEBHOOK_ALLOW_PRIVATE="true",  # the tests' webhook receivers listen on 127.0.0.1
         FEASIBILITY_HOME=os.environ.get("FEASIBILITY_HOME", "/tmp/feasibility-test-home"),
     )
     if "FEASIBILITY_CACHE_DIR" in os.environ:
@@ -172,7 +173,8 @@ def live(postgres_url: str, redis_prefix: str, tmp_path_factory: pytest.TempPath
     env = service_env(postgres_url, redis_prefix)
     upgrade(postgres_url)
     app = create_app(
-        {"DATABASE_URL": postgres_url, "BROKER_URL": REDIS_URL, "QUEUE_PREFIX": redis_prefix, "QUEUED_TIMEOUT_S": 5, "SWEEP_INTERVAL_S": 5}
+        {"DATABASE_URL": postgres_url, "BROKER_URL": REDIS_URL, "QUEUE_PREFIX": redis_prefix, "QUEUED_TIMEOUT_S": 5, "SWEEP_INTERVAL_S": 5,
+         "WEBHOOK_ALLOW_PRIVATE": True}
     )
     tokens: dict[str, str] = {}
     with app.app_context(), session_scope() as session:

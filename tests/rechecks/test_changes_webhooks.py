@@ -2,7 +2,8 @@
 
 References: the signature is checked with Python's standard ``hmac`` library
 (HMAC-SHA256, RFC 2104) and ``hmac.compare_digest``, independently of the code
-that signs; the receiver is a standard-library HTTP server on 127.0.0.1.
+that signs; the receiver is a standard-library HTTP server on 127.0.0.1, so these
+tests allow private addresses (``allow_private=True``, the WEBHOOK_ALLOW_PRIVATE setting).
 """
 
 from __future__ import annotations
@@ -98,7 +99,7 @@ def test_changed_verdict_is_recorded_and_notice_verifies(store: str, proposal: A
         assert change is not None and (change.verdict_before, change.verdict_after) == ("feasible", "infeasible")
         assert change.details["requests"][0]["changed_figures"] == ["hours_observable"]  # 40 h -> 0 h
         assert record_changes(session, second) is None  # recorded once only
-    report = deliver_due(session_factory)
+    report = deliver_due(session_factory, allow_private=True)
     assert report.sent == 1
     headers, body = receiver.received[0]
     expected = hmac.new(SECRET.encode(), body, hashlib.sha256).hexdigest()  # standard-library HMAC-SHA256
@@ -107,7 +108,7 @@ def test_changed_verdict_is_recorded_and_notice_verifies(store: str, proposal: A
     notice = json.loads(body)
     assert (notice["proposal_id"], notice["verdict_before"], notice["verdict_after"]) == ("H1", "feasible", "infeasible")
     assert headers[DELIVERY_HEADER].isdigit()
-    assert deliver_due(session_factory).sent == 0  # nothing left to send
+    assert deliver_due(session_factory, allow_private=True).sent == 0  # nothing left to send
 
 
 def test_same_verdict_small_move_records_nothing(store: str, proposal: Any, done: Any) -> None:
@@ -136,15 +137,15 @@ def test_failed_deliveries_back_off_then_give_up(store: str, proposal: Any, rece
         session.flush()
         session.add(WebhookDelivery(user_id=portal.id, change_id=change.id, body='{"x":1}'))
     receiver.statuses = [500, 503]
-    first = deliver_due(session_factory)
+    first = deliver_due(session_factory, allow_private=True)
     assert first.retrying == 1 and first.sent == 0
-    assert deliver_due(session_factory).sent == 0  # not due yet: the back-off holds it
+    assert deliver_due(session_factory, allow_private=True).sent == 0  # not due yet: the back-off holds it
     later = utcnow() + timedelta(minutes=5)
-    assert deliver_due(session_factory, now=later).retrying == 1  # second failure (503)
+    assert deliver_due(session_factory, allow_private=True, now=later).retrying == 1  # second failure (503)
     with session_scope() as session:
         row = session.scalars(select(WebhookDelivery)).one()
         assert (row.attempts, row.last_error) == (2, "HTTP 503")
-    assert deliver_due(session_factory, now=utcnow() + timedelta(minutes=10)).sent == 1  # then 204
+    assert deliver_due(session_factory, allow_private=True, now=utcnow() + timedelta(minutes=10)).sent == 1  # then 204
     assert len(receiver.received) == 3
     # Exponential back-off: 30 s, 60 s, 120 s ... capped at 6 h (the documented schedule).
     assert [retry_delay(n).total_seconds() for n in (1, 2, 3)] == [30, 60, 120]
@@ -162,18 +163,18 @@ def test_unreachable_portal_fails_after_max_attempts(store: str, proposal: Any) 
         session.add(change)
         session.flush()
         session.add(WebhookDelivery(user_id=portal.id, change_id=change.id, body="{}"))
-    report = deliver_due(session_factory, max_attempts=1, timeout_s=2)
+    report = deliver_due(session_factory, allow_private=True, max_attempts=1, timeout_s=2)
     assert report.failed == 1
     with session_scope() as session:
         assert session.scalars(select(WebhookDelivery.state)).one() == "failed"
 
 
 @pytest.mark.parametrize(("url", "ok"), [
-    ("https://portal.example.org/hook", True),
+    ("https://203.0.113.5/hook", True),  # an address literal: no name to resolve (TEST-NET-3, allowed here)
     ("http://127.0.0.1:8080/x", True),
     ("ftp://portal.example.org/", False),
     ("https://user:pw@portal.example.org/", False),
     ("not a url", False),
 ])
-def test_webhook_url_rules(url: str, ok: bool) -> None:
-    assert (webhook_url_problem(url) is None) is ok
+def test_webhook_url_rules_when_private_addresses_are_allowed(url: str, ok: bool) -> None:
+    assert (webhook_url_problem(url, allow_private=True) is None) is ok

@@ -40,4 +40,4 @@ def test_nightly_task_twice_queues_once(app: Flask, demo_schedule: dict[str, Any
     first, second = nightly_recheck(), nightly_recheck()
     assert first["proposals"] == ["H1"] and first["by_instrument"] == {"HERON": 1}  # only the HERON proposal
     assert second["queued"] == 0  # nothing changed since: idempotent
-    assert deliver_notices() == {"sent": 0, "retrying": 0, "failed": 0}
+    assert deliver_notices() == {"sent": 0, "retrying": 0, "failed": 0, "refused": 0}
