@@ -1,4 +1,12 @@
-"""Shared fixtures: ``app``, ``client`` and ``runner`` on a fresh SQLite store per test, and API tokens.
+"""Shared fixtures: ``app``, ``client`` and ``runner`` on a fresh store per test, on SQLite AND PostgreSQL, and API tokens.
+
+Every test that uses ``database_url`` (and so ``app``, ``client``, ``runner``,
+``make_token``) runs twice, with ids ``sqlite`` and ``postgresql``: the embedded
+default and the production store. SQLite gets a new file per test. PostgreSQL
+(``TEST_POSTGRES_URL``) gets one uniquely named database per test session, built
+once from the models and emptied before each test (TRUNCATE ... RESTART IDENTITY,
+so ids start at 1 as on a new SQLite file); it is dropped at the end. Without a
+reachable PostgreSQL those runs are skipped — unless CI is set, where they fail.
 
 The app has the demo observatory and schedule loaded and an embedded pool of
 check workers (started on first use, stopped after the test).
@@ -6,6 +14,8 @@ check workers (started on first use, stopped after the test).
 
 from __future__ import annotations
 
+import os
+import uuid
 from collections.abc import Callable, Iterator
 from pathlib import Path
 
@@ -14,18 +24,100 @@ from click.testing import CliRunner, Result
 from flask import Flask
 from flask.testing import FlaskClient
 
+POSTGRES_URL = os.environ.get("TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres")
+IN_CI = os.environ.get("CI", "").lower() in ("1", "true", "yes")
+
+#: The stores every API and page test runs on.
+DATABASES = ["sqlite", "postgresql"]
+
+
+def service_unavailable(what: str, error: BaseException) -> None:
+    """Skip the test because ``what`` cannot be reached — or fail it when CI is set (a missing service never passes CI)."""
+    message = f"{what} is not reachable: {error}"
+    if IN_CI:
+        pytest.fail(f"{message} (CI is set: the service is required)", pytrace=False)
+    pytest.skip(message)
+
+
+@pytest.fixture(scope="session")
+def postgres_database() -> Iterator[str]:
+    """A new, uniquely named PostgreSQL database for this test session with the models' tables; dropped at the end."""
+    from sqlalchemy import create_engine, text
+    from sqlalchemy.engine import make_url
+
+    from feasibility.store.models import Base
+
+    admin = create_engine(POSTGRES_URL, isolation_level="AUTOCOMMIT")
+    try:
+        with admin.connect() as connection:
+            connection.execute(text("SELECT 1"))
+    except Exception as exc:  # noqa: BLE001 - any connection failure means "not available"
+        admin.dispose()
+        service_unavailable(f"PostgreSQL at {POSTGRES_URL}", exc)
+    name = f"feasibility_test_{uuid.uuid4().hex[:12]}"
+    with admin.connect() as connection:
+        connection.execute(text(f'CREATE DATABASE "{name}"'))
+    url = make_url(POSTGRES_URL).set(database=name).render_as_string(hide_password=False)
+    try:
+        engine = create_engine(url)
+        Base.metadata.create_all(engine)
+        engine.dispose()
+        yield url
+    finally:
+        with admin.connect() as connection:
+            connection.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
+        admin.dispose()
+
+
+def empty_postgres_store(url: str) -> None:
+    """Empty every table of the models in one statement, ids restarting at 1.
+
+    Faster here than drop_all/create_all (see the report of the change that added
+    it). The lock timeout turns a connection some earlier test left inside a
+    transaction into an error naming the problem, not a hung run.
+    """
+    from sqlalchemy import create_engine, text
+
+    from feasibility.store.models import Base
+
+    tables = ", ".join(f'"{table.name}"' for table in Base.metadata.sorted_tables)
+    engine = create_engine(url, poolclass=_null_pool())
+    try:
+        with engine.begin() as connection:
+            connection.execute(text("SET LOCAL lock_timeout = '10s'"))
+            connection.execute(text(f"TRUNCATE {tables} RESTART IDENTITY CASCADE"))
+    finally:
+        engine.dispose()
+
+
+def _null_pool() -> type:
+    from sqlalchemy.pool import NullPool
+
+    return NullPool
+
+
+@pytest.fixture(params=DATABASES)
+def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
+    """The URL of an empty store for this test: a new SQLite file, or the session's PostgreSQL database emptied."""
+    if request.param == "sqlite":
+        return f"sqlite:///{tmp_path / 'feasibility.sqlite'}"
+    url = request.getfixturevalue("postgres_database")
+    empty_postgres_store(url)
+    return url
+
 
 @pytest.fixture
-def app(tmp_path: Path) -> Iterator[Flask]:
-    """The web app on a new SQLite file, embedded workers, no periodic sweeper."""
+def app(database_url: str) -> Iterator[Flask]:
+    """The web app on a fresh store (SQLite or PostgreSQL), embedded workers, no periodic sweeper."""
     from feasibility.web import create_app
 
     app = create_app(
         {
             "TESTING": True,
             "SECRET_KEY": "test",
-            "DATABASE_URL": f"sqlite:///{tmp_path / 'feasibility.sqlite'}",
-            "CREATE_TABLES": True,
+            "DATABASE_URL": database_url,
+            # PostgreSQL's tables were made once for the session; an SQLite file is new.
+            "CREATE_TABLES": database_url.startswith("sqlite"),
             "BROKER_URL": None,
             "SWEEP_INTERVAL_S": 0,
         }
