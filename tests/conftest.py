@@ -57,12 +57,37 @@ def postgres_database() -> Iterator[str]:
     name = f"feasibility_test_{uuid.uuid4().hex[:12]}"
     with admin.connect() as connection:
         connection.execute(text(f'CREATE DATABASE "{name}"'))
+        # Sessions of this database speak a time zone far from UTC (UTC-4/-3, and DST in the semester),
+        # so a time read back and shown or compared as if it were UTC shows up in the tests.
+        connection.execute(text(f"ALTER DATABASE \"{name}\" SET timezone TO 'America/Santiago'"))
     url = make_url(POSTGRES_URL).set(database=name).render_as_string(hide_password=False)
     try:
         engine = create_engine(url)
         Base.metadata.create_all(engine)
         engine.dispose()
         yield url
+    finally:
+        with admin.connect() as connection:
+            connection.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
+        admin.dispose()
+
+
+@pytest.fixture
+def new_postgres_database() -> Iterator[str]:
+    """The URL of a new, empty PostgreSQL database of its own (no tables), dropped after the test."""
+    from sqlalchemy import create_engine, text
+    from sqlalchemy.engine import make_url
+
+    admin = create_engine(POSTGRES_URL, isolation_level="AUTOCOMMIT", poolclass=_null_pool())
+    name = f"feasibility_test_{uuid.uuid4().hex[:12]}"
+    try:
+        with admin.connect() as connection:
+            connection.execute(text(f'CREATE DATABASE "{name}"'))
+    except Exception as exc:  # noqa: BLE001 - any connection failure means "not available"
+        admin.dispose()
+        service_unavailable(f"PostgreSQL at {POSTGRES_URL}", exc)
+    try:
+        yield make_url(POSTGRES_URL).set(database=name).render_as_string(hide_password=False)
     finally:
         with admin.connect() as connection:
             connection.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))

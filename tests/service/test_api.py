@@ -247,3 +247,21 @@ def test_proposals_without_an_owner_cannot_be_taken_over(app: Flask, client: Fla
     assert client.post("/api/v1/proposals", json=proposal("CLI-1", hours=9), headers=auth(make_token("proposer"))).status_code == 403
     assert client.post("/api/v1/proposals", json=proposal("CLI-1", hours=9), headers=auth(make_token("portal"))).status_code == 403
     assert client.post("/api/v1/proposals", json=proposal("CLI-1", hours=9), headers=auth(make_token("admin"))).status_code == 202
+
+
+def test_times_are_answered_in_utc_on_every_store(app: Flask, client: FlaskClient, make_token: Callable[..., str], fake_engine: FakeEngine) -> None:
+    # The PostgreSQL test database speaks America/Santiago (tests/conftest.py) and SQLite keeps no zone:
+    # the API answers the same instants in UTC either way, as ISO 8601 with the offset +00:00.
+    from datetime import datetime, timedelta, timezone
+
+    token = make_token("proposer")
+    before = datetime.now(timezone.utc)
+    run_id = client.post("/api/v1/proposals", json=proposal("Z-1"), headers=auth(token)).json["run"]["id"]
+    assert app.extensions["feasibility.dispatch"].wait_idle(10)
+    run = client.get(f"/api/v1/runs/{run_id}", headers=auth(token)).json
+    view = client.get("/api/v1/proposals/Z-1", headers=auth(token)).json
+    for text in (run["queued_at"], run["finished_at"]):
+        assert text.endswith("+00:00"), text
+        moment = datetime.fromisoformat(text)
+        assert before - timedelta(seconds=1) <= moment <= datetime.now(timezone.utc)
+    assert json.dumps(view).count("-03:00") + json.dumps(view).count("-04:00") == 0

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.migration import MigrationContext
 from flask import Flask
@@ -24,8 +25,9 @@ def test_sqlite_runs_in_wal_mode_with_a_busy_timeout(tmp_path: Path) -> None:
     engine.dispose()
 
 
-def test_migrations_build_exactly_the_models(tmp_path: Path) -> None:
-    url = f"sqlite:///{tmp_path / 'migrated.sqlite'}"
+@pytest.mark.parametrize("store", ["sqlite", "postgresql"])
+def test_migrations_build_exactly_the_models(store: str, tmp_path: Path, request: pytest.FixtureRequest) -> None:
+    url = f"sqlite:///{tmp_path / 'migrated.sqlite'}" if store == "sqlite" else request.getfixturevalue("new_postgres_database")
     upgrade(url)
     engine = make_engine(url)
     with engine.connect() as connection:
