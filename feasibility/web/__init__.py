@@ -17,6 +17,7 @@ from sqlalchemy.exc import OperationalError, ProgrammingError
 from werkzeug.exceptions import HTTPException
 
 from feasibility.store import db
+from feasibility.web import unavailable
 
 __all__ = ["create_app"]
 
@@ -45,6 +46,7 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         MAX_CONTENT_LENGTH=8 * 1024 * 1024,
         MAX_BULK=500,
         MAX_WAIT_S=30,
+        RETRY_AFTER_S=5,  # the Retry-After of a 503 while the store cannot be reached
         SEED_DEMO=True,
         CREATE_TABLES=False,
     )
@@ -66,6 +68,7 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         module, _, attribute = target.partition(":")
         app.register_blueprint(getattr(import_module(module), attribute))
     app.register_error_handler(HTTPException, _api_error)
+    unavailable.register(app)  # 503 with Retry-After while the store cannot be reached
     return app
 
 

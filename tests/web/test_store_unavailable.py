@@ -1,0 +1,150 @@
+"""While the store cannot be reached the API and the pages answer 503 with Retry-After, never a 500.
+
+RFC 9110 section 15.6.4 (503 Service Unavailable: a temporary overload or maintenance)
+and section 10.2.3 (Retry-After, in seconds) are the outside reference. The stopped
+and restarted database is a PRIVATE PostgreSQL instance started here (own port and
+directories), never the shared one.
+"""
+
+from __future__ import annotations
+
+import glob
+import os
+import shutil
+import socket
+import subprocess
+import tempfile
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+from flask import Flask
+from flask.testing import FlaskClient
+
+from .support import add_user, sign_in
+
+
+def _app(url: str, **settings: Any) -> Flask:
+    from feasibility.web import create_app
+
+    return create_app({"TESTING": True, "SECRET_KEY": "t", "DATABASE_URL": url, "BROKER_URL": None, "SWEEP_INTERVAL_S": 0, **settings})
+
+
+def _close(app: Flask) -> None:
+    app.extensions["feasibility.dispatch"].shutdown()
+    app.extensions["feasibility.db"]["engine"].dispose()
+
+
+def _assert_unavailable(client: FlaskClient, token: str | None) -> None:
+    answer = client.get("/api/v1/proposals", headers={"Authorization": f"Bearer {token or 'fz_any'}"})
+    assert answer.status_code == 503  # RFC 9110 15.6.4
+    assert answer.headers["Retry-After"] == "5"  # RFC 9110 10.2.3: delay-seconds (the RETRY_AFTER_S default)
+    assert answer.json["error"] == "service unavailable"
+    assert "database" in answer.json["message"] and "try again" in answer.json["message"]
+    page = client.get("/proposals")
+    assert page.status_code == 503
+    assert page.headers["Retry-After"] == "5"
+    assert page.mimetype == "text/html"
+    text = page.get_data(as_text=True)
+    assert "Service unavailable" in text and "Traceback" not in text
+
+
+def test_unreachable_database_is_503_with_retry_after() -> None:
+    # Nothing listens on port 1: every connection is refused, as while the server is down.
+    app = _app("postgresql+psycopg://postgres@127.0.0.1:1/feasibility?connect_timeout=2")
+    try:
+        client = app.test_client()
+        with client.session_transaction() as cookie:
+            cookie["user_id"] = 1  # a signed-in browser: the page must look the user up
+        _assert_unavailable(client, None)
+    finally:
+        _close(app)
+
+
+def _free_port() -> int:
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return int(probe.getsockname()[1])
+
+
+class PrivatePostgres:
+    """A PostgreSQL server of this test alone: initdb in a temporary directory, its own port and socket directory."""
+
+    def __init__(self, base: Path) -> None:
+        binaries = sorted(glob.glob("/usr/lib/postgresql/*/bin/pg_ctl"))
+        found = binaries[-1] if binaries else shutil.which("pg_ctl")
+        if not found:
+            raise FileNotFoundError("pg_ctl (PostgreSQL server binaries) not found")
+        self.bin = Path(found).parent
+        self.port = _free_port()
+        self.data, self.sockets = base / "data", base / "sockets"
+        self.sockets.mkdir(parents=True, exist_ok=True)
+        # The server refuses to run as root: as root, run it as the postgres user, which owns the directories.
+        self.as_owner = ["runuser", "-u", "postgres", "--"] if os.geteuid() == 0 else []
+        if self.as_owner:
+            shutil.chown(base, "postgres")
+            shutil.chown(self.sockets, "postgres")
+        self._run("initdb", "-D", str(self.data), "-U", "postgres", "--auth=trust", "-E", "UTF8", "--no-sync")
+
+    @property
+    def url(self) -> str:
+        return f"postgresql+psycopg://postgres@127.0.0.1:{self.port}/postgres?connect_timeout=5"
+
+    def start(self) -> None:
+        options = f"-p {self.port} -k {self.sockets} -c listen_addresses=127.0.0.1 -c fsync=off"
+        self._run("pg_ctl", "-D", str(self.data), "-o", options, "-l", str(self.data / "server.log"), "-w", "-t", "60", "start")
+
+    def stop(self) -> None:
+        self._run("pg_ctl", "-D", str(self.data), "-m", "fast", "-w", "stop")
+
+    def _run(self, program: str, *args: str) -> None:
+        done = subprocess.run([*self.as_owner, str(self.bin / program), *args], capture_output=True, text=True, timeout=120)
+        if done.returncode != 0:
+            raise RuntimeError(f"{program} failed ({done.returncode}): {done.stdout}{done.stderr}")
+
+
+@pytest.fixture
+def private_postgres() -> Iterator[PrivatePostgres]:
+    """A private server, started; stopped and its directory removed afterwards."""
+    from conftest import service_unavailable
+
+    # Not under pytest's temporary tree: that is private to this user, and the server runs as postgres.
+    base = Path(tempfile.mkdtemp(prefix="feasibility-private-pg-"))
+    server = None
+    try:
+        try:
+            server = PrivatePostgres(base)
+            server.start()
+        except (OSError, RuntimeError, subprocess.TimeoutExpired) as exc:
+            service_unavailable("a private PostgreSQL server (initdb/pg_ctl)", exc)
+        yield server
+    finally:
+        if server is not None and (server.data / "postmaster.pid").exists():
+            subprocess.run([*server.as_owner, str(server.bin / "pg_ctl"), "-D", str(server.data), "-m", "immediate", "-w", "stop"], capture_output=True)
+        shutil.rmtree(base, ignore_errors=True)
+
+
+@pytest.mark.integration
+def test_database_stopped_is_503_and_restarted_serves_again(private_postgres: PrivatePostgres) -> None:
+    app = _app(private_postgres.url, CREATE_TABLES=True)
+    try:
+        from feasibility.store.db import session_scope
+        from feasibility.web.auth import create_token, create_user
+
+        with app.app_context(), session_scope() as session:
+            token = create_token(session, create_user(session, "rev", "reviewer"))
+        add_user(app, "rita", "reviewer")
+        client = app.test_client()
+        sign_in(client, "rita")
+        assert client.get("/api/v1/proposals", headers={"Authorization": f"Bearer {token}"}).status_code == 200
+        assert client.get("/proposals").status_code == 200
+
+        private_postgres.stop()  # the pool still holds connections to the server that went away
+        _assert_unavailable(client, token)
+
+        private_postgres.start()  # a restart: the dead pooled connections are replaced, nothing to do by hand
+        assert client.get("/api/v1/proposals", headers={"Authorization": f"Bearer {token}"}).status_code == 200
+        assert client.get("/proposals").status_code == 200
+    finally:
+        _close(app)
