@@ -10,11 +10,19 @@ reachable PostgreSQL those runs are skipped — unless CI is set, where they fai
 
 The app has the demo observatory and schedule loaded and an embedded pool of
 check workers (started on first use, stopped after the test).
+
+``private_postgres`` starts a PostgreSQL server of the test's own (own port and
+directories) for tests that stop or restart the database; never the shared one.
 """
 
 from __future__ import annotations
 
+import glob
 import os
+import shutil
+import socket
+import subprocess
+import tempfile
 import uuid
 from collections.abc import Callable, Iterator
 from pathlib import Path
@@ -37,6 +45,67 @@ def service_unavailable(what: str, error: BaseException) -> None:
     if IN_CI:
         pytest.fail(f"{message} (CI is set: the service is required)", pytrace=False)
     pytest.skip(message)
+
+
+def _free_port() -> int:
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return int(probe.getsockname()[1])
+
+
+class PrivatePostgres:
+    """A PostgreSQL server of this test alone: initdb in a temporary directory, its own port and socket directory."""
+
+    def __init__(self, base: Path) -> None:
+        binaries = sorted(glob.glob("/usr/lib/postgresql/*/bin/pg_ctl"))
+        found = binaries[-1] if binaries else shutil.which("pg_ctl")
+        if not found:
+            raise FileNotFoundError("pg_ctl (PostgreSQL server binaries) not found")
+        self.bin = Path(found).parent
+        self.port = _free_port()
+        self.data, self.sockets = base / "data", base / "sockets"
+        self.sockets.mkdir(parents=True, exist_ok=True)
+        # The server refuses to run as root: as root, run it as the postgres user, which owns the directories.
+        self.as_owner = ["runuser", "-u", "postgres", "--"] if os.geteuid() == 0 else []
+        if self.as_owner:
+            shutil.chown(base, "postgres")
+            shutil.chown(self.sockets, "postgres")
+        self._run("initdb", "-D", str(self.data), "-U", "postgres", "--auth=trust", "-E", "UTF8", "--no-sync")
+
+    @property
+    def url(self) -> str:
+        return f"postgresql+psycopg://postgres@127.0.0.1:{self.port}/postgres?connect_timeout=5"
+
+    def start(self) -> None:
+        options = f"-p {self.port} -k {self.sockets} -c listen_addresses=127.0.0.1 -c fsync=off"
+        self._run("pg_ctl", "-D", str(self.data), "-o", options, "-l", str(self.data / "server.log"), "-w", "-t", "60", "start")
+
+    def stop(self) -> None:
+        self._run("pg_ctl", "-D", str(self.data), "-m", "fast", "-w", "stop")
+
+    def _run(self, program: str, *args: str) -> None:
+        done = subprocess.run([*self.as_owner, str(self.bin / program), *args], capture_output=True, text=True, timeout=120)
+        if done.returncode != 0:
+            raise RuntimeError(f"{program} failed ({done.returncode}): {done.stdout}{done.stderr}")
+
+
+@pytest.fixture
+def private_postgres() -> Iterator[PrivatePostgres]:
+    """A private server, started; stopped and its directory removed afterwards."""
+    # Not under pytest's temporary tree: that is private to this user, and the server runs as postgres.
+    base = Path(tempfile.mkdtemp(prefix="feasibility-private-pg-"))
+    server = None
+    try:
+        try:
+            server = PrivatePostgres(base)
+            server.start()
+        except (OSError, RuntimeError, subprocess.TimeoutExpired) as exc:
+            service_unavailable("a private PostgreSQL server (initdb/pg_ctl)", exc)
+        yield server
+    finally:
+        if server is not None and (server.data / "postmaster.pid").exists():
+            subprocess.run([*server.as_owner, str(server.bin / "pg_ctl"), "-D", str(server.data), "-m", "immediate", "-w", "stop"], capture_output=True)
+        shutil.rmtree(base, ignore_errors=True)
 
 
 @pytest.fixture(scope="session")
