@@ -46,3 +46,25 @@ def test_demo_observatory_is_loaded_once(app: Flask) -> None:
         assert session.scalar(select(func.count()).select_from(ScheduleVersion)) >= 1
         assert get_engine() is again.extensions["feasibility.db"]["engine"]
     again.extensions["feasibility.db"]["engine"].dispose()
+
+
+def test_read_only_sessions_refuse_writes_and_stream_in_batches(app: Flask) -> None:
+    # PostgreSQL: "cannot execute DELETE in a read-only transaction" (SQLSTATE 25006, read_only_sql_transaction);
+    # SQLite: "attempt to write a readonly database" (PRAGMA query_only). Either way the write fails at once.
+    from sqlalchemy.exc import DBAPIError
+
+    from feasibility.store.models import User
+
+    with app.app_context():
+        with session_scope() as session:
+            session.add_all(User(name=f"user-{i}", role="proposer") for i in range(7))
+        with pytest.raises(DBAPIError, match="read-only transaction|readonly database"):
+            with session_scope(read_only=True) as session:
+                session.execute(text("DELETE FROM users"))
+        with session_scope(read_only=True) as session:
+            # yield_per streams (a server-side cursor on PostgreSQL, which needs a transaction block)
+            names = [user.name for user in session.scalars(select(User).order_by(User.id).execution_options(yield_per=3))]
+        assert names == [f"user-{i}" for i in range(7)]
+        with session_scope() as session:  # the same pooled connection writes again afterwards
+            session.execute(text("DELETE FROM users"))
+            assert session.scalar(select(func.count()).select_from(User)) == 0
