@@ -12,8 +12,15 @@ __all__ = ["main"]
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(package_name="feasibility")
-def main() -> None:
+@click.pass_context
+def main(ctx: click.Context) -> None:
     """Technical feasibility checks of telescope proposals over a whole semester."""
+    from feasibility.store import db
+
+    # Close the store connections this command opened when it ends, rather than dropping
+    # them (PostgreSQL logs a dropped connection; a host process, such as a test, keeps going).
+    before = db.live_engines()
+    ctx.call_on_close(lambda: db.dispose_engines(db.live_engines() - before))
 
 
 def _register() -> None:

@@ -12,8 +12,10 @@ then writes cannot wait for the lock and fails at once with "database is
 locked" when another connection writes (SQLite, "Transaction": SQLITE_BUSY on
 upgrading a read transaction). Pages that only read ask for a ``read_only``
 session, a deferred transaction that never blocks and never takes the lock.
-PostgreSQL sessions are plain READ COMMITTED transactions; read-only ones run
-each statement on its own (autocommit), which reads the same.
+PostgreSQL sessions are READ COMMITTED transactions; read-only ones are
+``READ ONLY`` transactions (never autocommit: a streamed query, ``yield_per``,
+needs a server-side cursor, which lives only inside a transaction block), and a
+write in them fails at once there too.
 """
 
 from __future__ import annotations
@@ -34,10 +36,12 @@ __all__ = [
     "JSONText",
     "READ_ONLY",
     "configure",
+    "dispose_engines",
     "dispose_pools_after_fork",
     "default_database_url",
     "get_engine",
     "instance_dir",
+    "live_engines",
     "make_engine",
     "session_factory",
     "session_scope",
@@ -103,6 +107,17 @@ def dispose_pools_after_fork() -> None:
         engine.dispose(close=False)
 
 
+def live_engines() -> set[Engine]:
+    """Every engine made by :func:`make_engine` in this process that is still in use."""
+    return set(_engines)
+
+
+def dispose_engines(engines: set[Engine]) -> None:
+    """Close the pooled connections of ``engines`` (each stays usable and opens new ones on demand)."""
+    for engine in engines:
+        engine.dispose()
+
+
 def configure(url: str) -> Engine:
     """Set the process-wide default engine (used outside a Flask app context)."""
     old = _default.get("engine")
@@ -159,9 +174,9 @@ def _json_text(value: Any) -> str:
 def _sessions_of(engine: Engine) -> dict[str, Any]:
     read_options: dict[str, Any] = {READ_ONLY: True}
     if engine.dialect.name == "postgresql":
-        # Under READ COMMITTED each statement sees its own snapshot anyway, so a read-only
-        # session reads the same without BEGIN and COMMIT: two round trips fewer.
-        read_options["isolation_level"] = "AUTOCOMMIT"
+        # BEGIN READ ONLY: a real transaction (server-side cursors need one), in which a write fails.
+        # SQLAlchemy sets this per connection and resets it when the connection goes back to the pool.
+        read_options["postgresql_readonly"] = True
     return {
         "engine": engine,
         "sessions": sessionmaker(bind=engine, expire_on_commit=False),

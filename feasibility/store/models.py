@@ -10,7 +10,7 @@ from __future__ import annotations
 from datetime import datetime, timezone
 from typing import Any
 
-from sqlalchemy import JSON, DateTime, Float, ForeignKey, Index, Integer, MetaData, String, Text, UniqueConstraint
+from sqlalchemy import JSON, DateTime, Dialect, Float, ForeignKey, Index, Integer, MetaData, String, Text, TypeDecorator, UniqueConstraint
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
 
 __all__ = [
@@ -25,6 +25,7 @@ __all__ = [
     "RequestOutcome",
     "ScheduleVersion",
     "SignInFailure",
+    "UTCDateTime",
     "User",
     "VerdictChange",
     "WebhookDelivery",
@@ -45,9 +46,36 @@ def utcnow() -> datetime:
     return datetime.now(timezone.utc)
 
 
+class UTCDateTime(TypeDecorator[datetime]):
+    """A moment in time, stored and read back as timezone-aware UTC on every store.
+
+    SQLite keeps no zone (it gives back naive times, and would drop a non-UTC offset
+    silently); PostgreSQL gives ``timestamptz`` back in the session's TimeZone. Here a
+    time goes in converted to UTC (a naive one is taken as UTC) and comes out aware in
+    UTC, so the rest of the code never meets a naive or local time from the store.
+    """
+
+    impl = DateTime(timezone=True)
+    cache_ok = True
+
+    def process_bind_param(self, value: datetime | None, dialect: Dialect) -> datetime | None:
+        return _as_utc(value)
+
+    def process_result_value(self, value: datetime | None, dialect: Dialect) -> datetime | None:
+        return _as_utc(value)
+
+
+def _as_utc(value: datetime | None) -> datetime | None:
+    if value is None:
+        return None
+    if value.tzinfo is None:
+        return value.replace(tzinfo=timezone.utc)
+    return value.astimezone(timezone.utc)
+
+
 class Base(DeclarativeBase):
     metadata = MetaData(naming_convention=NAMING_CONVENTION)
-    type_annotation_map = {datetime: DateTime(timezone=True), dict[str, Any]: JSON}
+    type_annotation_map = {datetime: UTCDateTime(), dict[str, Any]: JSON}
 
 
 class User(Base):

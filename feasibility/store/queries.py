@@ -9,7 +9,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from sqlalchemy import ColumnElement, Select, exists, func, select, true
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, aliased
 
 from feasibility.store.models import CheckRun, FindingRow, ProposalRecord, ProposalVersion, RequestOutcome, User
 
@@ -41,7 +41,10 @@ def visible_to(user: User | None) -> ColumnElement[bool]:
     if user is None or user.role in _READ_ALL:
         return true()
     if user.role == "portal":
-        return exists().where(ProposalVersion.proposal_ref == ProposalRecord.id, ProposalVersion.submitted_by == user.id)
+        # An alias of its own: a list that selects ProposalVersion too would otherwise correlate
+        # it away and leave the EXISTS with no FROM at all.
+        submitted = aliased(ProposalVersion, name="submitted_version")
+        return exists().where(submitted.proposal_ref == ProposalRecord.id, submitted.submitted_by == user.id).correlate(ProposalRecord)
     return ProposalRecord.owner_id == user.id
 
 

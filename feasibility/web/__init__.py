@@ -18,6 +18,7 @@ from werkzeug.exceptions import HTTPException
 
 from feasibility.documents.reading import MAX_DOCUMENT_BYTES
 from feasibility.store import db
+from feasibility.web import unavailable
 
 __all__ = ["create_app"]
 
@@ -55,6 +56,7 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         MAX_CONTENT_LENGTH=MAX_DOCUMENT_BYTES,  # the documents' own limit: the API, the pages and the CLI agree
         MAX_BULK=500,
         MAX_WAIT_S=30,
+        RETRY_AFTER_S=5,  # the Retry-After of a 503 while the store cannot be reached
         SEED_DEMO=True,
         CREATE_TABLES=False,
         # The dashboard's session cookie (RFC 6265). It carries only a random session id; who is signed in is kept in the store.
@@ -92,6 +94,7 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         module, _, attribute = target.partition(":")
         app.register_blueprint(getattr(import_module(module), attribute))
     app.register_error_handler(HTTPException, _api_error)
+    unavailable.register(app)  # 503 with Retry-After while the store cannot be reached
     return app
 
 

@@ -1,4 +1,4 @@
-"""Fixtures for the re-check tests: a fresh SQLite store with the demo observatory, and invented proposals."""
+"""Fixtures for the re-check tests: a fresh store (SQLite and PostgreSQL) with the demo observatory, and invented proposals."""
 
 from __future__ import annotations
 
@@ -7,7 +7,6 @@ import json
 from collections.abc import Iterator
 from datetime import timedelta
 from importlib import resources
-from pathlib import Path
 from typing import Any
 
 import pytest
@@ -19,9 +18,9 @@ from feasibility.store.models import Base, CheckRun, utcnow
 
 
 @pytest.fixture
-def store(tmp_path: Path) -> Iterator[str]:
-    """A new SQLite file as the process default store, with the demo observatory and schedule."""
-    url = f"sqlite:///{tmp_path / 'recheck.sqlite'}"
+def store(database_url: str) -> Iterator[str]:
+    """A fresh store (a new SQLite file, or the emptied PostgreSQL test database) as the process default, with the demo observatory and schedule."""
+    url = database_url
     engine = db.configure(url)
     Base.metadata.create_all(engine)
     from feasibility.service.current import seed_demo

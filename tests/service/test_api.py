@@ -140,6 +140,32 @@ def test_roles(app: Flask, client: FlaskClient, make_token: Callable[..., str], 
     assert client.get(f"/api/v1/runs/{run_id}", headers=auth(alice)).status_code == 404
 
 
+def test_a_portal_lists_only_what_it_submitted(app: Flask, client: FlaskClient, make_token: Callable[..., str], fake_engine: FakeEngine) -> None:
+    from feasibility.results import Level
+
+    make_token("proposer", "bob")
+    alice, first, second = make_token("proposer", "alice"), make_token("portal", "portal-1"), make_token("portal", "portal-2")
+    assert client.post("/api/v1/proposals", json=proposal("A-1"), headers=auth(alice)).status_code == 202
+    assert client.post("/api/v1/proposals?on_behalf_of=bob", json=proposal("B-1"), headers=auth(first)).status_code == 202
+    assert client.post("/api/v1/proposals", json=proposal("P-1", instrument="OWL"), headers=auth(first)).status_code == 202
+    assert app.extensions["feasibility.dispatch"].wait_idle(10)
+    fake_engine.level = Level.INFEASIBLE
+    assert client.post("/api/v1/proposals", json=proposal("Q-1"), headers=auth(second)).status_code == 202
+    assert app.extensions["feasibility.dispatch"].wait_idle(10)
+
+    def listing(token: str, query: str = "") -> tuple[list[str], int]:
+        answer = client.get(f"/api/v1/proposals?{query}", headers=auth(token))
+        assert answer.status_code == 200, answer.json
+        return [item["proposal_id"] for item in answer.json["items"]], answer.json["total"]
+
+    assert listing(first) == (["P-1", "B-1"], 2)  # newest first; not alice's A-1, not portal-2's Q-1
+    assert listing(second) == (["Q-1"], 1)
+    assert listing(first, "instrument=OWL") == (["P-1"], 1)
+    assert listing(first, "verdict=infeasible") == ([], 0)
+    assert listing(second, "failed_check=visibility&semester=2027A") == (["Q-1"], 1)
+    assert listing(first, "per_page=1&page=2") == (["B-1"], 2)
+
+
 def test_list_filters_and_paging(app: Flask, client: FlaskClient, make_token: Callable[..., str], fake_engine: FakeEngine) -> None:
     from feasibility.results import Level
 
@@ -236,3 +262,21 @@ def test_schema_and_observatory_problems_come_in_one_answer(app: Flask, client: 
     assert "no filter 'Halpha'" in problems["requests[0].setup.filter"]
     assert problems["requests[0].hours_requsted"] == "is not a known field; did you mean 'hours_requested'?"
     assert _count(app, ProposalVersion) == 0
+
+
+def test_times_are_answered_in_utc_on_every_store(app: Flask, client: FlaskClient, make_token: Callable[..., str], fake_engine: FakeEngine) -> None:
+    # The PostgreSQL test database speaks America/Santiago (tests/conftest.py) and SQLite keeps no zone:
+    # the API answers the same instants in UTC either way, as ISO 8601 with the offset +00:00.
+    from datetime import datetime, timedelta, timezone
+
+    token = make_token("proposer")
+    before = datetime.now(timezone.utc)
+    run_id = client.post("/api/v1/proposals", json=proposal("Z-1"), headers=auth(token)).json["run"]["id"]
+    assert app.extensions["feasibility.dispatch"].wait_idle(10)
+    run = client.get(f"/api/v1/runs/{run_id}", headers=auth(token)).json
+    view = client.get("/api/v1/proposals/Z-1", headers=auth(token)).json
+    for text in (run["queued_at"], run["finished_at"]):
+        assert text.endswith("+00:00"), text
+        moment = datetime.fromisoformat(text)
+        assert before - timedelta(seconds=1) <= moment <= datetime.now(timezone.utc)
+    assert json.dumps(view).count("-03:00") + json.dumps(view).count("-04:00") == 0

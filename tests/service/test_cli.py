@@ -41,8 +41,9 @@ def test_user_create_with_password(app: Flask, runner) -> None:  # type: ignore[
     assert again.exit_code == 2
 
 
-def test_db_upgrade_on_a_fresh_store(tmp_path, runner) -> None:  # type: ignore[no-untyped-def]
-    runner.env["DATABASE_URL"] = f"sqlite:///{tmp_path / 'fresh.sqlite'}"
+def test_db_upgrade_on_a_fresh_store(tmp_path, runner, database_url, request) -> None:  # type: ignore[no-untyped-def]
+    fresh = f"sqlite:///{tmp_path / 'fresh.sqlite'}" if database_url.startswith("sqlite") else request.getfixturevalue("new_postgres_database")
+    runner.env["DATABASE_URL"] = fresh
     result = runner.invoke(["db", "upgrade"])
     assert result.exit_code == 0, result.output
     assert "head" in result.output

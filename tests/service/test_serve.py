@@ -1,4 +1,9 @@
-"""``feasibility serve`` on a fresh home directory: SQLite, embedded workers, the real engine, over HTTP."""
+"""``feasibility serve`` on a fresh home directory: SQLite, embedded workers, the real engine, over HTTP.
+
+The served tests are about the embedded default (no DATABASE_URL: an SQLite file in
+FEASIBILITY_HOME), so they run on SQLite only; the same API on PostgreSQL is tested
+through the ``app`` fixture and in tests/integration.
+"""
 
 from __future__ import annotations
 
@@ -122,15 +127,17 @@ def test_serve_on_a_fresh_machine_checks_a_proposal_end_to_end(tmp_path: Path) -
         _stop(process)
 
 
-def test_without_a_configured_key_sessions_are_signed_with_a_random_kept_key(tmp_path: Path, monkeypatch) -> None:
+def test_without_a_configured_key_sessions_are_signed_with_a_random_kept_key(tmp_path: Path, monkeypatch, database_url: str) -> None:
     # A fixed fallback key would let anyone forge a signed-in session cookie (Flask's docs: SECRET_KEY must be secret).
     from feasibility.web import create_app
 
     monkeypatch.delenv("FEASIBILITY_SECRET_KEY", raising=False)
     monkeypatch.setenv("FEASIBILITY_HOME", str(tmp_path))
-    settings = {"DATABASE_URL": f"sqlite:///{tmp_path / 'k.sqlite'}", "CREATE_TABLES": True, "SEED_DEMO": False}
+    settings = {"DATABASE_URL": database_url, "CREATE_TABLES": True, "SEED_DEMO": False}
     first = create_app(settings)
     second = create_app(settings)
+    for app in (first, second):
+        app.extensions["feasibility.db"]["engine"].dispose()
     key = first.config["SECRET_KEY"]
     assert len(key) >= 48 and key not in ("dev", "test")
     assert second.config["SECRET_KEY"] == key  # processes sharing the instance folder agree

@@ -9,6 +9,10 @@ section 2.1, sqlite.org/lang_transaction.html). Submitting (look up the proposal
 then insert) is such a transaction, and so is storing a run's result. The store
 therefore begins write transactions ``BEGIN IMMEDIATE``, which waits for the
 lock under the busy timeout; these tests hammer it and expect no error at all.
+
+SQLite only, on purpose: the write lock, WAL and ``PRAGMA query_only`` are SQLite's;
+PostgreSQL has row locks and MVCC, and its concurrent runs are tested with real
+worker processes in tests/integration.
 """
 
 from __future__ import annotations

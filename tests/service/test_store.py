@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.migration import MigrationContext
 from flask import Flask
@@ -24,8 +25,9 @@ def test_sqlite_runs_in_wal_mode_with_a_busy_timeout(tmp_path: Path) -> None:
     engine.dispose()
 
 
-def test_migrations_build_exactly_the_models(tmp_path: Path) -> None:
-    url = f"sqlite:///{tmp_path / 'migrated.sqlite'}"
+@pytest.mark.parametrize("store", ["sqlite", "postgresql"])
+def test_migrations_build_exactly_the_models(store: str, tmp_path: Path, request: pytest.FixtureRequest) -> None:
+    url = f"sqlite:///{tmp_path / 'migrated.sqlite'}" if store == "sqlite" else request.getfixturevalue("new_postgres_database")
     upgrade(url)
     engine = make_engine(url)
     with engine.connect() as connection:
@@ -44,3 +46,25 @@ def test_demo_observatory_is_loaded_once(app: Flask) -> None:
         assert session.scalar(select(func.count()).select_from(ScheduleVersion)) >= 1
         assert get_engine() is again.extensions["feasibility.db"]["engine"]
     again.extensions["feasibility.db"]["engine"].dispose()
+
+
+def test_read_only_sessions_refuse_writes_and_stream_in_batches(app: Flask) -> None:
+    # PostgreSQL: "cannot execute DELETE in a read-only transaction" (SQLSTATE 25006, read_only_sql_transaction);
+    # SQLite: "attempt to write a readonly database" (PRAGMA query_only). Either way the write fails at once.
+    from sqlalchemy.exc import DBAPIError
+
+    from feasibility.store.models import User
+
+    with app.app_context():
+        with session_scope() as session:
+            session.add_all(User(name=f"user-{i}", role="proposer") for i in range(7))
+        with pytest.raises(DBAPIError, match="read-only transaction|readonly database"):
+            with session_scope(read_only=True) as session:
+                session.execute(text("DELETE FROM users"))
+        with session_scope(read_only=True) as session:
+            # yield_per streams (a server-side cursor on PostgreSQL, which needs a transaction block)
+            names = [user.name for user in session.scalars(select(User).order_by(User.id).execution_options(yield_per=3))]
+        assert names == [f"user-{i}" for i in range(7)]
+        with session_scope() as session:  # the same pooled connection writes again afterwards
+            session.execute(text("DELETE FROM users"))
+            assert session.scalar(select(func.count()).select_from(User)) == 0

@@ -67,11 +67,11 @@ def test_session_cookie_attributes(client: FlaskClient, people: dict[str, int]) 
     assert "Secure" not in cookie  # not asked for in this test app
 
 
-def test_secure_cookie_from_environment(monkeypatch: Any, tmp_path: Any) -> None:
+def test_secure_cookie_from_environment(monkeypatch: Any, database_url: str) -> None:
     from feasibility.web import create_app
 
     monkeypatch.setenv("SESSION_COOKIE_SECURE", "true")
-    app = create_app({"TESTING": True, "SECRET_KEY": "t", "DATABASE_URL": f"sqlite:///{tmp_path / 's.sqlite'}", "CREATE_TABLES": True,
+    app = create_app({"TESTING": True, "SECRET_KEY": "t", "DATABASE_URL": database_url, "CREATE_TABLES": True,
                       "BROKER_URL": None, "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False})
     try:
         assert app.config["SESSION_COOKIE_SECURE"] is True

@@ -52,3 +52,17 @@ def test_json_export_with_search_and_instrument(client: FlaskClient, semester: d
     assert [p["proposal_id"] for p in body["proposals"]] == ["SQ-2027A-002"]  # found by its target's name
     body = client.get("/proposals.json?semester=2027A&instrument=kestrel").get_json()
     assert sorted(p["proposal_id"] for p in body["proposals"]) == ["M-1", "SQ-2027A-001"]
+
+
+def test_csv_download_gives_back_its_connection_read_whole_or_abandoned(app: Flask, client: FlaskClient, semester: dict[str, Any]) -> None:
+    # The CSV is written after the view returns; its session must end with the body, also
+    # when the client stops reading after the first line (the server then closes the body).
+    pool = app.extensions["feasibility.db"]["engine"].pool
+    sign_in(client, "rita")
+    whole = client.get("/proposals.csv?semester=2027A").get_data(as_text=True)
+    assert whole.count("\r\n") == 5  # the header and the four proposals
+    assert pool.checkedout() == 0
+    response = client.get("/proposals.csv?semester=2027A")  # the test client reads up to the first line
+    assert pool.checkedout() == 1  # the export's session, still reading
+    response.close()
+    assert pool.checkedout() == 0

@@ -180,10 +180,15 @@ def list_rows(session: Session, user: User, query: ListQuery) -> list[ProposalRo
 
 
 def iter_rows(session: Session, user: User, query: ListQuery) -> Iterator[ProposalRow]:
-    """Every row of the filtered list, in order (for the exports), fetched in batches."""
+    """Every row of the filtered list, in order (for the exports), fetched in batches.
+
+    Close the iterator when stopping early (``contextlib.closing``): that closes the
+    batch cursor (a server-side cursor on PostgreSQL) at once.
+    """
     statement = _filtered(user, query, _ordered(query)).execution_options(yield_per=500)
-    for values in session.execute(statement):
-        yield _row(values)
+    with session.execute(statement) as result:
+        for values in result:
+            yield _row(values)
 
 
 def count_rows(session: Session, user: User, query: ListQuery) -> int:

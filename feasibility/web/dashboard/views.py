@@ -8,6 +8,7 @@ import json
 import threading
 from collections import OrderedDict
 from collections.abc import Iterator
+from contextlib import closing
 from typing import Any
 
 from flask import Response, abort, current_app, redirect, render_template, request, stream_with_context, url_for
@@ -15,6 +16,7 @@ from sqlalchemy import select
 from werkzeug.exceptions import HTTPException
 
 from feasibility.service.current import current_observatory, observatory_of
+from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
 from feasibility.web import auth_pages, plots
 from feasibility.web.auth_pages import check_csrf, current_user, db, sees_all, security_headers, sign_in_required
@@ -92,20 +94,23 @@ def proposal_list() -> Any:
 def export_csv() -> Response:
     """The filtered list (every page) as CSV (RFC 4180), streamed."""
     user, query = _export_query()
-    session = db()
 
     def generate() -> Iterator[str]:
-        buffer = io.StringIO()
-        writer = csv.writer(buffer, lineterminator="\r\n")
-        writer.writerow(CSV_COLUMNS)
-        for row in iter_rows(session, user, query):
-            data = row.as_dict()
-            data["instruments"] = " ".join(data["instruments"])
-            writer.writerow([_csv_cell(data[column]) for column in CSV_COLUMNS])
+        # Its own session: the body is written after the view has returned and the request's
+        # session (db()) has been closed; reusing that one would open a transaction nobody ends.
+        # A client that goes away mid-download closes this generator: close the rows first, then the session.
+        with session_scope(read_only=True) as session, closing(iter_rows(session, user, query)) as rows:
+            buffer = io.StringIO()
+            writer = csv.writer(buffer, lineterminator="\r\n")
+            writer.writerow(CSV_COLUMNS)
+            for row in rows:
+                data = row.as_dict()
+                data["instruments"] = " ".join(data["instruments"])
+                writer.writerow([_csv_cell(data[column]) for column in CSV_COLUMNS])
+                yield buffer.getvalue()
+                buffer.seek(0)
+                buffer.truncate()
             yield buffer.getvalue()
-            buffer.seek(0)
-            buffer.truncate()
-        yield buffer.getvalue()
 
     name = f"proposals-{_safe_name(query.semester)}.csv"
     return Response(stream_with_context(generate()), mimetype="text/csv", headers={"Content-Disposition": f'attachment; filename="{name}"'})
