@@ -8,8 +8,45 @@ everything else) and the range.
 from __future__ import annotations
 
 import math
+from typing import Any
 
-__all__ = ["parse_declination", "parse_right_ascension"]
+__all__ = ["DECLINATION_PATTERN", "DECLINATION_SCHEMA", "RIGHT_ASCENSION_PATTERN", "RIGHT_ASCENSION_SCHEMA", "parse_declination", "parse_right_ascension"]
+
+_FRACTION = r"(?:\.[0-9]+)?"
+_SEP = r"(?::| +)"
+#: Right ascension text the published schema states: degrees as a plain number or with 'd'/'deg'; sexagesimal
+#: hours ('13:25:27.6', '13 25 27.6', '13h25m27.6s'); sexagesimal degrees with letters ('201d21m54s').
+RIGHT_ASCENSION_PATTERN = (
+    rf"^\+?(?:[0-9]{{1,3}}{_FRACTION}(?:d|deg)?"
+    rf"|[0-9]{{1,2}}{_SEP}[0-9]{{1,2}}(?:{_SEP}[0-9]{{1,2}}{_FRACTION})?"
+    rf"|[0-9]{{1,2}}h *[0-9]{{1,2}}m(?: *[0-9]{{1,2}}{_FRACTION}s)?"
+    rf"|[0-9]{{1,3}}d *[0-9]{{1,2}}m(?: *[0-9]{{1,2}}{_FRACTION}s)?)$"
+)
+#: Declination text: degrees as a plain number or with 'd'/'deg'; sexagesimal degrees ('-43:01:09', '-43 01 09', '-43d01m09s').
+DECLINATION_PATTERN = (
+    rf"^[+-]?(?:[0-9]{{1,2}}{_FRACTION}(?:d|deg)?"
+    rf"|[0-9]{{1,2}}{_SEP}[0-9]{{1,2}}(?:{_SEP}[0-9]{{1,2}}{_FRACTION})?"
+    rf"|[0-9]{{1,2}}d *[0-9]{{1,2}}m(?: *[0-9]{{1,2}}{_FRACTION}s)?)$"
+)
+
+#: The published JSON Schema of each angle: a number of degrees, or text in the forms above.
+RIGHT_ASCENSION_SCHEMA: dict[str, Any] = {
+    "anyOf": [
+        {"type": "number", "minimum": 0, "exclusiveMaximum": 360, "description": "Degrees."},
+        {"type": "string", "pattern": RIGHT_ASCENSION_PATTERN,
+         "description": "Sexagesimal HOURS ('13:25:27.6', '13 25 27.6', '13h25m27.6s'), or degrees: a plain number in text, "
+                        "or ending in 'd' or 'deg' ('201.365d', '201d21m54s')."},
+    ],
+    "examples": ["13:25:27.6", "13h25m27.6s", 201.365],
+}
+DECLINATION_SCHEMA: dict[str, Any] = {
+    "anyOf": [
+        {"type": "number", "minimum": -90, "maximum": 90, "description": "Degrees."},
+        {"type": "string", "pattern": DECLINATION_PATTERN,
+         "description": "Sexagesimal degrees ('-43:01:09', '-43 01 09', '-43d01m09s'), or a number of degrees in text, optionally ending in 'd' or 'deg'."},
+    ],
+    "examples": ["-43:01:09", "-43d01m09s", -43.019],
+}
 
 
 def parse_right_ascension(value: object) -> float:
