@@ -114,7 +114,7 @@ def _parse_string(text: str, default_unit: str) -> float:
 
 
 def _check_fields(text: str, default_unit: str) -> None:
-    """Refuse minutes or seconds of 60 or more, and 24 hours, which astropy only warns about (and carries over)."""
+    """Refuse minutes or seconds of 60 or more, and exactly 24 hours, which astropy only warns about (and carries over)."""
     fields = [part for part in re.split(r"[^0-9.]+", text) if part]
     try:
         numbers = [float(part) for part in fields]
@@ -123,5 +123,5 @@ def _check_fields(text: str, default_unit: str) -> None:
     if len(numbers) > 1 and any(number >= 60 for number in numbers[1:3]):
         raise ValueError(f"{text!r}: minutes and seconds must be below 60")
     hours = default_unit == "hourangle" and "d" not in text.lower() and "°" not in text
-    if hours and len(numbers) > 1 and numbers[0] >= 24:
+    if hours and len(numbers) > 1 and numbers[0] == 24:
         raise ValueError(f"{text!r}: hours must be below 24")
