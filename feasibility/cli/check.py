@@ -69,9 +69,14 @@ def check(
 
 @click.command("schema")
 @click.argument("document", type=click.Choice(sorted(_SCHEMAS)))
-def schema(document: str) -> None:
-    """Print the JSON Schema of a DOCUMENT: proposal, observatory or schedule."""
-    click.echo(json_schema(_SCHEMAS[document]))
+@click.option(
+    "--base-url", metavar="URL", envvar="FEASIBILITY_PUBLIC_URL", default=None,
+    help="The service's public address, to make the schema's $id absolute (default: $FEASIBILITY_PUBLIC_URL, "
+    "else the path /api/v1/schemas/DOCUMENT-VERSION.json).",
+)
+def schema(document: str, base_url: str | None) -> None:
+    """Print the published JSON Schema (Draft 2020-12) of a DOCUMENT: proposal, observatory or schedule."""
+    click.echo(json_schema(_SCHEMAS[document], base_url))
 
 
 @click.command("demo-files")

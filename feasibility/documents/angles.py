@@ -8,8 +8,47 @@ everything else) and the range.
 from __future__ import annotations
 
 import math
+import re
+from typing import Any
 
-__all__ = ["parse_declination", "parse_right_ascension"]
+__all__ = ["DECLINATION_PATTERN", "DECLINATION_SCHEMA", "RIGHT_ASCENSION_PATTERN", "RIGHT_ASCENSION_SCHEMA", "parse_declination", "parse_right_ascension"]
+
+_FRACTION = r"(?:\.[0-9]+)?"
+_SEP = r"(?::| +)"
+_SIXTY = r"[0-5]?[0-9]"  # minutes and seconds
+#: Right ascension text the published schema states: degrees as a plain number or with 'd'/'deg'; sexagesimal
+#: hours ('13:25:27.6', '13 25 27.6', '13h25m27.6s'); sexagesimal degrees with letters ('201d21m54s').
+RIGHT_ASCENSION_PATTERN = (
+    rf"^\+?(?:[0-9]{{1,3}}{_FRACTION}(?:d|deg)?"
+    rf"|(?:[01]?[0-9]|2[0-3]){_SEP}{_SIXTY}(?:{_SEP}{_SIXTY}{_FRACTION})?"
+    rf"|(?:[01]?[0-9]|2[0-3])h *{_SIXTY}m(?: *{_SIXTY}{_FRACTION}s)?"
+    rf"|[0-9]{{1,3}}d *{_SIXTY}m(?: *{_SIXTY}{_FRACTION}s)?)$"
+)
+#: Declination text: degrees as a plain number or with 'd'/'deg'; sexagesimal degrees ('-43:01:09', '-43 01 09', '-43d01m09s').
+DECLINATION_PATTERN = (
+    rf"^[+-]?(?:[0-9]{{1,2}}{_FRACTION}(?:d|deg)?"
+    rf"|[0-9]{{1,2}}{_SEP}{_SIXTY}(?:{_SEP}{_SIXTY}{_FRACTION})?"
+    rf"|[0-9]{{1,2}}d *{_SIXTY}m(?: *{_SIXTY}{_FRACTION}s)?)$"
+)
+
+#: The published JSON Schema of each angle: a number of degrees, or text in the forms above.
+RIGHT_ASCENSION_SCHEMA: dict[str, Any] = {
+    "anyOf": [
+        {"type": "number", "minimum": 0, "exclusiveMaximum": 360, "description": "Degrees."},
+        {"type": "string", "pattern": RIGHT_ASCENSION_PATTERN,
+         "description": "Sexagesimal HOURS ('13:25:27.6', '13 25 27.6', '13h25m27.6s'), or degrees: a plain number in text, "
+                        "or ending in 'd' or 'deg' ('201.365d', '201d21m54s')."},
+    ],
+    "examples": ["13:25:27.6", "13h25m27.6s", 201.365],
+}
+DECLINATION_SCHEMA: dict[str, Any] = {
+    "anyOf": [
+        {"type": "number", "minimum": -90, "maximum": 90, "description": "Degrees."},
+        {"type": "string", "pattern": DECLINATION_PATTERN,
+         "description": "Sexagesimal degrees ('-43:01:09', '-43 01 09', '-43d01m09s'), or a number of degrees in text, optionally ending in 'd' or 'deg'."},
+    ],
+    "examples": ["-43:01:09", "-43d01m09s", -43.019],
+}
 
 
 def parse_right_ascension(value: object) -> float:
@@ -61,6 +100,7 @@ def _parse_string(text: str, default_unit: str) -> float:
         pass
     else:
         return float(text)  # a plain number in a string is degrees
+    _check_fields(text, default_unit)
     lowered = text.lower()
     unit = u.deg if lowered.endswith(("d", "deg")) or "°" in text else getattr(u, default_unit)
     try:
@@ -71,3 +111,17 @@ def _parse_string(text: str, default_unit: str) -> float:
         if isinstance(exc, RangeError):
             raise ValueError(f"{text!r} is out of range: {exc}") from None
         raise ValueError(f"cannot read {text!r} as an angle") from None
+
+
+def _check_fields(text: str, default_unit: str) -> None:
+    """Refuse minutes or seconds of 60 or more, and exactly 24 hours, which astropy only warns about (and carries over)."""
+    fields = [part for part in re.split(r"[^0-9.]+", text) if part]
+    try:
+        numbers = [float(part) for part in fields]
+    except ValueError:
+        return  # astropy says what is wrong
+    if len(numbers) > 1 and any(number >= 60 for number in numbers[1:3]):
+        raise ValueError(f"{text!r}: minutes and seconds must be below 60")
+    hours = default_unit == "hourangle" and "d" not in text.lower() and "°" not in text
+    if hours and len(numbers) > 1 and numbers[0] == 24:
+        raise ValueError(f"{text!r}: hours must be below 24")

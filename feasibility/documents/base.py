@@ -9,6 +9,11 @@
   and e-mail addresses are one line. Free-text fields a model lists in ``multiline_fields``
   (the proposal's title, a schedule night's note) may also hold tabs and line breaks.
 
+The published JSON Schema states these rules where it can (:func:`_schema_rules`): each number
+property without a tighter bound gets ``minimum``/``maximum`` of ±:data:`MAX_MAGNITUDE`, each text
+property without a pattern of its own a pattern refusing control characters (tabs and line breaks
+allowed in the multi-line fields), and each mapping's keys the same.
+
 The checks run after each field's own validation (so the error names the field) and
 so after surrounding whitespace is stripped: a vertical tab or NEL at either end of a
 name is whitespace that is dropped, never stored.
@@ -22,7 +27,7 @@ from typing import Any, ClassVar
 
 from pydantic import BaseModel, ConfigDict, ValidationInfo, field_validator
 
-__all__ = ["MAX_MAGNITUDE", "DocumentModel", "text_problem", "value_problem"]
+__all__ = ["CONTROL_FREE_PATTERN", "LAYOUT_ALLOWED_PATTERN", "MAX_MAGNITUDE", "DocumentModel", "text_problem", "value_problem"]
 
 #: Largest absolute value of any number in a document.
 MAX_MAGNITUDE = 1e15
@@ -30,11 +35,46 @@ MAX_MAGNITUDE = 1e15
 _CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f\ud800-\udfff]")
 _CONTROL_BUT_LAYOUT = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f\ud800-\udfff]")
 
+#: The same rules as JSON Schema patterns (ECMA-262 and Python both read ``\uXXXX``). Lone surrogates are left
+#: out: a pattern cannot refuse them without refusing every character outside the Basic Multilingual Plane.
+CONTROL_FREE_PATTERN = r"^[^\u0000-\u001f\u007f-\u009f]*$"
+LAYOUT_ALLOWED_PATTERN = r"^[^\u0000-\u0008\u000b\u000c\u000e-\u001f\u007f-\u009f]*$"
+
+
+def _schema_rules(schema: dict[str, Any], model: type[BaseModel]) -> None:
+    """State this module's rules in a model's published JSON Schema (``json_schema_extra``), in place."""
+    multiline = getattr(model, "multiline_fields", frozenset())
+    by_key = {field.serialization_alias or field.alias or name: name for name, field in model.model_fields.items()}
+    for key, node in schema.get("properties", {}).items():
+        _state_rules(node, by_key.get(key, key) in multiline)
+
+
+def _state_rules(node: Any, multiline: bool) -> None:
+    """Add the bounds and text patterns to one property's schema (and its alternatives, items and values)."""
+    if not isinstance(node, dict) or "$ref" in node or "enum" in node or "const" in node:
+        return
+    for key in ("anyOf", "oneOf", "allOf"):
+        for alternative in node.get(key, []):
+            _state_rules(alternative, multiline)
+    kind = node.get("type")
+    if kind == "string" and "pattern" not in node:
+        node["pattern"] = LAYOUT_ALLOWED_PATTERN if multiline else CONTROL_FREE_PATTERN
+    elif kind in ("number", "integer"):
+        if "minimum" not in node and "exclusiveMinimum" not in node:
+            node["minimum"] = -MAX_MAGNITUDE
+        if "maximum" not in node and "exclusiveMaximum" not in node:
+            node["maximum"] = MAX_MAGNITUDE
+    elif kind == "array":
+        _state_rules(node.get("items"), multiline)
+    elif kind == "object" and "properties" not in node:
+        node.setdefault("propertyNames", {"pattern": CONTROL_FREE_PATTERN})
+        _state_rules(node.get("additionalProperties"), multiline)
+
 
 class DocumentModel(BaseModel):
     """Base of every part of the three documents (see the module's rules)."""
 
-    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True, allow_inf_nan=False)
+    model_config = ConfigDict(extra="forbid", str_strip_whitespace=True, allow_inf_nan=False, json_schema_extra=_schema_rules)
 
     #: Fields of free text that may hold tabs and line breaks.
     multiline_fields: ClassVar[frozenset[str]] = frozenset()

@@ -86,8 +86,13 @@ def load_document(model: type[Model], path: str | Path) -> Model:
     return parse_document(model, read_file(path), str(path))
 
 
-def json_schema(model: type[BaseModel]) -> str:
-    """The model's JSON Schema, as the text the CLI prints."""
-    return json.dumps(model.model_json_schema(by_alias=True), indent=2)
+def json_schema(model: type[BaseModel], base_url: str | None = None) -> str:
+    """The model's published JSON Schema (:mod:`feasibility.documents.schemas`), as the text the CLI prints."""
+    from feasibility.documents.schemas import DOCUMENTS, schema_text
+
+    document = next((name for name, known in DOCUMENTS.items() if known is model), None)
+    if document is None:
+        return json.dumps(model.model_json_schema(by_alias=True), indent=2)
+    return schema_text(document, base_url)
 
 

@@ -12,6 +12,7 @@ from typing import Literal
 from pydantic import Field, field_validator, model_validator
 
 from feasibility.documents.base import DocumentModel
+from feasibility.documents.times import DocumentDate
 
 __all__ = [
     "Band",
@@ -136,6 +137,11 @@ class Climate(_Part):
     usable_night_fraction: dict[int, float] = Field(
         default_factory=lambda: {month: 1.0 for month in range(1, 13)},
         description="Fraction of nights usable for observing, by calendar month (1-12).",
+        json_schema_extra={
+            "propertyNames": {"pattern": "^(?:[1-9]|1[0-2])$"},
+            "additionalProperties": {"type": "number", "minimum": 0, "maximum": 1},
+            "examples": [{"1": 0.9, "7": 0.6}],
+        },
     )
     design_percentile: float = Field(
         default=80.0, ge=50, lt=100,
@@ -168,8 +174,8 @@ class Semester(_Part):
     """A semester: its name and first and last night (the local date on which each night begins)."""
 
     name: str = Field(min_length=1, max_length=20)
-    first_night: date
-    last_night: date
+    first_night: DocumentDate
+    last_night: DocumentDate
 
     @model_validator(mode="after")
     def _ordered(self) -> Semester:

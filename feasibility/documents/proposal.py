@@ -2,20 +2,20 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
 from typing import Annotated, ClassVar, Literal
 
 from pydantic import (
-    AfterValidator,
     BeforeValidator,
     ConfigDict,
     Field,
+    WithJsonSchema,
     field_validator,
     model_validator,
 )
 
-from feasibility.documents.angles import parse_declination, parse_right_ascension
+from feasibility.documents.angles import DECLINATION_SCHEMA, RIGHT_ASCENSION_SCHEMA, parse_declination, parse_right_ascension
 from feasibility.documents.base import DocumentModel
+from feasibility.documents.times import UtcDatetime
 
 __all__ = [
     "SKY_ILLUMINATION",
@@ -31,19 +31,8 @@ __all__ = [
 ]
 
 
-def _utc(value: datetime) -> datetime:
-    """Read naive times as UTC and keep every time timezone-aware."""
-    if value.tzinfo is None:
-        return value.replace(tzinfo=timezone.utc)
-    try:
-        return value.astimezone(timezone.utc)
-    except OverflowError:  # e.g. 9999-12-31T23:00-05:00 is in the year 10000 in UTC
-        raise ValueError("lies outside the years 1 to 9999 once converted to UTC") from None
-
-
-UtcDatetime = Annotated[datetime, AfterValidator(_utc)]
-RightAscension = Annotated[float, BeforeValidator(parse_right_ascension)]
-Declination = Annotated[float, BeforeValidator(parse_declination)]
+RightAscension = Annotated[float, BeforeValidator(parse_right_ascension), WithJsonSchema(RIGHT_ASCENSION_SCHEMA, mode="validation")]
+Declination = Annotated[float, BeforeValidator(parse_declination), WithJsonSchema(DECLINATION_SCHEMA, mode="validation")]
 
 
 class _Document(DocumentModel):
@@ -65,12 +54,15 @@ class Target(_Document):
     ra_deg: RightAscension = Field(
         validation_alias="ra",
         serialization_alias="ra",
-        description="Right ascension: 'hh:mm:ss.s' or 'hh mm ss.s' (hours) or a number of degrees.",
+        description=(
+            "Right ascension: text in sexagesimal HOURS ('13:25:27.6', '13 25 27.6', '13h25m27.6s'), or degrees "
+            "in [0, 360): a number, or text ending in 'd' or 'deg'. A plain number in text is degrees."
+        ),
     )
     dec_deg: Declination = Field(
         validation_alias="dec",
         serialization_alias="dec",
-        description="Declination: '+dd:mm:ss.s' or a number of degrees, between -90 and +90.",
+        description="Declination in degrees, between -90 and +90: a number, or sexagesimal text ('-43:01:09', '-43d01m09s').",
     )
     pm_ra_cosdec_mas_yr: float = Field(default=0.0, ge=-20000, le=20000)
     pm_dec_mas_yr: float = Field(default=0.0, ge=-20000, le=20000)

@@ -8,6 +8,7 @@ from typing import ClassVar, Literal
 from pydantic import Field, field_validator, model_validator
 
 from feasibility.documents.base import DocumentModel
+from feasibility.documents.times import DocumentDate
 
 __all__ = ["InstrumentSchedule", "ScheduledNight"]
 
@@ -17,7 +18,7 @@ class ScheduledNight(DocumentModel):
 
     multiline_fields: ClassVar[frozenset[str]] = frozenset({"note"})
 
-    night: date
+    night: DocumentDate
     instrument: str | None = Field(default=None, min_length=1)
     status: Literal["open", "engineering", "shutdown"] = "open"
     note: str | None = Field(default=None, max_length=500)

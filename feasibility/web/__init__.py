@@ -29,6 +29,7 @@ _BLUEPRINTS: list[str] = [
     "feasibility.web.api:bp",
     "feasibility.web.admin_api:bp",
     "feasibility.web.access_api:bp",
+    "feasibility.web.schemas_api:bp",
     "feasibility.web.dashboard:bp",
 ]
 
@@ -74,6 +75,7 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         SIGN_IN_MAX_DELAY_S=900,  # the longest wait
         TRUSTED_PROXIES=0,  # reverse proxies in front of the app whose X-Forwarded-For/-Proto are believed (client address)
         WEBHOOK_ALLOW_PRIVATE=False,  # allow webhook addresses on loopback, private, link-local... networks (tests, closed sites)
+        PUBLIC_URL=None,  # the service's public address (https://host); makes the published schemas' $id absolute
     )
     app.config.from_prefixed_env("FEASIBILITY")
     if test_config is not None:

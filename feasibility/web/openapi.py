@@ -260,3 +260,7 @@ from feasibility.web.access_api import OPENAPI_PATHS as _ACCESS_PATHS, OPENAPI_S
 
 _PATHS.update(_ACCESS_PATHS)
 _API_SCHEMAS.update(_ACCESS_SCHEMAS)
+
+from feasibility.web.schemas_api import OPENAPI_PATHS as _SCHEMA_PATHS  # noqa: E402 - the published document schemas
+
+_PATHS.update(_SCHEMA_PATHS)
