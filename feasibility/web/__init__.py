@@ -28,6 +28,7 @@ _BLUEPRINTS: list[str] = [
     "feasibility.web.api:bp",
     "feasibility.web.admin_api:bp",
     "feasibility.web.access_api:bp",
+    "feasibility.web.review_api:bp",
     "feasibility.web.dashboard:bp",
 ]
 
@@ -72,6 +73,8 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         SIGN_IN_MAX_DELAY_S=900,  # the longest wait
         TRUSTED_PROXIES=0,  # reverse proxies in front of the app whose X-Forwarded-For/-Proto are believed (client address)
         WEBHOOK_ALLOW_PRIVATE=False,  # allow webhook addresses on loopback, private, link-local... networks (tests, closed sites)
+        # Whether proposers (and their portals) see the technical reviewers' notes beside the verdict that stands.
+        REVIEW_NOTES_TO_PROPOSERS=False,
     )
     app.config.from_prefixed_env("FEASIBILITY")
     if test_config is not None:

@@ -260,3 +260,7 @@ from feasibility.web.access_api import OPENAPI_PATHS as _ACCESS_PATHS, OPENAPI_S
 
 _PATHS.update(_ACCESS_PATHS)
 _API_SCHEMAS.update(_ACCESS_SCHEMAS)
+
+from feasibility.web.review_api import OPENAPI_PATHS as _REVIEW_PATHS  # noqa: E402 - technical review
+
+_PATHS.update(_REVIEW_PATHS)
