@@ -283,7 +283,7 @@ def _legend_below(fig: Figure, ax: Any) -> None:
 
 @contextmanager
 def figures_kept() -> Iterator[list[Figure]]:
-    """Within the block, this thread's drawing functions also keep each figure they draw (in order) in the list given."""
+    """Within the block, this thread's drawing functions keep each figure they draw (in order) in the list given, and return "" (no SVG)."""
     previous = getattr(_kept, "figures", None)
     _kept.figures = kept = []
     try:
@@ -296,6 +296,7 @@ def _svg(fig: Figure) -> str:
     kept = getattr(_kept, "figures", None)
     if kept is not None:
         kept.append(fig)
+        return ""
     buffer = io.StringIO()
     fig.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None})
     return buffer.getvalue()

@@ -25,7 +25,7 @@ __all__ = ["PacketWriter"]
 A4 = (8.27, 11.69)
 _MARGIN_X = 0.08
 _MARGIN_Y = 0.06
-_PLOT_DPI = 150
+_PLOT_DPI = 120
 
 
 class PacketWriter:
