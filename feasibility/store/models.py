@@ -10,11 +10,13 @@ from __future__ import annotations
 from datetime import datetime, timezone
 from typing import Any
 
-from sqlalchemy import JSON, DateTime, Dialect, Float, ForeignKey, Index, Integer, MetaData, String, Text, TypeDecorator, UniqueConstraint
-from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
+from sqlalchemy import JSON, DateTime, Dialect, Float, ForeignKey, Index, Integer, MetaData, String, Text, TypeDecorator, UniqueConstraint, event
+from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, relationship
 
 __all__ = [
+    "APPEND_ONLY",
     "ApiToken",
+    "AppendOnly",
     "Base",
     "CheckRun",
     "FindingRow",
@@ -23,6 +25,9 @@ __all__ = [
     "ProposalRecord",
     "ProposalVersion",
     "RequestOutcome",
+    "ReviewAssignment",
+    "ReviewDecision",
+    "ReviewNote",
     "ScheduleVersion",
     "SignInFailure",
     "UTCDateTime",
@@ -315,3 +320,82 @@ class WebhookDelivery(Base):
     last_error: Mapped[str | None] = mapped_column(Text)
     next_attempt_at: Mapped[datetime] = mapped_column(default=utcnow)
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class ReviewAssignment(Base):
+    """One assignment of a technical reviewer to a proposal; the newest row per proposal stands. Never changed."""
+
+    __tablename__ = "review_assignments"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    proposal_ref: Mapped[int] = mapped_column(ForeignKey("proposals.id"), index=True)
+    reviewer_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    assigned_by: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    assigned_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+    reviewer: Mapped[User] = relationship(foreign_keys=[reviewer_id])
+    assigner: Mapped[User] = relationship(foreign_keys=[assigned_by])
+
+
+class ReviewNote(Base):
+    """A reviewer's note on a proposal, or on one of its observation requests (by label). Never changed."""
+
+    __tablename__ = "review_notes"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    proposal_ref: Mapped[int] = mapped_column(ForeignKey("proposals.id"), index=True)
+    request_label: Mapped[str | None] = mapped_column(String(80), doc="The observation request's label; NULL for the whole proposal.")
+    author_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    text: Mapped[str] = mapped_column(Text)
+    written_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+    author: Mapped[User] = relationship()
+
+
+class ReviewDecision(Base):
+    """A reviewer's decision on a proposal: the engine's verdict confirmed, or overridden with a reason.
+
+    It records the run and the engine's verdict it was made against, so a later
+    run whose verdict differs shows the decision must be looked at again. The
+    newest row per proposal stands. Never changed.
+    """
+
+    __tablename__ = "review_decisions"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    proposal_ref: Mapped[int] = mapped_column(ForeignKey("proposals.id"), index=True)
+    reviewer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    kind: Mapped[str] = mapped_column(String(10), doc="confirm or override")
+    verdict: Mapped[str] = mapped_column(String(12), doc="The reviewer's verdict (the engine's, when confirmed).")
+    engine_verdict: Mapped[str] = mapped_column(String(12), doc="The engine's verdict when the decision was made.")
+    run_id: Mapped[int] = mapped_column(ForeignKey("check_runs.id"), doc="The finished run the decision was made against.")
+    reason: Mapped[str | None] = mapped_column(Text, doc="Why; required for an override.")
+    decided_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+    reviewer: Mapped[User] = relationship()
+
+
+class AppendOnly(Exception):
+    """Raised on any attempt to change or delete a row of the review's audit trail."""
+
+
+#: The review's audit trail: rows are added, never changed nor deleted.
+APPEND_ONLY: tuple[type[Base], ...] = (ReviewAssignment, ReviewNote, ReviewDecision)
+
+
+def _refuse(mapper: Any, connection: Any, target: Base) -> None:
+    raise AppendOnly(f"{type(target).__tablename__} is an audit trail: its rows are never changed nor deleted")
+
+
+for _model in APPEND_ONLY:
+    event.listen(_model, "before_update", _refuse)
+    event.listen(_model, "before_delete", _refuse)
+
+
+@event.listens_for(Session, "do_orm_execute")
+def _refuse_bulk_changes(state: Any) -> None:
+    """Bulk ``update()``/``delete()`` statements skip the per-row events: refuse them on the audit trail too."""
+    if state.is_update or state.is_delete:
+        table = getattr(state.statement, "table", None)
+        if table is not None and table.name in {model.__tablename__ for model in APPEND_ONLY}:
+            raise AppendOnly(f"{table.name} is an audit trail: its rows are never changed nor deleted")

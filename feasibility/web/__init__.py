@@ -30,6 +30,7 @@ _BLUEPRINTS: list[str] = [
     "feasibility.web.admin_api:bp",
     "feasibility.web.access_api:bp",
     "feasibility.web.schemas_api:bp",
+    "feasibility.web.review_api:bp",
     "feasibility.web.dashboard:bp",
 ]
 
@@ -76,6 +77,8 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         TRUSTED_PROXIES=0,  # reverse proxies in front of the app whose X-Forwarded-For/-Proto are believed (client address)
         WEBHOOK_ALLOW_PRIVATE=False,  # allow webhook addresses on loopback, private, link-local... networks (tests, closed sites)
         PUBLIC_URL=None,  # the service's public address (https://host); makes the published schemas' $id absolute
+        # Whether proposers (and their portals) see the technical reviewers' notes beside the verdict that stands.
+        REVIEW_NOTES_TO_PROPOSERS=False,
     )
     app.config.from_prefixed_env("FEASIBILITY")
     if test_config is not None:

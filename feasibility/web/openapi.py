@@ -264,3 +264,7 @@ _API_SCHEMAS.update(_ACCESS_SCHEMAS)
 from feasibility.web.schemas_api import OPENAPI_PATHS as _SCHEMA_PATHS  # noqa: E402 - the published document schemas
 
 _PATHS.update(_SCHEMA_PATHS)
+
+from feasibility.web.review_api import OPENAPI_PATHS as _REVIEW_PATHS  # noqa: E402 - technical review
+
+_PATHS.update(_REVIEW_PATHS)

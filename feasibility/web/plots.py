@@ -18,7 +18,8 @@ from __future__ import annotations
 import io
 import math
 import threading
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
+from contextlib import contextmanager
 from datetime import date
 from typing import Any
 
@@ -31,7 +32,9 @@ from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.ticker import MaxNLocator  # noqa: E402
 
 __all__ = [
+    "DRAWING_LOCK",
     "PALETTE",
+    "figures_kept",
     "instrument_hours_svg",
     "night_curve_svg",
     "ra_demand_svg",
@@ -62,7 +65,10 @@ LEVEL_STYLE: dict[str, tuple[str, str]] = {
 }
 
 _LOCK = threading.Lock()
+#: Held while matplotlib draws; take it to render figures kept by :func:`figures_kept` (the PDF packet).
+DRAWING_LOCK = _LOCK
 _SIZE = (7.2, 3.4)
+_kept = threading.local()
 
 
 def night_curve_svg(series: Mapping[str, Any], target: str = "target") -> str | None:
@@ -275,7 +281,22 @@ def _legend_below(fig: Figure, ax: Any) -> None:
         fig.legend(handles, labels, loc="outside lower center", ncols=ncols, fontsize=8, frameon=False)
 
 
+@contextmanager
+def figures_kept() -> Iterator[list[Figure]]:
+    """Within the block, this thread's drawing functions keep each figure they draw (in order) in the list given, and return "" (no SVG)."""
+    previous = getattr(_kept, "figures", None)
+    _kept.figures = kept = []
+    try:
+        yield kept
+    finally:
+        _kept.figures = previous
+
+
 def _svg(fig: Figure) -> str:
+    kept = getattr(_kept, "figures", None)
+    if kept is not None:
+        kept.append(fig)
+        return ""
     buffer = io.StringIO()
     fig.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None})
     return buffer.getvalue()

@@ -23,6 +23,7 @@ from feasibility.web.auth_pages import check_csrf, current_user, db, sees_all, s
 from feasibility.web.dashboard import bp
 from feasibility.web.dashboard.history import run_history
 from feasibility.web.dashboard.overview import semester_overview
+from feasibility.web.dashboard.review_pages import page_review
 from feasibility.web.dashboard.queries import CHECK_NAMES, LEVELS, SORT_KEYS, ListQuery, count_rows, iter_rows, list_rows, semesters
 
 __all__ = ["PLOT_KINDS"]
@@ -148,6 +149,7 @@ def proposal_page(proposal_id: str) -> Any:
         requests=requests,
         history=history,
         plot_kinds=PLOT_KINDS,
+        review=page_review(record),
     )
 
 
