@@ -33,7 +33,8 @@ PLOT_KINDS: dict[str, tuple[str, Any]] = {
 }
 CSV_COLUMNS = [
     "proposal_id", "semester", "title", "principal_investigator", "instruments", "hours_requested",
-    "verdict", "last_checked", "previous_verdict", "verdict_changed", "run_id",
+    "verdict", "last_checked", "previous_verdict", "verdict_changed", "run_id", "first_failing_check",
+    "hours_needed_over_requested",
 ]
 
 bp.before_request(check_csrf)
