@@ -105,6 +105,7 @@ def test_demo_people_each_sign_in_and_see_their_part(app: Flask, client: FlaskCl
     reviewer = app.test_client()
     sign_in(reviewer, "demo-reviewer", passwords["demo-reviewer"])
     assert reviewer.get("/proposals.json").get_json()["count"] == len(created)
+    assert reviewer.get("/admin/schedule").status_code == 403
 
     admin = app.test_client()
     sign_in(admin, "demo-admin", passwords["demo-admin"])
