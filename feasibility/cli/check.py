@@ -82,18 +82,20 @@ def schema(document: str, base_url: str | None) -> None:
 @click.command("demo-files")
 @click.argument("directory", metavar="DIR", type=click.Path(file_okay=False, path_type=Path))
 @click.option("--force", is_flag=True, help="Overwrite files that already exist.")
+@click.option("--semester", "generated", is_flag=True,
+              help="Write the generated demo semester (about 150 invented proposals, the set `serve --demo` loads) instead.")
 @click.pass_context
-def demo_files(ctx: click.Context, directory: Path, force: bool) -> None:
+def demo_files(ctx: click.Context, directory: Path, force: bool, generated: bool) -> None:
     """Write the demo observatory, schedule and example proposals into DIR, to edit and check."""
-    wanted = _demo_files(directory)
+    wanted: dict[Path, bytes] = _generated_files(directory) if generated else {p: s.read_bytes() for p, s in _demo_files(directory).items()}
     existing = [path for path in wanted if path.exists()]
     if existing and not force:
         for path in existing:
             click.echo(f"{path}: already exists; not overwritten (use --force to overwrite)", err=True)
         ctx.exit(BAD_INPUT)
-    for path, source in wanted.items():
+    for path, content in wanted.items():
         path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_bytes(source.read_bytes())
+        path.write_bytes(content)
         click.echo(str(path))
 
 
@@ -180,6 +182,13 @@ def _demo_files(directory: Path) -> dict[Path, Traversable]:
         if item.is_file() and item.name.endswith(".yaml"):
             wanted[directory / "proposals" / item.name] = item
     return wanted
+
+
+def _generated_files(directory: Path) -> dict[Path, bytes]:
+    """Where each proposal of the generated demo semester goes under ``directory``, with its YAML text."""
+    from feasibility.demo_semester import demo_semester, semester_yaml
+
+    return {directory / f"{document['id']}.yaml": semester_yaml(document).encode("utf-8") for document in demo_semester()}
 
 
 def _data(name: str) -> Traversable:

@@ -6,7 +6,6 @@ The ``token`` and ``user`` groups also get the commands of :mod:`feasibility.cli
 from __future__ import annotations
 
 import sys
-from importlib import resources
 
 import click
 from sqlalchemy import func, select
@@ -29,7 +28,7 @@ def register(main: click.Group) -> None:
 @click.option("--host", default="127.0.0.1", show_default=True, help="Address to listen on.")
 @click.option("--port", default=5000, show_default=True, type=click.IntRange(0, 65535), help="Port to listen on (0: any free port).")
 @click.option("--workers", default=2, show_default=True, type=click.IntRange(1, 32), help="Embedded check workers (threads).")
-@click.option("--demo", is_flag=True, help="Also submit the packaged demo proposals and make a reviewer to sign in with.")
+@click.option("--demo", is_flag=True, help="Also submit the demo proposals and a generated semester, and make a reviewer, a proposer and an admin to sign in as.")
 def serve(host: str, port: int, workers: int, demo: bool) -> None:
     """Run the service on this machine: store (SQLite by default), embedded workers, API and pages.
 
@@ -51,8 +50,9 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
     with app.app_context():
         _first_admin_token()
         if demo:
-            _demo_reviewer()
-            _submit_demo_proposals()
+            from feasibility.cli.demo import seed_demo_store
+
+            seed_demo_store()
     dispatcher = app.extensions["feasibility.dispatch"]
     if hasattr(dispatcher, "start"):
         dispatcher.start()
@@ -161,52 +161,6 @@ def _first_admin_token() -> None:
         admin = create_user(session, "admin", "admin")
         token = create_token(session, admin, "made by the first `feasibility serve`")
     click.echo(f"Admin API token (shown once; keep it): {token}")
-
-
-def _submit_demo_proposals() -> None:
-    from feasibility.documents.loading import DocumentError
-    from feasibility.service.dispatch import enqueue
-    from feasibility.service.submissions import submit
-    from feasibility.store.db import session_scope
-
-    created: list[int] = []
-    folder = resources.files("feasibility") / "data" / "proposals"
-    for item in sorted(folder.iterdir(), key=lambda p: p.name):
-        if not item.name.endswith(".yaml"):
-            continue
-        try:
-            with session_scope() as session:
-                result = submit(session, item.read_bytes(), None, reason="demo")
-                if result.created:
-                    created.append(result.run.id)
-        except DocumentError as exc:
-            click.echo(f"demo proposal {item.name} skipped: {exc}", err=True)
-    enqueue(created)
-    click.echo(f"Demo proposals submitted: {len(created)} new check runs.")
-
-
-def _demo_reviewer() -> None:
-    """Make a reviewer to sign in to the dashboard with, the first time the demo is served.
-
-    The password is random and printed once: a demo store is still a store, and a
-    password written in the README would open every copy of it.
-    """
-    import secrets
-
-    from feasibility.store.db import session_scope
-    from feasibility.store.models import User
-    from feasibility.web.auth import create_user
-
-    with session_scope() as session:
-        if session.scalar(select(User).where(User.name == DEMO_REVIEWER)) is not None:
-            return
-        password = secrets.token_urlsafe(9)
-        create_user(session, DEMO_REVIEWER, "reviewer", password=password)
-    click.echo(f"Dashboard sign-in (shown once; keep it): user {DEMO_REVIEWER!r}, password {password!r}")
-
-
-#: The reviewer that ``serve --demo`` makes for the dashboard.
-DEMO_REVIEWER = "demo-reviewer"
 
 
 def _loopback(host: str) -> bool:

@@ -6,7 +6,6 @@ degrees unless the field name says arcsec, times in seconds, rates per second.
 
 from __future__ import annotations
 
-from datetime import date
 from typing import Literal
 
 from pydantic import Field, field_validator, model_validator

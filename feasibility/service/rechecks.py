@@ -112,7 +112,7 @@ class RecheckPlan:
         reasons = ", ".join(f"{n} {reason}" for reason, n in sorted(self.by_reason.items()))
         line = f"queued {self.queued} re-check{'s' if self.queued != 1 else ''} ({reasons})"
         if self.by_instrument:
-            line += "; schedule changes per instrument: " + ", ".join(f"{k} {v}" for k, v in sorted(self.by_instrument.items()))
+            line += "; re-checked proposals per changed instrument: " + ", ".join(f"{k} {v}" for k, v in sorted(self.by_instrument.items()))
         return line
 
 

@@ -20,7 +20,7 @@ from typing import Any, Literal
 
 from feasibility.documents.schedule import InstrumentSchedule, ScheduledNight
 
-__all__ = ["NightChange", "ScheduleDiff", "available_instrument", "schedule_diff"]
+__all__ = ["NightChange", "ScheduleDiff", "available_instrument", "schedule_diff", "schedule_summary"]
 
 ChangeKind = Literal["added", "removed", "instrument", "status"]
 
@@ -92,6 +92,21 @@ class ScheduleDiff:
         return counts
 
     @property
+    def gained_and_lost(self) -> dict[str, tuple[int, int]]:
+        """Per instrument (upper case), the open nights it gained and the open nights it lost, in name order."""
+        gained: Counter[str] = Counter()
+        lost: Counter[str] = Counter()
+        for change in self.changes:
+            before, after = _key(change.available_before), _key(change.available_after)
+            if before == after:
+                continue
+            if after is not None:
+                gained[after] += 1
+            if before is not None:
+                lost[before] += 1
+        return {name: (gained[name], lost[name]) for name in sorted(gained.keys() | lost.keys())}
+
+    @property
     def affected_instruments(self) -> frozenset[str]:
         """Instruments (upper case) whose available nights changed: their requests need a re-check."""
         return frozenset(self.nights_affected)
@@ -111,6 +126,7 @@ class ScheduleDiff:
             "instrument_changed": [c.as_dict() for c in self.instrument_changed],
             "status_changed": [c.as_dict() for c in self.status_changed],
             "affected_instruments": dict(sorted(self.nights_affected.items())),
+            "gained_and_lost": {name: {"gained": g, "lost": l} for name, (g, l) in self.gained_and_lost.items()},
         }
 
 
@@ -150,6 +166,25 @@ def schedule_diff(previous: InstrumentSchedule | None, current: InstrumentSchedu
         current_version=current.version,
         changes=changes,
     )
+
+
+def schedule_summary(schedule: InstrumentSchedule) -> dict[str, Any]:
+    """A version at a glance: nights listed, open nights per instrument (upper case), and nights by status."""
+    open_nights: Counter[str] = Counter()
+    statuses: Counter[str] = Counter()
+    for entry in schedule.nights:
+        statuses[entry.status] += 1
+        name = available_instrument(entry)
+        if name is not None:
+            open_nights[_key(name) or name] += 1
+    dates = sorted(entry.night for entry in schedule.nights)
+    return {
+        "nights": len(schedule.nights),
+        "first_night": dates[0].isoformat() if dates else None,
+        "last_night": dates[-1].isoformat() if dates else None,
+        "open_nights": dict(sorted(open_nights.items())),
+        "by_status": dict(sorted(statuses.items())),
+    }
 
 
 def available_instrument(entry: ScheduledNight | None) -> str | None:

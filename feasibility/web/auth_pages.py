@@ -45,6 +45,7 @@ __all__ = [
     "current_user",
     "db",
     "init_app",
+    "role_refusal",
     "security_headers",
     "sign_in_required",
 ]
@@ -123,12 +124,21 @@ def sign_in_required(*roles: str) -> Callable[[View], View]:
                     abort(401)
                 return redirect(url_for("auth.sign_in", next=request.full_path if request.query_string else request.path))
             if roles and user.role not in roles:
-                abort(403)
+                abort(403, description=role_refusal(user, roles))
             return view(*args, **kwargs)
 
         return wrapped  # type: ignore[return-value]
 
     return decorate
+
+
+def role_refusal(user: User, roles: tuple[str, ...]) -> str:
+    """Why a page is refused to ``user``: the roles it needs, and whom to ask for one (the service's admins by name)."""
+    needed = " or ".join(f"a {role}" if role[0] not in "aeiou" else f"an {role}" for role in roles)
+    admins = list(db().scalars(select(User.name).where(User.role == "admin", User.name != user.name).order_by(User.name).limit(3)))
+    who = f"an administrator of this service ({', '.join(admins)})" if admins else "the staff who run this service"
+    return (f"This page is for {needed}; you are signed in as {user.name}, a {user.role}. "
+            f"To use it, ask {who} to give you that role or an account that has it.")
 
 
 def csrf_token() -> str:

@@ -262,6 +262,27 @@ def ra_demand_svg(requested: Sequence[float], dark: Sequence[float] | None, nigh
         return _svg(fig)
 
 
+def ra_offer_svg(requested: Sequence[float], offered: Sequence[float] | None, title: str) -> str | None:
+    """Requested hours per hour of right ascension (bars) against the hours offered there (a line), for one slice of time."""
+    if len(requested) != 24:
+        return None
+    with _LOCK:
+        fig, ax = _figure()
+        centres = [h + 0.5 for h in range(24)]
+        ax.bar(centres, list(requested), width=0.9, color=PALETTE["blue"], edgecolor=PALETTE["black"], linewidth=0.5,
+               label="Requested hours (feasible and marginal requests)")
+        if offered is not None and len(offered) == 24:
+            ax.step(range(25), list(offered) + [offered[-1]], where="post", color=PALETTE["vermillion"], linewidth=1.8,
+                    linestyle="--", label="Hours offered")
+        ax.set_xlim(0, 24)
+        ax.set_xticks(range(0, 25, 2))
+        ax.set_xlabel("Right ascension (hours)")
+        ax.set_ylabel("Hours in the semester")
+        ax.set_title(_short(title, 70))
+        _legend_below(fig, ax)
+        return _svg(fig)
+
+
 # --- helpers -------------------------------------------------------------------------------
 
 def _figure(size: tuple[float, float] = _SIZE) -> tuple[Figure, Any]:

@@ -39,7 +39,7 @@ def test_schedule_upload_command(app: Flask, runner: Any, tmp_path: Path, demo_s
     result = runner.invoke(["schedule", "upload", str(path), "--wait", "30"])
     assert result.exit_code == 0, result.output
     assert "stored schedule 2027A version '2027A-noheron'" in result.stdout
-    assert "queued 1 re-check (1 schedule); schedule changes per instrument: HERON 1" in result.stdout  # H1 only
+    assert "queued 1 re-check (1 schedule); re-checked proposals per changed instrument: HERON 1" in result.stdout  # H1 only
     with app.app_context(), session_scope() as session:
         verdicts = session.scalars(select(CheckRun.verdict).order_by(CheckRun.id)).all()
     assert verdicts == ["feasible", "feasible", "infeasible"]  # the re-check of H1 without HERON nights (stand-in engine)

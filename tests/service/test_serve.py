@@ -64,9 +64,11 @@ def test_serve_demo_signs_a_reviewer_in_to_the_checked_demo_proposals(tmp_path: 
     process = _start_serve(tmp_path, "--demo")
     try:
         found = _read_until_serving(
-            process, {"sign_in": r"user 'demo-reviewer', password '(?P<password>[^']+)'"}
+            process, {"sign_in": r"user 'demo-reviewer', password '(?P<password>[^']+)'",
+                      "proposer": r"user 'demo-proposer', password '(?P<proposer_password>[^']+)'",
+                      "admin": r"user 'demo-admin', password '(?P<admin_password>[^']+)'"}
         )
-        assert "password" in found
+        assert "password" in found and "proposer_password" in found and "admin_password" in found
         base_url = found["base_url"]
         browser = requests.Session()
         form = browser.get(f"{base_url}/sign-in", timeout=10).text
@@ -78,15 +80,18 @@ def test_serve_demo_signs_a_reviewer_in_to_the_checked_demo_proposals(tmp_path: 
             timeout=10,
         )
         assert signed_in.status_code == 200 and "Sign out" in signed_in.text
-        # The seven demo proposals are checked by the embedded workers; each gets its stored verdict.
+        # The seven demo proposals and the generated semester are checked by the embedded workers; each gets its stored verdict.
+        from feasibility.demo_semester import demo_semester
+
+        expected = 7 + len(demo_semester())
         deadline = time.monotonic() + 90
         while time.monotonic() < deadline:
             listed = browser.get(f"{base_url}/proposals.json", params={"semester": "2027A"}, timeout=10).json()
             rows = listed["proposals"] if isinstance(listed, dict) else listed
-            if len(rows) == 7 and all(row.get("verdict") for row in rows):
+            if len(rows) == expected and all(row.get("verdict") for row in rows):
                 break
             time.sleep(1)
-        assert len(rows) == 7 and all(row.get("verdict") for row in rows), rows
+        assert len(rows) == expected and all(row.get("verdict") for row in rows), rows
         wrong = browser.post(f"{base_url}/sign-in", data={"name": "demo-reviewer", "password": "wrong"}, timeout=10)
         assert wrong.status_code in (400, 403)  # no CSRF token: refused before the password is even looked at
     finally:

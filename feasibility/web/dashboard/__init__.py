@@ -34,3 +34,4 @@ def _setup(state: object) -> None:
 from feasibility.web.dashboard import upload, views  # noqa: E402,F401  (routes attach to bp)
 from feasibility.web.dashboard import schedule_changes  # noqa: E402,F401  (re-check helper's page)
 from feasibility.web.dashboard import packet, review_pages  # noqa: E402,F401  (technical review and meeting packet)
+from feasibility.web.dashboard import schedule_admin  # noqa: E402,F401  (admins' schedule upload and calendar)

@@ -31,13 +31,16 @@ import numpy as np
 
 from feasibility.documents import InstrumentSchedule, Observatory
 
-__all__ = ["DARK_MOON_ILLUMINATION", "SemesterOffer", "instrument_hours_offered", "semester_offer"]
+__all__ = ["DARK_MOON_ILLUMINATION", "LUNAR_TIMES", "SemesterOffer", "instrument_hours_offered", "lunar_offer", "semester_offer"]
 
 #: Most illuminated fraction of a Moon above the horizon that still counts as dark time.
 DARK_MOON_ILLUMINATION = 0.3
+#: Lunar times, each with the most illuminated fraction of a Moon above the horizon it allows
+#: (the proposal's ``sky`` constraint, :data:`feasibility.documents.proposal.SKY_ILLUMINATION`).
+LUNAR_TIMES = ("dark", "grey", "bright")
 #: Sun's centre altitude (degrees) ending each twilight (U.S. Naval Observatory definitions).
 TWILIGHT_ALTITUDE = {"civil": -6.0, "nautical": -12.0, "astronomical": -18.0}
-_FORMAT = 2  # bump when the stored layout or the method changes
+_FORMAT = 3  # bump when the stored layout or the method changes
 
 SemesterOffer = dict[str, Any]
 _memory: dict[str, SemesterOffer] = {}
@@ -89,6 +92,55 @@ def instrument_hours_offered(offer: SemesterOffer, observatory: Observatory, sch
     return totals
 
 
+def lunar_offer(offer: SemesterOffer, observatory: Observatory, schedule: InstrumentSchedule | None) -> dict[str, dict[str, dict[str, Any]]]:
+    """Per instrument and lunar time: the weather-weighted hours offered (``hours``) and their split by hour of
+    right ascension on the meridian (``ra``, 24 values), on the nights the schedule mounts the instrument.
+
+    A time of night belongs to the first lunar time whose Moon it fits (dark, then grey, then bright), so the
+    three add up to the instrument's night hours. Without a schedule: an empty mapping.
+    """
+    if schedule is None or "lunar" not in offer:
+        return {}
+    index = {night: i for i, night in enumerate(offer["nights"])}
+    totals: dict[str, dict[str, dict[str, Any]]] = {}
+    for entry in schedule.nights:
+        position = index.get(entry.night.isoformat())
+        if entry.status != "open" or entry.instrument is None or position is None:
+            continue
+        instrument = observatory.instrument_named(entry.instrument)
+        twilight = instrument.twilight if instrument is not None else "astronomical"
+        name = instrument.name if instrument is not None else entry.instrument
+        weight = offer["weather"][position]
+        mine = totals.setdefault(name, {time: {"hours": 0.0, "ra": [0.0] * 24} for time in LUNAR_TIMES})
+        for time in LUNAR_TIMES:
+            row = offer["lunar"][twilight][time][position]
+            mine[time]["ra"] = [a + b * weight for a, b in zip(mine[time]["ra"], row)]
+            mine[time]["hours"] += sum(row) * weight
+    return totals
+
+
+def _lunar_split(grid: Any, radec_from_vector: Any) -> dict[str, dict[str, list[list[float]]]]:
+    """For each twilight and lunar time: per night, the hours (not weather-weighted) in each hour of meridian right ascension."""
+    from feasibility.documents.proposal import SKY_ILLUMINATION
+
+    split: dict[str, dict[str, list[list[float]]]] = {}
+    n = grid.n_nights
+    for twilight, limit in TWILIGHT_ALTITUDE.items():
+        view = grid.samples(limit)
+        up = view.up if hasattr(view, "up") else view.basis[:, 2, :]
+        ra, _ = radec_from_vector(up)
+        cell = view.night_index.astype(np.int64) * 24 + (np.floor(ra / 15.0).astype(np.int64) % 24)
+        taken = np.zeros(view.night_index.shape, dtype=bool)
+        split[twilight] = {}
+        for time in LUNAR_TIMES:
+            fits = ~view.moon_up | (view.moon_illumination <= SKY_ILLUMINATION[time])
+            mine = fits & ~taken
+            taken |= mine
+            hours = np.bincount(cell[mine], minlength=n * 24).astype(float) * grid.step_hours
+            split[twilight][time] = np.round(hours.reshape(n, 24), 3).tolist()
+    return split
+
+
 def _compute(observatory: Observatory, first: date, last: date) -> SemesterOffer:
     """Reduce the engine's sky grid (:func:`feasibility.engine.skygrid.sky_grid`) to per-night and per-RA sums."""
     from feasibility.engine.positions import radec_from_vector
@@ -116,6 +168,7 @@ def _compute(observatory: Observatory, first: date, last: date) -> SemesterOffer
         "weather": weather.round(4).tolist(),
         "ra_night_hours": ra_night.round(2).tolist(),
         "ra_dark_hours": ra_dark.round(2).tolist(),
+        "lunar": _lunar_split(grid, radec_from_vector),
         "method": "engine sky grid; night: Sun below -18 deg (USNO); "
                   f"dark: also Moon down or illuminated <= {DARK_MOON_ILLUMINATION}; weighted by usable-night fraction",
     }

@@ -18,10 +18,14 @@ from sqlalchemy.orm import Session
 from feasibility.documents.angles import parse_right_ascension
 from feasibility.service.current import current_observatory, current_schedule, observatory_of, schedule_of
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, RequestOutcome
-from feasibility.web.dashboard.offer import instrument_hours_offered, semester_offer
+from feasibility.documents.proposal import SKY_ILLUMINATION
+from feasibility.web.dashboard.offer import LUNAR_TIMES, instrument_hours_offered, lunar_offer, semester_offer
 from feasibility.web.dashboard.queries import LEVELS, latest_runs
 
-__all__ = ["InstrumentLine", "Overview", "semester_overview"]
+__all__ = ["InstrumentLine", "LunarLine", "Overview", "lunar_time", "semester_overview"]
+
+#: The request verdicts that count towards the pressure on the time offered (an infeasible request will not be scheduled).
+COUNTED_VERDICTS = ("feasible", "marginal")
 
 
 @dataclass
@@ -46,6 +50,26 @@ class InstrumentLine:
 
 
 @dataclass
+class LunarLine:
+    """One instrument in one lunar time: feasible and marginal requested hours against the hours offered."""
+
+    instrument: str
+    lunar_time: str
+    requests: int
+    hours_requested: float
+    hours_offered: float | None
+    ra_requested: list[float]
+    ra_offered: list[float] | None
+
+    @property
+    def pressure(self) -> float | None:
+        """Requested over offered hours, when hours are offered."""
+        if not self.hours_offered:
+            return None
+        return self.hours_requested / self.hours_offered
+
+
+@dataclass
 class Overview:
     """Everything the overview page shows."""
 
@@ -60,6 +84,32 @@ class Overview:
     schedule_label: str | None
     observatory_label: str | None
     notes: list[str] = field(default_factory=list)
+    lunar: list[LunarLine] = field(default_factory=list)
+
+    def lunar_line(self, instrument: str, time: str) -> LunarLine | None:
+        """The line of ``instrument`` (any case) in lunar time ``time``."""
+        for line in self.lunar:
+            if line.instrument.upper() == instrument.upper() and line.lunar_time == time:
+                return line
+        return None
+
+
+def lunar_time(constraints: Any) -> str:
+    """The lunar time a request asks for: its ``sky``, else the one its largest Moon illumination allows, else bright.
+
+    The one rule the overview uses for every request (Constraints in feasibility.documents.proposal).
+    """
+    if not isinstance(constraints, dict):
+        return "bright"
+    sky = constraints.get("sky")
+    if sky in SKY_ILLUMINATION:
+        return str(sky)
+    illumination = constraints.get("max_moon_illumination")
+    if isinstance(illumination, (int, float)):
+        for time in LUNAR_TIMES:
+            if illumination <= SKY_ILLUMINATION[time]:
+                return time
+    return "bright"
 
 
 def semester_overview(session: Session, semester: str) -> Overview:
@@ -95,6 +145,7 @@ def semester_overview(session: Session, semester: str) -> Overview:
     observatory_row = current_observatory(session)
     schedule_row = current_schedule(session, semester)
     offered: dict[str, float] = {}
+    by_moon: dict[str, dict[str, dict[str, Any]]] = {}
     offer = None
     if observatory_row is not None:
         observatory = observatory_of(observatory_row)
@@ -103,6 +154,7 @@ def semester_overview(session: Session, semester: str) -> Overview:
             notes.append(f"The observatory description in force has no semester {semester}; no hours offered are shown.")
         else:
             offered = instrument_hours_offered(offer, observatory, schedule_of(schedule_row))
+            by_moon = lunar_offer(offer, observatory, schedule_of(schedule_row))
             if schedule_row is None:
                 notes.append("No instrument schedule is stored for this semester, so no hours per instrument are offered yet.")
     else:
@@ -135,7 +187,58 @@ def semester_overview(session: Session, semester: str) -> Overview:
         schedule_label=schedule_row.version_label if schedule_row is not None else None,
         observatory_label=f"{observatory_row.name} {observatory_row.version_label}" if observatory_row is not None else None,
         notes=notes,
+        lunar=_lunar_lines(session, in_semester, by_moon, [line.instrument for line in lines]),
     )
+
+
+def _lunar_lines(session: Session, in_semester: Any, offered: dict[str, dict[str, dict[str, Any]]], names: list[str]) -> list[LunarLine]:
+    """Feasible and marginal requested hours by instrument and lunar time (and right ascension), against the offer."""
+    counted = {
+        (run_id, label): instrument
+        for run_id, label, instrument in session.execute(
+            select(RequestOutcome.run_id, RequestOutcome.label, RequestOutcome.instrument)
+            .where(RequestOutcome.run_id.in_(select(in_semester.c.run_id)), RequestOutcome.verdict.in_(COUNTED_VERDICTS))
+        )
+    }
+    demand: dict[tuple[str, str], list[float]] = {}
+    number: dict[tuple[str, str], int] = {}
+    statement = (
+        select(CheckRun.id, ProposalVersion.document)
+        .join(CheckRun, CheckRun.proposal_version_id == ProposalVersion.id)
+        .where(CheckRun.id.in_(select(in_semester.c.run_id)))
+        .execution_options(yield_per=200)
+    )
+    for run_id, document in session.execute(statement):
+        for request in (document or {}).get("requests", []):
+            instrument = counted.get((run_id, request.get("label")))
+            if instrument is None:
+                continue
+            try:
+                ra_deg = parse_right_ascension(request["target"]["ra"])
+                hours = float(request["hours_requested"])
+            except (KeyError, TypeError, ValueError):
+                continue
+            key = (instrument.upper(), lunar_time(request.get("constraints")))
+            bins = demand.setdefault(key, [0.0] * 24)
+            bins[int(ra_deg / 15.0 + 1e-9) % 24] += hours
+            number[key] = number.get(key, 0) + 1
+    by_name = {name.upper(): name for name in [*names, *offered]}
+    lines = []
+    for upper in sorted(by_name):
+        name = by_name[upper]
+        supply = next((value for key, value in offered.items() if key.upper() == upper), None)
+        for time in LUNAR_TIMES:
+            bins = demand.get((upper, time), [0.0] * 24)
+            lines.append(LunarLine(
+                instrument=name,
+                lunar_time=time,
+                requests=number.get((upper, time), 0),
+                hours_requested=sum(bins),
+                hours_offered=supply[time]["hours"] if supply else None,
+                ra_requested=bins,
+                ra_offered=supply[time]["ra"] if supply else None,
+            ))
+    return lines
 
 
 def _ra_demand(session: Session, in_semester: Any) -> list[float]:

@@ -12,7 +12,7 @@ from __future__ import annotations
 from collections import Counter
 from typing import Any
 
-from flask import Response, abort, render_template, request
+from flask import Response, render_template, request
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 

@@ -45,6 +45,8 @@ SORT_KEYS = {
     "hours": "Hours requested",
     "checked": "Last checked",
     "changed": "Changed",
+    "failing": "First failing check",
+    "pressure": "Needed ÷ requested",
 }
 MAX_PER_PAGE = 200
 
@@ -120,6 +122,9 @@ class ProposalRow:
     run_id: int | None
     pending: bool = False
     targets: list[str] = field(default_factory=list)
+    failing_check: str | None = None
+    needed_ratio: float | None = None
+    """Hours needed over hours requested, summed over the latest run's requests (None when a goal cannot be reached)."""
 
     @property
     def changed(self) -> bool:
@@ -140,6 +145,8 @@ class ProposalRow:
             "previous_verdict": self.previous_verdict,
             "verdict_changed": self.changed,
             "run_id": self.run_id,
+            "first_failing_check": self.failing_check,
+            "hours_needed_over_requested": None if self.needed_ratio is None else round(self.needed_ratio, 3),
         }
 
 
@@ -265,6 +272,28 @@ _changed = case(
     (and_(_previous.verdict.is_not(None), _previous.verdict != _latest.verdict), 1),
     else_=0,
 )
+#: The worst finding of the latest run that is not feasible (worst level first, then in the engine's order): its check.
+_failing_check = (
+    select(FindingRow.check)
+    .join(RequestOutcome, RequestOutcome.id == FindingRow.outcome_id)
+    .where(RequestOutcome.run_id == _latest.id, FindingRow.level != "feasible")
+    .order_by(case({"infeasible": 0, "unchecked": 1, "marginal": 2}, value=FindingRow.level, else_=3), RequestOutcome.id, FindingRow.id)
+    .limit(1)
+    .correlate(_latest)
+    .scalar_subquery()
+)
+#: Hours needed over hours requested in the latest run; NULL when some request's goal cannot be reached (no hours needed).
+_needed_ratio = (
+    select(
+        case(
+            (func.count(RequestOutcome.hours_needed) == func.count(), func.sum(RequestOutcome.hours_needed) / func.nullif(func.sum(RequestOutcome.hours_requested), 0.0)),
+            else_=None,
+        )
+    )
+    .where(RequestOutcome.run_id == _latest.id)
+    .correlate(_latest)
+    .scalar_subquery()
+)
 _SORT_COLUMNS: dict[str, Any] = {
     "id": ProposalRecord.proposal_id,
     "title": _version.title,
@@ -274,7 +303,11 @@ _SORT_COLUMNS: dict[str, Any] = {
     "verdict": _verdict_rank,
     "checked": _latest.finished_at,
     "changed": _changed,
+    "failing": _failing_check,
+    "pressure": _needed_ratio,
 }
+#: Columns that can be empty: sorted with the empty ones last in either direction, the same on every database.
+_NULLS_LAST = frozenset({"failing", "pressure"})
 
 
 def _base() -> Select[Any]:
@@ -292,6 +325,8 @@ def _base() -> Select[Any]:
             _latest.finished_at.label("checked_at"),
             _previous.verdict.label("previous_verdict"),
             _pending.label("pending"),
+            _failing_check.label("failing_check"),
+            _needed_ratio.label("needed_ratio"),
         )
         .join(_latest_version, _latest_version.c.proposal_ref == ProposalRecord.id)
         .join(_version, _version.id == _latest_version.c.version_id)
@@ -304,6 +339,8 @@ def _ordered(query: ListQuery) -> Select[Any]:
     column = _SORT_COLUMNS[query.sort]
     primary = column.desc() if query.descending else column.asc()
     tie = ProposalRecord.proposal_id.desc() if query.descending else ProposalRecord.proposal_id.asc()
+    if query.sort in _NULLS_LAST:
+        return _base().order_by(case((column.is_(None), 1), else_=0), primary, tie)
     return _base().order_by(primary, tie)
 
 
@@ -352,6 +389,8 @@ def _row(values: Any) -> ProposalRow:
         run_id=values.run_id,
         pending=bool(values.pending),
         targets=[name for name in (values.targets or "").split("\n") if name],
+        failing_check=values.failing_check,
+        needed_ratio=float(values.needed_ratio) if values.needed_ratio is not None else None,
     )
 
 

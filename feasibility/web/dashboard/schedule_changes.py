@@ -12,7 +12,9 @@ from flask import abort, render_template
 
 from feasibility.service.current import current_schedule, schedule_of
 from feasibility.service.rechecks import previous_schedule, version_dict
-from feasibility.service.schedule_diff import schedule_diff
+from datetime import datetime
+
+from feasibility.service.schedule_diff import schedule_diff, schedule_summary
 from feasibility.web.admin_api import changes_since
 from feasibility.web.auth_pages import current_user, db, sign_in_required
 from feasibility.web.dashboard import bp
@@ -35,12 +37,24 @@ def schedule_changes(semester: str) -> Any:
     current = schedule_of(version)
     assert current is not None
     diff = schedule_diff(schedule_of(previous), current)
-    changes = changes_since(session, current_user(), None, limit=CHANGES_SHOWN, semester=semester, newest_first=True)
+    changes = [c for c in changes_since(session, current_user(), None, limit=CHANGES_SHOWN, semester=semester, newest_first=True) if _moved(c)]
+    for change in changes:
+        change["recorded"] = datetime.fromisoformat(change["recorded_at"]) if change.get("recorded_at") else None
+        change["requests"] = [r for r in change["requests"] if r.get("changed_figures") or r.get("verdict_before") != r.get("verdict_after")]
     return render_template(
         "dashboard/schedule_changes.html",
         semester=semester,
         version=version_dict(version),
+        uploaded_at=version.uploaded_at,
+        summary=schedule_summary(current),
         previous=version_dict(previous) if previous is not None else None,
         diff=diff,
         changes=changes,
     )
+
+
+def _moved(change: dict[str, Any]) -> bool:
+    """Whether a recorded change moved a verdict or a key figure (a row saying only "feasible → feasible" is noise)."""
+    if change.get("verdict_before") != change.get("verdict_after"):
+        return True
+    return any(r.get("changed_figures") or r.get("verdict_before") != r.get("verdict_after") for r in change.get("requests", []))

@@ -36,7 +36,8 @@ PLOT_KINDS: dict[str, tuple[str, Any]] = {
 }
 CSV_COLUMNS = [
     "proposal_id", "semester", "title", "principal_investigator", "instruments", "hours_requested",
-    "verdict", "last_checked", "previous_verdict", "verdict_changed", "run_id",
+    "verdict", "last_checked", "previous_verdict", "verdict_changed", "run_id", "first_failing_check",
+    "hours_needed_over_requested",
 ]
 
 bp.before_request(check_csrf)
@@ -223,11 +224,68 @@ def overview_plot(semester: str, kind: str) -> Response:
         ) if data.instruments else None
     elif kind == "ra":
         svg = plots.ra_demand_svg(data.ra_requested, data.ra_dark_offered, data.ra_night_offered)
+    elif kind == "ra-lunar":
+        line = data.lunar_line(request.args.get("instrument", ""), request.args.get("time", ""))
+        if line is None:
+            abort(404, description="no such instrument and lunar time in this semester (give ?instrument=NAME&time=dark|grey|bright)")
+        svg = plots.ra_offer_svg(line.ra_requested, line.ra_offered, f"{line.instrument}, {line.lunar_time} time: demand by right ascension")
     else:
         abort(404)
     if svg is None:
         abort(404, description="nothing to plot")
     return _svg_response(svg, private=True, max_age=60)
+
+
+@bp.get("/semesters/<semester>/<table>.csv")
+@sign_in_required("reviewer", "admin")
+def overview_table(semester: str, table: str) -> Response:
+    """One table of the overview as CSV: verdicts, instruments, lunar (requested ÷ offered by lunar time) or ra."""
+    data = semester_overview(db(), semester)
+    if table not in OVERVIEW_TABLES:
+        abort(404, description=f"no table {table!r}; the overview's tables are {', '.join(OVERVIEW_TABLES)}")
+    rows = OVERVIEW_TABLES[table](data)
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\r\n")
+    for row in rows:
+        writer.writerow([_csv_cell(_rounded(value)) for value in row])
+    name = f"{_safe_name(semester)}-{table}.csv"
+    return Response(buffer.getvalue(), mimetype="text/csv", headers={"Content-Disposition": f'attachment; filename="{name}"'})
+
+
+def _verdict_table(data: Any) -> list[list[Any]]:
+    return [["verdict", "proposals"], *([level, data.counts[level]] for level in LEVELS)]
+
+
+def _instrument_table(data: Any) -> list[list[Any]]:
+    head = ["instrument", "requests", "hours_requested", "hours_needed", "hours_offered", "requested_over_offered"]
+    return [head, *([l.instrument, l.requests, l.hours_requested, l.hours_needed, l.hours_offered, l.pressure] for l in data.instruments)]
+
+
+def _lunar_table(data: Any) -> list[list[Any]]:
+    head = ["instrument", "lunar_time", "requests_feasible_or_marginal", "hours_requested", "hours_offered", "requested_over_offered"]
+    return [head, *([l.instrument, l.lunar_time, l.requests, l.hours_requested, l.hours_offered, l.pressure] for l in data.lunar)]
+
+
+def _ra_table(data: Any) -> list[list[Any]]:
+    head = ["ra_hour", "hours_requested", "night_hours_offered", "dark_hours_offered"]
+    for line in data.lunar:
+        head += [f"{line.instrument}_{line.lunar_time}_requested", f"{line.instrument}_{line.lunar_time}_offered"]
+    rows: list[list[Any]] = [head]
+    for hour in range(24):
+        row: list[Any] = [hour, data.ra_requested[hour], data.ra_night_offered[hour] if data.ra_night_offered else None,
+                          data.ra_dark_offered[hour] if data.ra_dark_offered else None]
+        for line in data.lunar:
+            row += [line.ra_requested[hour], line.ra_offered[hour] if line.ra_offered else None]
+        rows.append(row)
+    return rows
+
+
+#: The overview's tables that can be downloaded as CSV, by URL name.
+OVERVIEW_TABLES = {"verdicts": _verdict_table, "instruments": _instrument_table, "lunar": _lunar_table, "ra": _ra_table}
+
+
+def _rounded(value: Any) -> Any:
+    return round(value, 3) if isinstance(value, float) else value
 
 
 # --- helpers -------------------------------------------------------------------------------

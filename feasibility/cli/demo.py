@@ -1,0 +1,102 @@
+"""What ``serve --demo`` adds to a store: the demo proposals, the generated semester and three people to sign in as.
+
+Each demo person (a reviewer, a proposer and an admin) gets a random password,
+printed once when the person is made; a later ``serve --demo`` leaves them alone
+(``feasibility user set-password NAME`` gives a new one). A demo store is still a
+store: a password written in the README would open every copy of it.
+"""
+
+from __future__ import annotations
+
+import json
+import secrets
+from dataclasses import dataclass
+from importlib import resources
+
+import click
+from sqlalchemy import select
+
+__all__ = ["DEMO_PEOPLE", "DEMO_PROPOSER_OWNS", "DemoPerson", "make_demo_people", "submit_demo_proposals", "seed_demo_store"]
+
+
+@dataclass(frozen=True)
+class DemoPerson:
+    """One person ``serve --demo`` makes: a name, a role and what the role is for."""
+
+    name: str
+    role: str
+    purpose: str
+
+
+#: The people ``serve --demo`` makes, one per role of the dashboard.
+DEMO_PEOPLE = (
+    DemoPerson("demo-reviewer", "reviewer", "sees every proposal and the semester overview"),
+    DemoPerson("demo-proposer", "proposer", "sees and uploads their own proposals"),
+    DemoPerson("demo-admin", "admin", "everything, and uploads instrument schedules"),
+)
+#: The hand-written demo proposal the demo proposer owns.
+DEMO_PROPOSER_OWNS = "SQ-2027A-001"
+
+
+def seed_demo_store() -> None:
+    """Submit the demo proposals and make the demo people (in the app context), printing what was made."""
+    from feasibility.service.dispatch import enqueue
+
+    created = submit_demo_proposals()
+    enqueue(created)
+    click.echo(f"Demo proposals submitted: {len(created)} new check runs.")
+    passwords = make_demo_people()
+    for person in DEMO_PEOPLE:
+        if person.name in passwords:
+            click.echo(f"Dashboard sign-in as {person.role} ({person.purpose}), shown once; keep it: "
+                       f"user {person.name!r}, password {passwords[person.name]!r}")
+    if passwords:
+        click.echo("A new password for any of them: feasibility user set-password NAME")
+
+
+def submit_demo_proposals() -> list[int]:
+    """Store the seven hand-written demo proposals and the generated semester; the ids of the new check runs."""
+    from feasibility.demo_semester import demo_semester
+    from feasibility.documents.loading import DocumentError
+    from feasibility.service.submissions import submit
+    from feasibility.store.db import session_scope
+
+    documents: list[tuple[str, bytes]] = []
+    folder = resources.files("feasibility") / "data" / "proposals"
+    for item in sorted(folder.iterdir(), key=lambda p: p.name):
+        if item.name.endswith(".yaml"):
+            documents.append((item.name, item.read_bytes()))
+    documents += [(document["id"], json.dumps(document).encode()) for document in demo_semester()]
+    created: list[int] = []
+    for name, content in documents:
+        try:
+            with session_scope() as session:
+                result = submit(session, content, None, reason="demo")
+                if result.created:
+                    created.append(result.run.id)
+        except DocumentError as exc:
+            click.echo(f"demo proposal {name} skipped: {exc}", err=True)
+    return created
+
+
+def make_demo_people() -> dict[str, str]:
+    """Make the demo people that do not exist yet; their new passwords by name.
+
+    The demo proposer becomes the owner of :data:`DEMO_PROPOSER_OWNS` when nobody owns it.
+    """
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import ProposalRecord, User
+    from feasibility.web.auth import create_user
+
+    passwords: dict[str, str] = {}
+    with session_scope() as session:
+        for person in DEMO_PEOPLE:
+            user = session.scalar(select(User).where(User.name == person.name))
+            if user is None:
+                passwords[person.name] = secrets.token_urlsafe(9)
+                user = create_user(session, person.name, person.role, password=passwords[person.name])
+            if person.role == "proposer":
+                record = session.scalar(select(ProposalRecord).where(ProposalRecord.proposal_id == DEMO_PROPOSER_OWNS))
+                if record is not None and record.owner_id is None:
+                    record.owner_id = user.id
+    return passwords
