@@ -61,7 +61,7 @@ def test_sort_by_keyboard_and_skip_link(page: Any) -> None:
     page.keyboard.press("Enter")
     page.wait_for_url("**dir=desc**")
     first = page.locator("table.proposals tbody tr").first.locator("th").inner_text()
-    assert first == "SQ-2027A-002"  # 6 hours, the most
+    assert first == "SQ-2027A-001"  # 4 + 3.5 = 7.5 hours, the most (002 asks 6)
 
 
 def test_proposal_page_with_plots(page: Any) -> None:
