@@ -35,7 +35,7 @@ from feasibility.engine.evaluate import check_proposal
 from feasibility.engine.simulate_dispatch import dispatch, draw_lottery, slot_order
 from feasibility.engine.simulate_plan import DEFAULT_SLOT_MINUTES, LUNAR_TIMES, Plan, PlanRequest, build_plan
 from feasibility.engine.skygrid import SkyGrid, sky_grid
-from feasibility.engine.weather import NightClimate, draw_weather, night_climate
+from feasibility.engine.weather import NightClimate, Weather, draw_weather, night_climate
 
 __all__ = ["BLOCK", "Outcomes", "run_realisations", "simulate_semester", "summarise"]
 
@@ -70,8 +70,9 @@ def run_realisations(
     for child in children:
         size = min(BLOCK, realisations - done)
         rng = np.random.default_rng(child)
-        weather = draw_weather(climate, size, rng)
-        lottery = draw_lottery(plan.n_requests, size, rng)
+        full = draw_weather(climate, BLOCK, rng)  # always a whole block, so a block's rows never depend on the run's length
+        weather = Weather(clear=full.clear[:size], ln_seeing=full.ln_seeing[:size])
+        lottery = draw_lottery(plan.n_requests, BLOCK, rng)[:size]
         outcome = dispatch(plan, weather, lottery, order)
         obtained.append(outcome.hours_obtained)
         cloudy = ~weather.clear[:, plan.slot_night] if plan.n_slots else np.zeros((size, 0), dtype=bool)
