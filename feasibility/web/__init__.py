@@ -28,6 +28,7 @@ _BLUEPRINTS: list[str] = [
     "feasibility.web.api:bp",
     "feasibility.web.admin_api:bp",
     "feasibility.web.access_api:bp",
+    "feasibility.web.simulations_api:bp",
     "feasibility.web.dashboard:bp",
 ]
 

@@ -260,3 +260,7 @@ from feasibility.web.access_api import OPENAPI_PATHS as _ACCESS_PATHS, OPENAPI_S
 
 _PATHS.update(_ACCESS_PATHS)
 _API_SCHEMAS.update(_ACCESS_SCHEMAS)
+
+from feasibility.web.simulations_api import OPENAPI_PATHS as _SIMULATION_PATHS  # noqa: E402 - the chance of completion
+
+_PATHS.update(_SIMULATION_PATHS)
