@@ -139,7 +139,6 @@ def simulate_semester(
 def summarise(plan: Plan, items: Sequence[PlanRequest], outcomes: Outcomes) -> dict[str, list[dict[str, Any]]]:
     """Per request, per proposal and per (instrument, lunar time): chances, expected hours and their spread."""
     obtained, needed = outcomes.hours_obtained, plan.hours_needed
-    realisations = obtained.shape[0]
     complete = obtained >= needed[None, :] - 1e-9
     half = obtained >= 0.5 * needed[None, :] - 1e-9
     opportunity = np.zeros(plan.n_requests)
@@ -191,7 +190,6 @@ def summarise(plan: Plan, items: Sequence[PlanRequest], outcomes: Outcomes) -> d
             "oversubscription": round(float(demand[b] / clear), 3) if clear > 0 else None,
         })
     time.sort(key=lambda row: (row["instrument"], LUNAR_TIMES.index(row["lunar_time"])))
-    del realisations
     return {"requests": requests, "proposals": proposals, "time": time}
 
 
