@@ -26,7 +26,7 @@ def celery_init_app(app: Flask) -> Celery:
             with app.app_context():
                 return self.run(*args, **kwargs)
 
-    celery_app = Celery(app.name, task_cls=FlaskTask, include=["worker.tasks", "worker.recheck_tasks"])
+    celery_app = Celery(app.name, task_cls=FlaskTask, include=["worker.tasks", "worker.recheck_tasks", "worker.simulation_tasks"])
     celery_app.config_from_object(celery_config(app.config))
     celery_app.set_default()
     app.extensions["celery"] = celery_app

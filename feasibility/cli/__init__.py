@@ -32,6 +32,6 @@ def _register() -> None:
 
 
 # One line per module; a module registers its own commands.
-_COMMAND_MODULES: list[str] = ["check", "service", "schedules"]
+_COMMAND_MODULES: list[str] = ["check", "service", "schedules", "simulate"]
 
 _register()

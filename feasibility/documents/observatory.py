@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from typing import Literal
 
-from pydantic import Field, field_validator, model_validator
+from pydantic import Field, ValidationInfo, field_validator, model_validator
 
 from feasibility.documents.base import DocumentModel
 from feasibility.documents.times import DocumentDate
@@ -142,6 +142,21 @@ class Climate(_Part):
             "examples": [{"1": 0.9, "7": 0.6}],
         },
     )
+    clear_after_clear: dict[int, float] = Field(
+        default_factory=dict,
+        description=(
+            "Persistence of the weather, by calendar month (1-12): the chance that a night is usable when the night "
+            "before was. Above the month's usable-night fraction, bad nights come in runs; months left out have "
+            "independent nights (the chance equals the fraction). Used by the semester simulation."
+        ),
+    )
+    seeing_log_spread: float | None = Field(
+        default=None, gt=0, le=2,
+        description=(
+            "Spread of the site's seeing, the standard deviation of ln(FWHM) around the median (log-normal). "
+            "Default: the engine's common-practice value. Used by the semester simulation."
+        ),
+    )
     design_percentile: float = Field(
         default=80.0, ge=50, lt=100,
         description=(
@@ -149,6 +164,39 @@ class Climate(_Part):
             "hold (the design conditions); the median gives the typical conditions."
         ),
     )
+
+    @field_validator("clear_after_clear")
+    @classmethod
+    def _persistence_fits_fraction(cls, persistence: dict[int, float], info: ValidationInfo) -> dict[int, float]:
+        """Each month's chance must fit a two-state chain with the month's usable-night fraction f.
+
+        With a = P(clear | clear before), the stationary chain needs P(clear | cloudy before)
+        b = f (1 - a) / (1 - f) to be a probability: a >= (2f - 1) / f, and a = 1 when f = 1.
+        """
+        fractions = info.data.get("usable_night_fraction")
+        for month, chance in persistence.items():
+            if not 1 <= month <= 12:
+                raise ValueError(f"month {month} is not between 1 and 12")
+            if not 0.0 <= chance <= 1.0:
+                raise ValueError(f"month {month} has chance {chance}, not between 0 and 1")
+            if fractions is None:  # the fractions themselves were refused; that error is reported
+                continue
+            fraction = fractions.get(month, 1.0)
+            if fraction >= 1.0:
+                if chance < 1.0:
+                    raise ValueError(
+                        f"month {month}: every night is usable (usable_night_fraction 1), so a usable night must "
+                        f"follow a usable one with chance 1, got {chance:g}"
+                    )
+                continue
+            after_cloudy = fraction * (1.0 - chance) / (1.0 - fraction)
+            if after_cloudy > 1.0 + 1e-12:
+                lowest = (2.0 * fraction - 1.0) / fraction
+                raise ValueError(
+                    f"month {month}: with usable_night_fraction {fraction:g}, chance {chance:g} would need a usable night "
+                    f"after a bad one with chance {after_cloudy:.3g} (more than 1); give at least {lowest:.3f}"
+                )
+        return persistence
 
     @model_validator(mode="after")
     def _months(self) -> Climate:

@@ -31,6 +31,7 @@ __all__ = [
     "ScheduleVersion",
     "SignInFailure",
     "UTCDateTime",
+    "Simulation",
     "User",
     "VerdictChange",
     "WebhookDelivery",
@@ -399,3 +400,24 @@ def _refuse_bulk_changes(state: Any) -> None:
         table = getattr(state.statement, "table", None)
         if table is not None and table.name in {model.__tablename__ for model in APPEND_ONLY}:
             raise AppendOnly(f"{table.name} is an audit trail: its rows are never changed nor deleted")
+
+
+class Simulation(Base):
+    """One semester simulation (the chance of completion): asked for by a reviewer or admin, computed by a worker.
+
+    The result (``feasibility.engine.simulate.simulate_semester``'s mapping) is kept as JSON
+    with the settings it was computed with; it names the observatory and schedule versions.
+    """
+
+    __tablename__ = "simulations"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    semester: Mapped[str] = mapped_column(String(20), index=True)
+    settings: Mapped[dict[str, Any]] = mapped_column(doc="realisations, seed, hours and ranks, as asked.")
+    state: Mapped[str] = mapped_column(String(10), default="queued", doc="queued, running, done or failed")
+    result: Mapped[dict[str, Any] | None]
+    error: Mapped[str | None] = mapped_column(Text)
+    requested_by: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    queued_at: Mapped[datetime] = mapped_column(default=utcnow)
+    started_at: Mapped[datetime | None]
+    finished_at: Mapped[datetime | None]

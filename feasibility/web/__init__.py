@@ -31,6 +31,7 @@ _BLUEPRINTS: list[str] = [
     "feasibility.web.access_api:bp",
     "feasibility.web.schemas_api:bp",
     "feasibility.web.review_api:bp",
+    "feasibility.web.simulations_api:bp",
     "feasibility.web.dashboard:bp",
 ]
 

@@ -268,3 +268,7 @@ _PATHS.update(_SCHEMA_PATHS)
 from feasibility.web.review_api import OPENAPI_PATHS as _REVIEW_PATHS  # noqa: E402 - technical review
 
 _PATHS.update(_REVIEW_PATHS)
+
+from feasibility.web.simulations_api import OPENAPI_PATHS as _SIMULATION_PATHS  # noqa: E402 - the chance of completion
+
+_PATHS.update(_SIMULATION_PATHS)

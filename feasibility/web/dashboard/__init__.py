@@ -24,11 +24,12 @@ bp = Blueprint(
 @bp.record_once
 def _setup(state: object) -> None:
     from feasibility.web import auth_pages
-    from feasibility.web.dashboard import formatting
+    from feasibility.web.dashboard import chance, formatting
 
     app = state.app  # type: ignore[attr-defined]
     auth_pages.init_app(app)
     formatting.init_app(app)
+    chance.init_app(app)  # the chance of completion (semester simulation) for the page partials
 
 
 from feasibility.web.dashboard import upload, views  # noqa: E402,F401  (routes attach to bp)

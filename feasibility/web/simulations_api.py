@@ -1,0 +1,124 @@
+"""The API for semester simulations, the chance of completion (under /api/v1; reviewers and admins).
+
+``POST /semesters/NAME/simulations`` stores a simulation and hands it to the workers
+(202 with its id); ``GET /semesters/NAME/simulations/ID`` gives its state and, when
+done, the result of :func:`feasibility.engine.simulate.simulate_semester`;
+``GET /semesters/NAME/simulations`` lists the semester's simulations, newest first.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from flask import Blueprint, abort, url_for
+from sqlalchemy import select
+
+from feasibility.documents.loading import DocumentError, Problem, parse_document
+from feasibility.service.current import current_observatory, observatory_of
+from feasibility.service.simulations import SimulationSettings, ask_for_simulation, send_simulation, simulation_json
+from feasibility.store.db import session_scope
+from feasibility.store.models import Simulation
+from feasibility.web.auth import current_user, require_role
+from feasibility.web.bodies import problem_status, read_request_data, request_body
+
+__all__ = ["bp"]
+
+bp = Blueprint("simulations_api", __name__, url_prefix="/api/v1")
+
+_READERS = ("reviewer", "admin")
+#: Most simulations listed by one request.
+_MAX_LISTED = 100
+
+
+@bp.errorhandler(DocumentError)
+def _invalid(error: DocumentError) -> tuple[dict[str, Any], int]:
+    return error.as_dict(), problem_status(error)
+
+
+@bp.post("/semesters/<semester>/simulations")
+@require_role(*_READERS)
+def post_simulation(semester: str) -> tuple[dict[str, Any], int]:
+    """Ask for a simulation of ``semester``; optional JSON body ``{"realisations", "seed", "hours", "ranks"}``."""
+    raw = request_body("simulation")
+    data = read_request_data(raw, "simulation") if raw.strip() else {}
+    if not isinstance(data, dict):
+        raise DocumentError([Problem("", "must be a JSON object")], "simulation")
+    settings = parse_document(SimulationSettings, data, "simulation")
+    user = current_user()
+    with session_scope() as session:
+        observatory = current_observatory(session)
+        if observatory is None or observatory_of(observatory).semester_named(semester) is None:
+            abort(404, description=f"the observatory has no semester {semester!r}")
+        simulation = ask_for_simulation(session, semester, settings, user.id if user is not None else None)
+        session.flush()
+        answer = simulation_json(simulation, with_result=False)
+    send_simulation(answer["id"])
+    answer["url"] = url_for("simulations_api.get_simulation", semester=semester, simulation_id=answer["id"])
+    return answer, 202
+
+
+@bp.get("/semesters/<semester>/simulations/<int:simulation_id>")
+@require_role(*_READERS)
+def get_simulation(semester: str, simulation_id: int) -> dict[str, Any]:
+    """One simulation: its state, settings and, when done, its result."""
+    with session_scope(read_only=True) as session:
+        simulation = session.get(Simulation, simulation_id)
+        if simulation is None or simulation.semester != semester:
+            abort(404, description=f"no simulation {simulation_id} of semester {semester!r}")
+        return simulation_json(simulation)
+
+
+@bp.get("/semesters/<semester>/simulations")
+@require_role(*_READERS)
+def list_simulations(semester: str) -> dict[str, Any]:
+    """The semester's simulations, newest first, without their results."""
+    with session_scope(read_only=True) as session:
+        rows = session.scalars(
+            select(Simulation).where(Simulation.semester == semester).order_by(Simulation.id.desc()).limit(_MAX_LISTED)
+        ).all()
+        return {"semester": semester, "items": [simulation_json(row, with_result=False) for row in rows]}
+
+
+_SEMESTER = {"name": "semester", "in": "path", "required": True, "schema": {"type": "string"}}
+_ID = {"name": "simulation_id", "in": "path", "required": True, "schema": {"type": "integer"}}
+_ERROR = {"$ref": "#/components/responses/Error"}
+_SIMULATION = {"type": "object", "properties": {
+    "id": {"type": "integer"}, "semester": {"type": "string"},
+    "state": {"type": "string", "enum": ["queued", "running", "done", "failed"]},
+    "settings": {"type": "object"}, "queued_at": {"type": "string"}, "finished_at": {"type": ["string", "null"]},
+    "error": {"type": ["string", "null"]},
+    "result": {"type": ["object", "null"], "description": "Per request and proposal the chance of completion, of at least half the "
+               "hours and the hours obtained; per instrument and lunar time the hours offered, lost to weather, used and asked for."},
+}}
+
+#: The simulation endpoints for the OpenAPI document (feasibility.web.openapi).
+OPENAPI_PATHS: dict[str, Any] = {
+    "/api/v1/semesters/{semester}/simulations": {
+        "post": {
+            "summary": "Ask for a simulation of the semester: the chance of completion (reviewer, admin)",
+            "description": "Every proposal of the semester (latest versions), the observatory description and schedule in force, "
+                           "simulated night by night under weather, seeing and competing requests. Computed by a worker.",
+            "parameters": [_SEMESTER],
+            "requestBody": {"required": False, "content": {"application/json": {"schema": {"type": "object", "properties": {
+                "realisations": {"type": "integer", "minimum": 1, "maximum": 20000, "default": 1000},
+                "seed": {"type": "integer", "minimum": 0, "default": 0},
+                "hours": {"type": "string", "enum": ["needed", "requested"], "default": "needed"},
+                "ranks": {"type": "object", "additionalProperties": {"type": "number"}, "description": "Proposal id to rank, smaller first."},
+            }}}}},
+            "responses": {"202": {"description": "Stored and queued.", "content": {"application/json": {"schema": _SIMULATION}}},
+                          "401": _ERROR, "403": _ERROR, "404": _ERROR, "422": {"$ref": "#/components/responses/Invalid"}},
+        },
+        "get": {
+            "summary": "The semester's simulations, newest first, without results (reviewer, admin)",
+            "parameters": [_SEMESTER],
+            "responses": {"200": {"description": "The simulations.", "content": {"application/json": {"schema": {"type": "object", "properties": {
+                "semester": {"type": "string"}, "items": {"type": "array", "items": _SIMULATION}}}}}}, "401": _ERROR, "403": _ERROR},
+        },
+    },
+    "/api/v1/semesters/{semester}/simulations/{simulation_id}": {"get": {
+        "summary": "One simulation: its state and, when done, its result (reviewer, admin)",
+        "parameters": [_SEMESTER, _ID],
+        "responses": {"200": {"description": "The simulation.", "content": {"application/json": {"schema": _SIMULATION}}},
+                      "401": _ERROR, "403": _ERROR, "404": _ERROR},
+    }},
+}
