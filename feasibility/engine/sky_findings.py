@@ -210,7 +210,8 @@ def _visibility_suggestion(sky: SkyMeasure, never_up: bool) -> str | None:
 
 def _airmass_that_fits(sky: SkyMeasure, probe: SkyProbe, needed: float) -> str | None:
     """The smallest airmass limit (0.1 steps) that makes visibility feasible, with the hours it gives."""
-    candidates = [round(x, 1) for x in np.arange(math.floor(sky.airmass_limit * 10 + 1) / 10, _LARGEST_AIRMASS_LIMIT + 0.05, 0.1)]
+    # In tenths from just above the limit up to the largest (k / 10 is the double round(k * 0.1, 1) gives).
+    candidates = [k / 10 for k in range(math.floor(sky.airmass_limit * 10 + 1), round(_LARGEST_AIRMASS_LIMIT * 10) + 1)]
     candidates = [c for c in candidates if probe.airmass_binds(c) or c == candidates[0]]
     if not candidates:
         return None
@@ -399,11 +400,12 @@ def _nights_lost(sky: SkyMeasure, schedule: InstrumentSchedule) -> str | None:
         return None
     codes, kinds = _night_kinds(schedule, sky.nights)
     lost_codes = codes[lost]
-    present, first = np.unique(lost_codes, return_index=True)
-    counts = np.bincount(lost_codes)
+    counts = np.bincount(lost_codes).tolist()
+    present = [code for code, count in enumerate(counts) if count]
+    first = {code: int(np.argmax(lost_codes == code)) for code in present}  # a handful of kinds
     # Most nights first; ties in the order first met (as Counter.most_common).
-    order = sorted(range(present.size), key=lambda i: (-counts[present[i]], first[i]))
-    groups = ", ".join(f"{counts[present[i]]} {kinds[present[i]]}" for i in order)
+    present.sort(key=lambda code: (-counts[code], first[code]))
+    groups = ", ".join(f"{counts[code]} {kinds[code]}" for code in present)
     return f"{lead} {w.count(int(lost.size), 'night')} without {sky.instrument}: {groups}"
 
 
