@@ -36,7 +36,6 @@ from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
 from feasibility.documents.proposal import SKY_ILLUMINATION
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass, limit_airmass, limit_altitude
 from feasibility.engine.conditions import Conditions, nearest_rank
-from feasibility.engine.crossings import highest_sine, instants_above
 from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, optical_path, sky_components_nl
 from feasibility.engine.positions import target_vector
 from feasibility.engine.sky_findings import (
@@ -189,26 +188,13 @@ def measure_sky(
         target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch, mid_jyear
     )
 
-    # Stage 1, visible: each night's crossings of the limits solved from the Earth rotation angle (crossings.py),
-    # or, where the horizon profile rises above the limit, one product over all instants and masks over them.
+    # Stage 1, visible: one product over all instants, then masks over the instants.
+    sin_alt = view.up @ vector
     formula = observatory.airmass_limit_formula
     min_alt = max(limit_altitude(constraints.max_airmass, formula), site.min_altitude_deg, telescope.min_altitude_deg)
     max_alt = telescope.max_altitude_deg
     windows = in_windows(request.windows, view.mjd) if request.windows else None
-    sin_alt: NDArray[np.float64] | None = None
-    visible = None
-    if not (site.horizon and max(p.altitude_deg for p in site.horizon) > min_alt):
-        sin_high = math.sin(math.radians(max_alt)) if max_alt < 90.0 else None
-        visible = instants_above(view, vector, math.sin(math.radians(min_alt)), sin_high)
-    if visible is None:
-        sin_alt = view.up @ vector
-        visible = visible_mask(view, vector, sin_alt, min_alt, max_alt, site, windows)
-        highest = float(sin_alt.max()) if sin_alt.size else -1.0  # no true night at all (polar summer)
-    else:
-        if windows is not None:
-            visible &= windows
-        top = highest_sine(view, vector)
-        highest = -1.0 if top is None else top
+    visible = visible_mask(view, vector, sin_alt, min_alt, max_alt, site, windows)
 
     # Stage 2, observable: the Moon constraints, while the Moon is up (its distance is needed only there).
     moon_limit = _moon_illumination_limit(request)
@@ -232,13 +218,14 @@ def measure_sky(
     # The filter's climate band, or for a spectrum the smooth curves at its wavelength (spectral_curves).
     sky_model = sky_setting(request, instrument, observatory)
     band, zenith_sky = sky_model.label, sky_model.zenith_mag_arcsec2
+    highest = float(sin_alt.max()) if sin_alt.size else -1.0  # no true night at all (polar summer)
     highest_alt = math.degrees(math.asin(min(highest, 1.0))) if highest > 0.0 else -90.0
     lowest_airmass = airmass_at(highest_alt) if highest > 0.0 else math.inf
 
     k = sky_model.extinction_mag_per_airmass
     if n_observable:
         chosen = np.flatnonzero(usable if n_usable else observable)
-        chosen_sin = sin_alt[chosen] if sin_alt is not None else np.take(view.up, chosen, axis=0) @ vector
+        chosen_sin = sin_alt[chosen]
         # The median commutes with monotonic functions of the altitude (airmass, dark sky).
         median_sin = min(_median(chosen_sin), 1.0)
         airmass_median = airmass_at(math.degrees(math.asin(median_sin)))
@@ -311,7 +298,7 @@ def measure_sky(
         window_night_mask=touched,
         instrument=instrument.name,
         available=available,
-        highest_altitude_deg=highest_alt if highest > 0.0 else (math.degrees(math.asin(max(highest, -1.0))) if view.size else -90.0),
+        highest_altitude_deg=highest_alt if highest > 0.0 else (math.degrees(math.asin(max(highest, -1.0))) if sin_alt.size else -90.0),
         schedule_given=schedule_given,
         nights=grid.nights,
         hours_night=grid.night_hours(sun_limit),

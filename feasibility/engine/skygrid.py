@@ -56,7 +56,6 @@ __all__ = [
     "GRID_VERSION",
     "MOON_UP_ALTITUDE_DEG",
     "NightSamples",
-    "NightTurns",
     "SkyGrid",
     "build_sky_grid",
     "cache_dir",
@@ -67,7 +66,7 @@ __all__ = [
 log = logging.getLogger(__name__)
 
 #: Bumped whenever the grid's content or layout changes; part of the disk cache key.
-GRID_VERSION = 2
+GRID_VERSION = 1
 
 #: Sampling interval of the grid (minutes).
 DEFAULT_STEP_MINUTES = 5.0
@@ -81,30 +80,6 @@ _KEEP_SUN_BELOW_DEG = 0.0
 _MJD_J2000_JD = 2400000.5
 
 Array = NDArray[np.float64]
-
-
-#: The Earth rotation angle's rate (radians per day of UT1), IAU 2000 (as ``erfa.era00``).
-_ERA_RATE_PER_DAY = 2.0 * np.pi * 1.00273781191135448
-
-
-@dataclass(frozen=True)
-class NightTurns:
-    """What the analytic crossings (:mod:`feasibility.engine.crossings`) need for one view, per night.
-
-    Within a night the rotation to the local frame is east-north-up · R3(ERA) · C2I
-    with C2I fixed, so a target's sin(altitude) is ``a + b cos(ERA + λ − α)`` with
-    a, b and α per night; the view's instants of a night are evenly spaced, so the
-    angle at its k-th instant is ``phase[n] + k * rate``.
-    """
-
-    celestial_to_intermediate: Array
-    """``(n_nights, 3, 3)``: C2I of each night (``erfa.c2i06a`` at local midnight)."""
-    phase: Array
-    """Per night, ERA + east longitude (radians) at the night's first instant of the view (0 for an empty night)."""
-    rate: float
-    """Radians of Earth rotation per grid step."""
-    sin_lat: float
-    cos_lat: float
 
 
 @dataclass(frozen=True)
@@ -135,8 +110,6 @@ class NightSamples:
     _moon_terms: dict[float, Array] = field(default_factory=dict, repr=False, compare=False)
     _moon_within: dict[float, NDArray[np.bool_]] = field(default_factory=dict, repr=False, compare=False)
     _on_nights: dict[bytes, NDArray[np.bool_]] = field(default_factory=dict, repr=False, compare=False)
-    turns: NightTurns | None = field(default=None, repr=False, compare=False)
-    """Per-night data for the analytic crossings; None when the view's nights are not evenly sampled."""
 
     @property
     def size(self) -> int:
@@ -215,11 +188,6 @@ class SkyGrid:
     """Geocentric unit vector of the Sun at each night's local midnight (ICRS axes)."""
     moon_illumination_midnight: Array
     beyond_iers_table: bool = False
-    era: Array | None = None
-    """Earth rotation angle (radians, ``erfa.era00``) at each instant; with ``celestial_to_intermediate`` it lets
-    :mod:`feasibility.engine.crossings` solve a night's crossings of an altitude limit analytically."""
-    celestial_to_intermediate: Array | None = None
-    """``(n_nights, 3, 3)``: each night's celestial-to-intermediate matrix (``erfa.c2i06a`` at local midnight)."""
     _views: dict[float, NightSamples] = field(default_factory=dict, repr=False, compare=False)
     _night_hours: dict[float, Array] = field(default_factory=dict, repr=False, compare=False)
     _curves: dict[int, dict[str, object]] = field(default_factory=dict, repr=False, compare=False)
@@ -275,35 +243,9 @@ class SkyGrid:
                 moon_illumination=np.ascontiguousarray(self.moon_illumination[keep]),
                 moon_phase_angle_deg=np.ascontiguousarray(self.moon_phase_angle_deg[keep]),
                 moon_up=np.ascontiguousarray(self.moon_alt_deg[keep] > MOON_UP_ALTITUDE_DEG),
-                turns=self._turns(keep, mjd, np.searchsorted(nights, np.arange(self.n_nights + 1))),
             )
             self._views[key] = view
         return view
-
-    def _turns(self, keep: NDArray[np.bool_], mjd: Array, night_starts: NDArray[np.intp]) -> NightTurns | None:
-        """The view's :class:`NightTurns`, or None without the angles or when a night's instants are not evenly
-        spaced in time and angle (a gap, or a leap second): then the exact per-instant path is used."""
-        if self.era is None or self.celestial_to_intermediate is None:
-            return None
-        era = self.era[keep]
-        first = night_starts[:-1]
-        counts = np.diff(night_starts)
-        n_of = np.repeat(np.arange(self.n_nights), counts)
-        k = np.arange(era.size) - first[n_of]
-        step_days = self.step_minutes / 1440.0
-        rate = _ERA_RATE_PER_DAY * step_days
-        if era.size:
-            even_time = np.abs(mjd - mjd[first[n_of]] - k * step_days).max() < 1e-7  # days (< 0.01 s)
-            drift = np.angle(np.exp(1j * (era - era[first[n_of]] - k * rate)))
-            if not even_time or np.abs(drift).max() > 1e-6:  # radians: 5e-5 of a step
-                return None
-            if (counts.max() - 1) * rate >= 2.0 * np.pi - 0.01 * rate:  # a night spans a whole turn: three transits
-                return None
-        phase = np.zeros(self.n_nights)
-        sampled = counts > 0
-        phase[sampled] = era[first[sampled]] + np.radians(self.longitude_deg)
-        lat = np.radians(self.latitude_deg)
-        return NightTurns(self.celestial_to_intermediate, phase, float(rate), float(np.sin(lat)), float(np.cos(lat)))
 
     def night_hours(self, sun_limit_deg: float) -> Array:
         """Hours per night with the Sun's centre below ``sun_limit_deg`` (computed once per limit)."""
@@ -411,8 +353,7 @@ def build_sky_grid(
 
     # ICRS (GCRS axes) -> terrestrial -> local (east, north, up).
     c2i = erfa.c2i06a(tt1_mid, tt2_mid)  # per night
-    era = erfa.era00(ut1, ut2)
-    celestial_to_terrestrial = np.einsum("nij,njk->nik", rot3(era), c2i[night_index])
+    celestial_to_terrestrial = np.einsum("nij,njk->nik", rot3(erfa.era00(ut1, ut2)), c2i[night_index])
     to_local = np.einsum("ij,njk->nik", enu_matrix(latitude_deg, longitude_deg), celestial_to_terrestrial)
 
     site_itrs = erfa.gd2gc(1, np.radians(longitude_deg), np.radians(latitude_deg), elevation_m) / erfa.DAU
@@ -449,8 +390,6 @@ def build_sky_grid(
         sun_vector_midnight=sun_mid / np.linalg.norm(sun_mid, axis=-1, keepdims=True),
         moon_illumination_midnight=illuminated_fraction(phase_angle_deg(sun_mid, moon_mid)),
         beyond_iers_table=beyond,
-        era=era[keep],
-        celestial_to_intermediate=c2i,
     )
 
 
@@ -505,8 +444,6 @@ _ARRAYS = (
     "moon_phase_angle_deg",
     "sun_vector_midnight",
     "moon_illumination_midnight",
-    "era",
-    "celestial_to_intermediate",
 )
 
 

@@ -38,8 +38,7 @@ class SkyProbe:
 
     view: NightSamples
     vector: NDArray[np.float64]
-    sin_alt: NDArray[np.float64] | None
-    """The sine of the target's altitude at every instant; None until first needed (then computed once)."""
+    sin_alt: NDArray[np.float64]
     site: Site
     floor_alt: float
     """The site's and telescope's lowest altitude (degrees): no airmass limit goes below it."""
@@ -82,12 +81,6 @@ class SkyProbe:
         observable = self._observable(self._visible(None, windows), None, None)
         return self._hours(observable & self.view.on_nights(self.available))
 
-    def sines(self) -> NDArray[np.float64]:
-        """The sine of the target's altitude at every instant of the view (the per-instant product, computed once)."""
-        if self.sin_alt is None:
-            self.sin_alt = self.view.up @ self.vector
-        return self.sin_alt
-
     def airmass_binds(self, limit: float) -> bool:
         """Whether an airmass limit of ``limit`` still lies above the site's and telescope's floor."""
         return limit_altitude(limit, self.formula) > self.floor_alt
@@ -96,7 +89,7 @@ class SkyProbe:
         limit = self.airmass_limit if airmass_limit is None else airmass_limit
         min_alt = max(limit_altitude(limit, self.formula), self.floor_alt)
         return visible_mask(
-            self.view, self.vector, self.sines(), min_alt, self.max_alt, self.site, self.windows if windows else None
+            self.view, self.vector, self.sin_alt, min_alt, self.max_alt, self.site, self.windows if windows else None
         )
 
     def _observable(
@@ -117,12 +110,11 @@ class SkyProbe:
         """The sines of the altitudes and the nights of the instants visible at the floor altitude (cached)."""
         cached = self._floor_cache.get(windows)
         if cached is None:
-            sin_alt = self.sines()
             mask = visible_mask(
-                self.view, self.vector, sin_alt, self.floor_alt, self.max_alt, self.site, self.windows if windows else None
+                self.view, self.vector, self.sin_alt, self.floor_alt, self.max_alt, self.site, self.windows if windows else None
             )
             chosen = np.flatnonzero(mask)
-            cached = self._floor_cache[windows] = (sin_alt[chosen], self.view.night_index[chosen])
+            cached = self._floor_cache[windows] = (self.sin_alt[chosen], self.view.night_index[chosen])
         return cached
 
     def _hours(self, mask: NDArray[np.bool_]) -> Hours:
