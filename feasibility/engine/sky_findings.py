@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import functools
 import math
+from collections import Counter
 from datetime import date
 from typing import TYPE_CHECKING
 
@@ -350,13 +351,13 @@ def schedule_finding(sky: SkyMeasure, hours_needed: float | None, schedule: Inst
     else:
         message += f"; {w.hours(need)} needed."
     suggestion = None
-    lost = _nights_lost(sky, schedule) if sky.schedule_given and schedule is not None else None
     if level is not Level.FEASIBLE:
         what = "needed by the goal" if goal_decides else "requested"
         missed = shortfall(clear, hours, need, sky.has_windows, what)
         if goal_decides and level_for_hours(clear, hours, sky.hours_requested, sky.has_windows).rank < level.rank:
             message += f" Limited by the hours the goal needs: {missed}."
         elif sky.schedule_given and hours < observable:
+            lost = _nights_lost(sky, schedule) if schedule is not None else None
             message += f" Limited by the instrument schedule: {missed}"
             message += f"; {lost}." if lost else "."
         else:
@@ -400,12 +401,8 @@ def _nights_lost(sky: SkyMeasure, schedule: InstrumentSchedule) -> str | None:
         return None
     codes, kinds = _night_kinds(schedule, sky.nights)
     lost_codes = codes[lost]
-    counts = np.bincount(lost_codes).tolist()
-    present = [code for code, count in enumerate(counts) if count]
-    first = {code: int(np.argmax(lost_codes == code)) for code in present}  # a handful of kinds
-    # Most nights first; ties in the order first met (as Counter.most_common).
-    present.sort(key=lambda code: (-counts[code], first[code]))
-    groups = ", ".join(f"{counts[code]} {kinds[code]}" for code in present)
+    counts = Counter(lost_codes.tolist())  # most_common: most nights first, ties in the order first met
+    groups = ", ".join(f"{count} {kinds[code]}" for code, count in counts.most_common())
     return f"{lead} {w.count(int(lost.size), 'night')} without {sky.instrument}: {groups}"
 
 
