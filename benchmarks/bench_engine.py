@@ -12,7 +12,11 @@ Prints, in one run on one core (BLAS threads pinned to 1), each the fastest of
   an arcsin over every instant);
 - the straightforward approach measured in the same run: an astropy
   ``SkyCoord.transform_to(AltAz)`` per target over the same instants, the speed
-  ratio against it and the largest altitude difference.
+  ratio against it and the largest altitude difference;
+- memory and size: this process's peak resident set (``resource.getrusage``; an
+  engine worker holds the same grid and caches) and the bytes the store writes per
+  proposal (the result's JSON, ``model_dump_json`` as in ``service/runs.py``), per
+  request and per 1,000 proposals of four requests.
 
 Goals (issue 2): altitude path ≥ 1,000× faster than astropy within 0.05°;
 ≥ 2,000 full request checks per second on one core.
@@ -33,6 +37,7 @@ os.environ.setdefault("MKL_NUM_THREADS", "1")
 
 import argparse  # noqa: E402
 import random  # noqa: E402
+import resource  # noqa: E402
 import time  # noqa: E402
 from importlib import resources  # noqa: E402
 from pathlib import Path  # noqa: E402
@@ -85,8 +90,12 @@ def main() -> None:
 
     check_proposal(proposals[0], observatory, schedule)  # warm-up: in-process caches
     verdicts: dict[str, int] = {}
-    for request in (r for p in proposals for r in check_proposal(p, observatory, schedule).requests):
-        verdicts[request.verdict.value] = verdicts.get(request.verdict.value, 0) + 1
+    stored_bytes = 0
+    for proposal in proposals:
+        result = check_proposal(proposal, observatory, schedule)
+        stored_bytes += len(result.model_dump_json().encode())  # what the store writes (service/runs.py)
+        for request in result.requests:
+            verdicts[request.verdict.value] = verdicts.get(request.verdict.value, 0) + 1
 
     def full_checks() -> None:
         for proposal in proposals:
@@ -125,6 +134,7 @@ def main() -> None:
     exposure_only, exposure_cpu = _best_of(exposure_assessments, len(parsed), args.rounds)
     altitude_only, _ = _best_of(altitude_paths, len(parsed), args.rounds)
 
+    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # kilobytes on Linux; before astropy's baseline
     baseline, worst_difference = _astropy_baseline(parsed[: args.baseline_targets], view, site)
 
     print(f"\ninstants per target (astronomical night, whole semester): {view.size}")
@@ -141,6 +151,10 @@ def main() -> None:
     print(f"full request checks per second:                {1.0 / full:10.0f}    wall, {1.0 / full_cpu:.0f} CPU-time (goal >= 2000 on one core)")
     print(f"load average (1 min) before and after the timed rounds: {load_before:.1f}, {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores "
           "(other work slows every figure)")
+    per_proposal = stored_bytes / len(proposals)
+    print(f"\npeak resident memory of this process (engine, grid and caches; before the astropy baseline): {peak_mb:.0f} MB")
+    print(f"stored result JSON per proposal ({REQUESTS_PER_PROPOSAL} requests): {per_proposal / 1024:.1f} KB "
+          f"({per_proposal / REQUESTS_PER_PROPOSAL / 1024:.1f} KB per request; {per_proposal * 1000 / 1024**2:.0f} MB per 1,000 proposals)")
 
 
 def _best_of(work: Any, count: int, rounds: int) -> tuple[float, float]:

@@ -4,6 +4,9 @@ Invented proposals (made from the demo proposals, with targets spread over the
 sky) are submitted by concurrent clients. Printed: submissions accepted per
 second, time until every verdict is stored, and lost or duplicated results.
 Goals: none lost, none duplicated, every verdict within 60 s on two cores.
+Also printed: the peak resident memory of each worker process (``VmHWM`` from
+/proc), the stored result JSON per proposal, and the database's size per 1,000
+proposals (``pg_total_relation_size`` of every table, and its largest tables).
 The clock starts when the service is running and warmed up (a few proposals
 checked first, uncounted, so every process has loaded the engine).
 
@@ -70,6 +73,8 @@ def main() -> None:
         done_s = service.wait_all(len(proposals), args.timeout, start_offset=submit_s)
         cpu = {k: v - cpu_before[k] for k, v in service.cpu_seconds().items()}
         lost, duplicated, failed = service.audit(proposals)
+        memory = service.worker_peak_mb()
+        sizes = service.sizes()
 
     ideal = baseline_s * len(proposals) / args.concurrency
     print(f"proposals submitted           {len(proposals)} ({n_requests} observation requests), {args.clients} clients")
@@ -82,6 +87,11 @@ def main() -> None:
     print(f"baseline: engine in-process   {baseline_s * 1000:.0f} ms per proposal; ideal on {args.concurrency} processes {ideal:.1f} s")
     if done_s == done_s:
         print(f"ratio service / ideal         {done_s / ideal:.2f}")
+    print("peak memory per worker process " + ", ".join(f"{mb:.0f} MB" for mb in memory) + " (VmHWM; the first is Celery's parent)")
+    per_thousand = 1000.0 / (len(proposals) + service.warmed)
+    print(f"stored result JSON            {sizes['result_bytes'] / 1024:.1f} KB per proposal (mean over done runs)")
+    print(f"database per 1,000 proposals  {sizes['total'] * per_thousand / 1024**2:.0f} MB (all tables with indexes and TOAST; "
+          + ", ".join(f"{name} {size * per_thousand / 1024**2:.0f} MB" for name, size in sizes["tables"][:4]) + ")")
     print(f"goals: none lost {'met' if lost == 0 else 'MISSED'}, none duplicated {'met' if duplicated == 0 else 'MISSED'}, "
           f"within 60 s {'met' if done_s <= 60 else 'MISSED'}")
 
@@ -267,6 +277,34 @@ class Service:
         lost = sum(1 for p in proposals if done.get(p["id"], 0) == 0)
         duplicated = sum(n - 1 for n in done.values() if n > 1) + sum(1 for n in outcomes.values() if n > REQUESTS_PER_PROPOSAL)
         return lost, duplicated, int(failed)
+
+    def worker_peak_mb(self) -> list[float]:
+        """Peak resident memory (MB) of the Celery parent and each of its worker processes, from /proc's VmHWM."""
+        table = _process_table()
+        peaks = []
+        for pid in sorted(_descendants(table, self.processes[0].pid)):
+            try:
+                status = Path(f"/proc/{pid}/status").read_text()
+            except OSError:
+                continue
+            for line in status.splitlines():
+                if line.startswith("VmHWM:"):
+                    peaks.append(int(line.split()[1]) / 1024.0)
+        return peaks
+
+    def sizes(self) -> dict[str, Any]:
+        """Bytes on disk: every table (pg_total_relation_size: data, indexes, TOAST), the largest first, and the mean
+        stored result JSON of the done runs."""
+        with self.db.connect() as connection:
+            rows = connection.execute(text(
+                "SELECT c.relname, pg_total_relation_size(c.oid) FROM pg_class c JOIN pg_namespace n ON n.oid = c.relnamespace "
+                "WHERE c.relkind = 'r' AND n.nspname = 'public' ORDER BY 2 DESC"
+            )).all()
+            result_bytes = connection.execute(text(
+                "SELECT avg(octet_length(result::text)) FROM check_runs WHERE state = 'done'"
+            )).scalar()
+        tables = [(str(name), int(size)) for name, size in rows]
+        return {"tables": tables, "total": sum(size for _, size in tables), "result_bytes": float(result_bytes or 0.0)}
 
     def __exit__(self, *exc: object) -> None:
         for process in self.processes:

@@ -182,4 +182,6 @@ def limit_airmass(altitude_deg: float, formula: str = "secant") -> float:
     """The airmass at ``altitude_deg`` in the limit's formula (to compare a target's lowest airmass with its limit)."""
     if altitude_deg <= 0.0:
         return math.inf
+    if formula == "secant":  # the scalar form of airmass_secant (a NumPy call on one value costs ten times more)
+        return max(1.0, 1.0 / math.sin(math.radians(altitude_deg)))
     return max(1.0, float(_BY_FORMULA[formula](altitude_deg)))

@@ -64,8 +64,13 @@ class Conditions:
 
 def nearest_rank(values: NDArray[np.float64], percent: float) -> float:
     """The ``percent`` percentile of ``values`` by nearest rank (no interpolation), one partition: O(n)."""
-    rank = min(values.size - 1, max(0, math.ceil(percent / 100.0 * values.size) - 1))
+    rank = nearest_rank_index(values.size, percent)
     return float(np.partition(values, rank)[rank])
+
+
+def nearest_rank_index(size: int, percent: float) -> int:
+    """Where the ``percent`` percentile by nearest rank stands among ``size`` sorted values (from 0)."""
+    return min(size - 1, max(0, math.ceil(percent / 100.0 * size) - 1))
 
 
 def wavelength_for(request: ObservationRequest, instrument: Instrument) -> float | None:

@@ -199,8 +199,9 @@ def assess_exposure(
         )
     )
     magnitude = request.brightness.magnitude
-    signal, note = _signal(request, observatory, instrument, conditions, wavelength, design, magnitude)
-    typical_signal, _ = _signal(request, observatory, instrument, conditions, wavelength, typical, magnitude)
+    optics = _optics(request, observatory, instrument, conditions, wavelength)  # shared by every point below
+    signal, note = _signal(request, observatory, instrument, conditions, wavelength, design, magnitude, optics)
+    typical_signal, _ = _signal(request, observatory, instrument, conditions, wavelength, typical, magnitude, optics)
     problems = instrument_setup_problems(request, instrument, wavelength)
 
     # Saturation at the worst case: the best tenth of the seeing at the zenith, over the design sky.
@@ -208,7 +209,7 @@ def assess_exposure(
         "best", BEST_SEEING_PERCENT, 1.0, design.sky_mag_arcsec2,
         seeing_percentile_arcsec(climate.median_seeing_arcsec, BEST_SEEING_PERCENT),
     )
-    peak_signal, _ = _signal(request, observatory, instrument, conditions, wavelength, best, magnitude)
+    peak_signal, _ = _signal(request, observatory, instrument, conditions, wavelength, best, magnitude, optics)
     level_e = saturation_level_e(instrument.detector)
     safe = level_e / peak_signal.peak_e_s_pix
     longest = min(instrument.max_exposure_s, safe)
@@ -250,13 +251,13 @@ def assess_exposure(
     faint_hours = None
     if request.brightness.error:
         faint_signal, _ = _signal(
-            request, observatory, instrument, conditions, wavelength, design, magnitude + request.brightness.error
+            request, observatory, instrument, conditions, wavelength, design, magnitude + request.brightness.error, optics
         )
         faint_hours = _plan_for_goal(request, instrument, faint_signal, longest).hours
     if saturated:
         note = "; ".join(filter(None, [note, "these figures assume shortest exposures, which saturate"]))
     outcome = _Outcome(typical, design, signal, typical_signal, plan, typical_plan, budget, typical_budget, conditions.sky_band)
-    alternatives = _Alternatives(request, observatory, instrument, conditions, wavelength, longest)
+    alternatives = _Alternatives(request, observatory, instrument, conditions, wavelength, longest, optics)
     findings.append(_sensitivity_finding(request, outcome, faint_hours, note, alternatives))
 
     figures: dict[str, Any] = {
@@ -390,21 +391,32 @@ def _missing_setup(request: ObservationRequest, instrument: Instrument) -> str |
     return None
 
 
-def _signal(
-    request: ObservationRequest,
-    observatory: Observatory,
-    instrument: Instrument,
-    conditions: Conditions,
-    wavelength: float,
-    point: ObservingPoint,
-    magnitude: float,
-) -> tuple[Signal, str | None]:
-    """Electron rates for ``magnitude`` at ``point``, and a note when the brightness band is not the observed band."""
-    climate, detector = observatory.climate, instrument.detector
-    airmass = point.airmass
+@dataclass(frozen=True)
+class _Optics:
+    """What every observing point of one request shares: the band or spectrum's zero point, width, throughput
+    and extinction, the sky's zero point, and the note on the brightness band (worked out once per request)."""
+
+    observed_band: str
+    zero_point: float
+    bandwidth: float
+    throughput: float
+    extinction: float
+    sky_zero_point: float
+    sky_offset: float | None
+    """Spectra: the sky carried from the conditions' band to the wavelength (added to each point's sky)."""
+    area: float
+    note: str | None
+
+
+def _optics(
+    request: ObservationRequest, observatory: Observatory, instrument: Instrument, conditions: Conditions, wavelength: float
+) -> _Optics:
+    """The point-independent part of :func:`_signal`."""
+    climate = observatory.climate
     telescope = observatory.telescope
     area = photometry.collecting_area_m2(telescope.aperture_m, telescope.central_obstruction)
     sky_band = climate.bands[conditions.sky_band] if conditions.sky_band in climate.bands else None
+    sky_offset = None
     if instrument.kind == "imager":
         item = instrument.filter_named(request.setup.filter or "")
         assert item is not None  # _missing_setup ruled this out
@@ -413,7 +425,6 @@ def _signal(
         throughput = item.throughput or instrument.throughput
         extinction = climate.bands[item.band].extinction_mag_per_airmass
         sky_zero_point = zero_point if sky_band is None or item.band == conditions.sky_band else sky_band.zero_point_jy
-        sky_mag = point.sky_mag_arcsec2
     else:
         grating = instrument.grating_named(request.setup.grating or "")
         assert grating is not None
@@ -423,10 +434,9 @@ def _signal(
         bandwidth = 1.0 / grating.resolving_power
         throughput = grating.throughput or instrument.throughput
         extinction = spectrum.extinction_mag_per_airmass
-        # The point's sky (typical or design) carried to the wavelength as the conditions' sky is.
+        # Each point's sky (typical or design) is carried to the wavelength as the conditions' sky is.
         sky_zero_point = zero_point
-        sky_mag = point.sky_mag_arcsec2 + (spectrum.sky_mag_arcsec2 - conditions.sky_mag_arcsec2)
-
+        sky_offset = spectrum.sky_mag_arcsec2 - conditions.sky_mag_arcsec2
     brightness = request.brightness
     note = None
     if instrument.kind != "imager":
@@ -436,10 +446,36 @@ def _signal(
             f"brightness is given in {brightness.band}, not the observed band {observed_band}: "
             f"zero {brightness.band}-{observed_band} colour assumed ({_SYSTEM_NAMES[brightness.system]} system)"
         )
+    return _Optics(observed_band, zero_point, bandwidth, throughput, extinction, sky_zero_point, sky_offset, area, note)
+
+
+def _signal(
+    request: ObservationRequest,
+    observatory: Observatory,
+    instrument: Instrument,
+    conditions: Conditions,
+    wavelength: float,
+    point: ObservingPoint,
+    magnitude: float,
+    optics: _Optics | None = None,
+) -> tuple[Signal, str | None]:
+    """Electron rates for ``magnitude`` at ``point``, and a note when the brightness band is not the observed band.
+
+    ``optics`` (:func:`_optics`) is the part every point of the request shares; worked out here when not given.
+    """
+    if optics is None:
+        optics = _optics(request, observatory, instrument, conditions, wavelength)
+    detector = instrument.detector
+    airmass = point.airmass
+    telescope = observatory.telescope
+    zero_point, bandwidth, throughput, area = optics.zero_point, optics.bandwidth, optics.throughput, optics.area
+    sky_mag = point.sky_mag_arcsec2 if optics.sky_offset is None else point.sky_mag_arcsec2 + optics.sky_offset
+    brightness = request.brightness
+    note = optics.note
     rate = photometry.source_rate(
-        magnitude, brightness.system, zero_point, bandwidth, area, throughput, extinction, airmass
+        magnitude, brightness.system, zero_point, bandwidth, area, throughput, optics.extinction, airmass
     )
-    sky_arcsec2 = photometry.sky_rate_per_arcsec2(sky_mag, sky_zero_point, bandwidth, area, throughput)
+    sky_arcsec2 = photometry.sky_rate_per_arcsec2(sky_mag, optics.sky_zero_point, bandwidth, area, throughput)
     fwhm = _delivered_fwhm(request, point.zenith_seeing_arcsec, airmass, wavelength, telescope.aperture_m)
     pixel = detector.pixel_scale_arcsec
     common = {"dark_e_s_pix": detector.dark_current_e_s_pix, "read_noise_e": detector.read_noise_e, "fwhm_arcsec": fwhm}
@@ -703,14 +739,15 @@ class _Alternatives:
         conditions: Conditions,
         wavelength: float,
         longest: float,
+        optics: _Optics,
     ) -> None:
         self.request, self.observatory, self.instrument = request, observatory, instrument
-        self.conditions, self.wavelength, self.longest = conditions, wavelength, longest
+        self.conditions, self.wavelength, self.longest, self.optics = conditions, wavelength, longest, optics
 
     def _at(self, point: ObservingPoint) -> tuple[ExposurePlan, ExposurePlan]:
         signal, _ = _signal(
             self.request, self.observatory, self.instrument, self.conditions, self.wavelength, point,
-            self.request.brightness.magnitude,
+            self.request.brightness.magnitude, self.optics,
         )
         return (
             _plan_for_goal(self.request, self.instrument, signal, self.longest),

@@ -35,7 +35,7 @@ from feasibility.documents import Instrument, InstrumentSchedule, Observatory, O
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
 from feasibility.documents.proposal import SKY_ILLUMINATION
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass, limit_airmass, limit_altitude
-from feasibility.engine.conditions import Conditions, nearest_rank
+from feasibility.engine.conditions import Conditions, nearest_rank, nearest_rank_index
 from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, optical_path, sky_components_nl
 from feasibility.engine.positions import target_vector
 from feasibility.engine.sky_findings import (
@@ -226,10 +226,15 @@ def measure_sky(
     if n_observable:
         chosen = np.flatnonzero(usable if n_usable else observable)
         chosen_sin = sin_alt[chosen]
-        # The median commutes with monotonic functions of the altitude (airmass, dark sky).
-        median_sin = min(_median(chosen_sin), 1.0)
+        # The median commutes with monotonic functions of the altitude (airmass, dark sky). One partition gives
+        # the (upper) median, the design percentile's rank (conditions.py) and the highest value.
+        percent = observatory.climate.design_percentile
+        last, middle = chosen_sin.size - 1, chosen_sin.size // 2
+        design_rank = nearest_rank_index(chosen_sin.size, 100.0 - percent)
+        ranked = np.partition(chosen_sin, sorted({middle, design_rank, last}))
+        median_sin = min(float(ranked[middle]), 1.0)
         airmass_median = airmass_at(math.degrees(math.asin(median_sin)))
-        airmass_min = airmass_at(math.degrees(math.asin(min(float(chosen_sin.max()), 1.0))))
+        airmass_min = airmass_at(math.degrees(math.asin(min(float(ranked[last]), 1.0))))
         step = -(-chosen.size // _SKY_SAMPLES)  # at most _SKY_SAMPLES, evenly spread in time
         sampled = chosen[::step]
         # (With the Moon down its term is zero, whatever the separation.)
@@ -244,10 +249,9 @@ def measure_sky(
         sky_median = float(mag_from_nanolamberts(_median(sky_nl)))
         # Design conditions (conditions.py): the airmass, and the sky of the moonlit instants the Moon constraints
         # allow (all of them when the Moon is never up then), that the design percentile does not exceed.
-        percent = observatory.climate.design_percentile
         moonlit = sky_nl[moon_nl > 0.0]
         sky_design = float(mag_from_nanolamberts(nearest_rank(moonlit if moonlit.size else sky_nl, percent)))
-        airmass_design = airmass_at(math.degrees(math.asin(min(nearest_rank(chosen_sin, 100.0 - percent), 1.0))))
+        airmass_design = airmass_at(math.degrees(math.asin(min(float(ranked[design_rank]), 1.0))))
         median_zenith = 90.0 - math.degrees(math.asin(median_sin))
         dark_sky = float(mag_from_nanolamberts(dark_sky_nl(zenith_sky, k, median_zenith)))
     else:

@@ -20,9 +20,11 @@ from __future__ import annotations
 import functools
 import math
 from collections import Counter
+from datetime import date
 from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import NDArray
 
 from feasibility.documents import InstrumentSchedule
 from feasibility.documents.proposal import SKY_ILLUMINATION
@@ -209,7 +211,8 @@ def _visibility_suggestion(sky: SkyMeasure, never_up: bool) -> str | None:
 
 def _airmass_that_fits(sky: SkyMeasure, probe: SkyProbe, needed: float) -> str | None:
     """The smallest airmass limit (0.1 steps) that makes visibility feasible, with the hours it gives."""
-    candidates = [round(x, 1) for x in np.arange(math.floor(sky.airmass_limit * 10 + 1) / 10, _LARGEST_AIRMASS_LIMIT + 0.05, 0.1)]
+    # In tenths from just above the limit up to the largest (k / 10 is the double round(k * 0.1, 1) gives).
+    candidates = [k / 10 for k in range(math.floor(sky.airmass_limit * 10 + 1), round(_LARGEST_AIRMASS_LIMIT * 10) + 1)]
     candidates = [c for c in candidates if probe.airmass_binds(c) or c == candidates[0]]
     if not candidates:
         return None
@@ -348,13 +351,13 @@ def schedule_finding(sky: SkyMeasure, hours_needed: float | None, schedule: Inst
     else:
         message += f"; {w.hours(need)} needed."
     suggestion = None
-    lost = _nights_lost(sky, schedule) if sky.schedule_given and schedule is not None else None
     if level is not Level.FEASIBLE:
         what = "needed by the goal" if goal_decides else "requested"
         missed = shortfall(clear, hours, need, sky.has_windows, what)
         if goal_decides and level_for_hours(clear, hours, sky.hours_requested, sky.has_windows).rank < level.rank:
             message += f" Limited by the hours the goal needs: {missed}."
         elif sky.schedule_given and hours < observable:
+            lost = _nights_lost(sky, schedule) if schedule is not None else None
             message += f" Limited by the instrument schedule: {missed}"
             message += f"; {lost}." if lost else "."
         else:
@@ -387,7 +390,6 @@ def schedule_finding(sky: SkyMeasure, hours_needed: float | None, schedule: Inst
 def _nights_lost(sky: SkyMeasure, schedule: InstrumentSchedule) -> str | None:
     """What the schedule says about the nights the request could use but the instrument is not on:
     shutdown and engineering nights with their notes, other instruments, nights not listed."""
-    entries = {entry.night: entry for entry in schedule.nights}
     if sky.has_windows and sky.window_night_mask is not None:
         wanted = sky.window_night_mask
         lead = "the time windows fall on"
@@ -397,17 +399,40 @@ def _nights_lost(sky: SkyMeasure, schedule: InstrumentSchedule) -> str | None:
     lost = np.flatnonzero(wanted & ~sky.available)
     if not lost.size:
         return None
-    kinds: Counter[str] = Counter()
-    for index in lost:
-        entry = entries.get(sky.nights[index])
-        if entry is None:
-            kinds["closed nights (not in the schedule)"] += 1
-        elif entry.status != "open":
-            kinds[f"{entry.status} nights" + (f" ({entry.note})" if entry.note else "")] += 1
-        else:
-            kinds[f"nights with {entry.instrument}"] += 1
-    groups = ", ".join(f"{count} {kind}" for kind, count in kinds.most_common())
+    codes, kinds = _night_kinds(schedule, sky.nights)
+    lost_codes = codes[lost]
+    counts = Counter(lost_codes.tolist())  # most_common: most nights first, ties in the order first met
+    groups = ", ".join(f"{count} {kinds[code]}" for code, count in counts.most_common())
     return f"{lead} {w.count(int(lost.size), 'night')} without {sky.instrument}: {groups}"
+
+
+#: Per (schedule, nights) object identities: each night's kind as a code and the kinds' words (a few entries).
+_NIGHT_KINDS: dict[tuple[int, int], tuple[InstrumentSchedule, list[date], NDArray[np.intp], list[str]]] = {}
+
+
+def _night_kinds(schedule: InstrumentSchedule, nights: list[date]) -> tuple[NDArray[np.intp], list[str]]:
+    """Each night's kind for :func:`_nights_lost` (closed, shutdown with its note, another instrument), worked out
+    once per schedule and grid: identity-checked, as the schedule is the same object across a run's proposals."""
+    key = (id(schedule), id(nights))
+    cached = _NIGHT_KINDS.get(key)
+    if cached is not None and cached[0] is schedule and cached[1] is nights:
+        return cached[2], cached[3]
+    entries = {entry.night: entry for entry in schedule.nights}
+    index: dict[str, int] = {}
+    codes = np.empty(len(nights), dtype=np.intp)
+    for i, night in enumerate(nights):
+        entry = entries.get(night)
+        if entry is None:
+            kind = "closed nights (not in the schedule)"
+        elif entry.status != "open":
+            kind = f"{entry.status} nights" + (f" ({entry.note})" if entry.note else "")
+        else:
+            kind = f"nights with {entry.instrument}"
+        codes[i] = index.setdefault(kind, len(index))
+    if len(_NIGHT_KINDS) >= 32:
+        _NIGHT_KINDS.clear()
+    _NIGHT_KINDS[key] = (schedule, nights, codes, list(index))
+    return codes, list(index)
 
 
 def _schedule_suggestion(sky: SkyMeasure, goal_decides: bool, clear: float) -> str | None:

@@ -109,6 +109,7 @@ class NightSamples:
     moon_up: NDArray[np.bool_]
     _moon_terms: dict[float, Array] = field(default_factory=dict, repr=False, compare=False)
     _moon_within: dict[float, NDArray[np.bool_]] = field(default_factory=dict, repr=False, compare=False)
+    _on_nights: dict[bytes, NDArray[np.bool_]] = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def size(self) -> int:
@@ -145,8 +146,17 @@ class NightSamples:
         return counts
 
     def on_nights(self, nights: NDArray[np.bool_]) -> NDArray[np.bool_]:
-        """Spread a per-night mask over the instants of each night."""
-        return np.repeat(nights, np.diff(self.night_starts))
+        """Spread a per-night mask over the instants of each night (read-only; cached per mask, as the same
+        schedule's nights come back for every request on an instrument)."""
+        key = np.asarray(nights, dtype=bool).tobytes()
+        spread = self._on_nights.get(key)
+        if spread is None:
+            spread = np.repeat(nights, np.diff(self.night_starts))
+            spread.setflags(write=False)
+            if len(self._on_nights) >= 64:
+                self._on_nights.clear()
+            self._on_nights[key] = spread
+        return spread
 
     @functools.cached_property
     def _sampled_nights(self) -> NDArray[np.intp]:

@@ -10,7 +10,7 @@ figure on their suggestions ("airmass limit 2.3 would give 12.4 h").
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import NDArray
@@ -51,10 +51,20 @@ class SkyProbe:
     available: NDArray[np.bool_]
     weather: NDArray[np.float64]
     step_hours: float
+    _floor_cache: dict[bool, tuple[NDArray[np.float64], NDArray[np.int32]]] = field(default_factory=dict, repr=False, compare=False)
 
     def visible(self, airmass_limit: float | None = None, *, windows: bool = True) -> Hours:
-        """Visible hours with ``airmass_limit`` (default: the request's) and with or without the time windows."""
-        return self._hours(self._visible(airmass_limit, windows))
+        """Visible hours with ``airmass_limit`` (default: the request's) and with or without the time windows.
+
+        The same instants as :func:`visible_mask` with that limit: the instants visible at the floor
+        (:attr:`floor_alt`, every other limit kept) are found once, and each limit only thresholds
+        their altitudes (a search over limits costs a fraction of a full pass each).
+        """
+        limit = self.airmass_limit if airmass_limit is None else airmass_limit
+        min_alt = max(limit_altitude(limit, self.formula), self.floor_alt)
+        sin_alt, nights = self._above_floor(windows)
+        chosen = nights[sin_alt >= math.sin(math.radians(min_alt))]
+        return self._hours_from_counts(np.bincount(chosen, minlength=self.view.night_starts.size - 1))
 
     def observable(
         self,
@@ -96,6 +106,20 @@ class SkyProbe:
             observable &= self.view.moon_down_or_within(illumination)
         return observable
 
+    def _above_floor(self, windows: bool) -> tuple[NDArray[np.float64], NDArray[np.int32]]:
+        """The sines of the altitudes and the nights of the instants visible at the floor altitude (cached)."""
+        cached = self._floor_cache.get(windows)
+        if cached is None:
+            mask = visible_mask(
+                self.view, self.vector, self.sin_alt, self.floor_alt, self.max_alt, self.site, self.windows if windows else None
+            )
+            chosen = np.flatnonzero(mask)
+            cached = self._floor_cache[windows] = (self.sin_alt[chosen], self.view.night_index[chosen])
+        return cached
+
     def _hours(self, mask: NDArray[np.bool_]) -> Hours:
-        per_night = self.view.per_night(mask) * self.step_hours
+        return self._hours_from_counts(self.view.per_night(mask))
+
+    def _hours_from_counts(self, counts: NDArray[np.integer]) -> Hours:
+        per_night = counts * self.step_hours
         return Hours(float(per_night.sum()), float(per_night @ self.weather), per_night)

@@ -1,0 +1,119 @@
+"""The engine's shortcuts against its exact per-instant path, on a few hundred random (seeded) requests.
+
+- The search for an airmass limit that fits (``SkyProbe.visible``) thresholds the
+  altitudes of the instants visible at the site's and telescope's floor, found
+  once, instead of running the whole visibility mask again for every limit tried.
+  Here every limit from 1.1 to 6.0 (with and without the time windows, with the
+  demo site's horizon profile) is held to the per-instant path: the mask of
+  :func:`feasibility.engine.sky_masks.visible_mask` over every instant, counted
+  night by night. The per-instant path is itself held to astropy's ``AltAz`` in
+  tests/engine/test_skygrid.py and test_sky_checks.py.
+- The nights a schedule takes away are described from per-night kinds worked out
+  once per schedule: held to a plain look-up of each lost night's schedule entry.
+
+Differences allowed: none (both shortcuts choose exactly the instants and nights
+the exact path does; no grid step at a crossing may differ).
+"""
+
+from __future__ import annotations
+
+import random
+from collections import Counter
+from typing import Any
+
+import numpy as np
+import pytest
+
+from feasibility.documents import InstrumentSchedule, Observatory, ObservationRequest, parse_document
+from feasibility.engine import sky_findings
+from feasibility.engine.airmass import limit_altitude
+from feasibility.engine.sky_checks import measure_sky, night_availability
+from feasibility.engine.sky_masks import in_windows, visible_mask
+
+REQUESTS = 300
+LIMITS = [k / 10 for k in range(11, 61)]
+
+
+def _random_request(rng: random.Random, i: int) -> ObservationRequest:
+    data: dict[str, Any] = {
+        "label": f"r{i}",
+        "target": {"name": f"field {i}", "ra": rng.uniform(0.0, 359.9), "dec": rng.uniform(-89.0, 40.0)},
+        "instrument": "KESTREL",
+        "setup": {"filter": "V"},
+        "brightness": {"magnitude": 18.0, "band": "V"},
+        "goal": {"snr": 30},
+        "hours_requested": rng.choice([1.0, 5.0, 20.0]),
+        "constraints": {"max_airmass": rng.choice([1.3, 1.5, 2.0, 2.5, 3.0]), "min_moon_separation_deg": 30.0},
+    }
+    if rng.random() < 0.3:
+        start = rng.randint(1, 25)
+        data["windows"] = [{"start": f"2027-05-{start:02d}T00:00:00Z", "end": f"2027-06-{start:02d}T12:00:00Z"}]
+    return parse_document(ObservationRequest, data)
+
+
+@pytest.fixture(scope="module")
+def measured(grid_2027a, demo_observatory: Observatory, demo_schedule: InstrumentSchedule) -> list[tuple[ObservationRequest, Any]]:
+    rng = random.Random(20270)
+    instrument = demo_observatory.instrument_named("KESTREL")
+    assert instrument is not None
+    weather = np.array([demo_observatory.climate.usable_night_fraction.get(int(m), 1.0) for m in grid_2027a.night_months])
+    available = night_availability(grid_2027a, instrument.name, demo_schedule)
+    out = []
+    for i in range(REQUESTS):
+        request = _random_request(rng, i)
+        out.append((request, measure_sky(request, demo_observatory, instrument, grid_2027a, available, weather, True)))
+    return out
+
+
+def test_the_airmass_limit_search_matches_the_per_instant_path(measured, demo_observatory: Observatory) -> None:
+    assert demo_observatory.site.horizon  # the demo site's horizon profile takes part
+    compared = differing = 0
+    for request, sky in measured:
+        probe = sky.probe
+        view = probe.view
+        sin_alt = view.up @ probe.vector  # the exact per-instant product
+        for windows in (True, False):
+            for limit in LIMITS:
+                min_alt = max(limit_altitude(limit, probe.formula), probe.floor_alt)
+                mask = visible_mask(
+                    view, probe.vector, sin_alt, min_alt, probe.max_alt, demo_observatory.site,
+                    in_windows(request.windows, view.mjd) if windows and request.windows else None,
+                )
+                exact = view.per_night(mask) * probe.step_hours
+                fast = probe.visible(limit, windows=windows)
+                compared += 1
+                differing += int(not np.array_equal(fast.per_night, exact))
+                assert fast.total == float(exact.sum())
+                assert fast.clear == float(exact @ probe.weather)
+    assert compared == REQUESTS * 2 * len(LIMITS)
+    assert differing == 0  # not even one grid step at a crossing
+
+
+def test_the_request_limit_matches_the_measured_visible_hours(measured) -> None:
+    for _, sky in measured:
+        assert np.array_equal(sky.probe.visible().per_night, sky.visible)
+
+
+def test_nights_lost_to_the_schedule_match_a_plain_look_up(measured, demo_schedule: InstrumentSchedule) -> None:
+    entries = {entry.night: entry for entry in demo_schedule.nights}
+    described = 0
+    for _, sky in measured:
+        text = sky_findings._nights_lost(sky, demo_schedule)
+        wanted = sky.window_night_mask if sky.has_windows and sky.window_night_mask is not None else sky.observable > 0.0
+        lost = np.flatnonzero(wanted & ~sky.available)
+        if not lost.size:
+            assert text is None
+            continue
+        kinds: Counter[str] = Counter()
+        for index in lost:  # reference: each lost night's own schedule entry
+            entry = entries.get(sky.nights[index])
+            if entry is None:
+                kinds["closed nights (not in the schedule)"] += 1
+            elif entry.status != "open":
+                kinds[f"{entry.status} nights" + (f" ({entry.note})" if entry.note else "")] += 1
+            else:
+                kinds[f"nights with {entry.instrument}"] += 1
+        assert text is not None
+        assert text.endswith(": " + ", ".join(f"{count} {kind}" for kind, count in kinds.most_common()))
+        described += 1
+    assert described > REQUESTS // 4
