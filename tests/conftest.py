@@ -108,6 +108,21 @@ def private_postgres() -> Iterator[PrivatePostgres]:
         shutil.rmtree(base, ignore_errors=True)
 
 
+@pytest.fixture(autouse=True)
+def _dispose_engines_made_by_the_test() -> Iterator[None]:
+    """Close the pooled connections of every database engine a test made (extra apps, commands) when it ends.
+
+    An engine left for the garbage collector closes its PostgreSQL connections in ``__del__``, which
+    psycopg reports as a ResourceWarning inside whatever test runs then (an error under our warning filters).
+    """
+    from feasibility.store import db
+
+    before = set(db.all_engines())
+    yield
+    for engine in set(db.all_engines()) - before:
+        engine.dispose()
+
+
 @pytest.fixture(scope="session")
 def postgres_database() -> Iterator[str]:
     """A new, uniquely named PostgreSQL database for this test session with the models' tables; dropped at the end."""

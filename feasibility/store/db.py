@@ -37,6 +37,7 @@ __all__ = [
     "READ_ONLY",
     "configure",
     "dispose_engines",
+    "all_engines",
     "dispose_pools_after_fork",
     "default_database_url",
     "get_engine",
@@ -95,6 +96,11 @@ def make_engine(url: str) -> Engine:
         engine = create_engine(url, json_serializer=_json_text, pool_pre_ping=True, pool_size=5, max_overflow=10)
     _engines.add(engine)
     return engine
+
+
+def all_engines() -> list[Engine]:
+    """Every engine this process made that is still alive (tests close those they made)."""
+    return list(_engines)
 
 
 def dispose_pools_after_fork() -> None:
