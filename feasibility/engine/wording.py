@@ -18,12 +18,13 @@ __all__ = [
 def hours(value: float) -> str:
     """Hours: one decimal below 100 h, whole hours above, thousands separated ("1.5 h", "236 h", "47,250 h").
 
-    From 10,000 h the figure keeps four significant digits (201,812 h reads "201,800 h"), so a
-    quantity reads the same whether it is formatted from the exact value or from the figure
-    stored with four significant digits in a result.
+    The value is first cut to four significant digits, as results store their hour figures
+    (201,812 h reads "201,800 h"; 29.6500001 h reads as the stored 29.65 does), so a quantity
+    reads the same whether it is formatted from the exact value or from the stored figure.
     """
     if not math.isfinite(value):
         return "unbounded h" if value > 0 else "– h"
+    value = float(f"{value:.4g}")
     if abs(value) < 0.05 and value != 0:
         return f"{value * 60:.0f} min"
     if abs(value) < 100:

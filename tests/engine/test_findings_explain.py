@@ -190,3 +190,16 @@ def test_visibility_names_the_airmass_formula_and_it_matters(grid_2027a, open_si
     assert sky_checks.visibility_finding(secant).figures["airmass_limit_formula"] == "secant"
     # More than 1 % of the hours move with the convention (the audit's case).
     assert 0.0 < secant.total_visible < 0.99 * physical.total_visible
+
+
+def test_the_hours_a_goal_needs_read_the_same_in_every_finding(demo_observatory: Observatory, demo_schedule: InstrumentSchedule) -> None:
+    # Demo 002 (a spectrum whose goal needs about 30 h) names those hours in the sensitivity and schedule findings:
+    # one quantity, one number (formatted from the exact value in one, from the stored figure in the other).
+    from importlib import resources
+
+    text = resources.files("feasibility").joinpath("data/proposals/SQ-2027A-002.yaml").read_bytes()
+    request = check_proposal(parse_document(Proposal, text), demo_observatory, demo_schedule).requests[0]
+    by = {f.check: f for f in request.findings}
+    needed = wording.hours(request.figures["hours_needed"])
+    assert f"needs {needed}" in by["sensitivity"].message
+    assert f"the goal needs {needed}" in by["schedule"].message
