@@ -2,8 +2,9 @@
 
 Expected values come from outside references named beside each assertion (the
 CCD equation of Merline & Howell 1995 and Howell's Handbook of CCD Astronomy,
-Bessell 1979 zero points, standard normal tables, Gaussian profile identities;
-see docs/references.md). The demo documents and the hand-built observatory of
+Bessell 1979 zero points, standard normal tables, Gaussian profile identities,
+for spectra also Fritsch & Carlson 1980 interpolation and Bucholtz 1995 Rayleigh
+scattering; see docs/references.md). The demo documents and the hand-built observatory of
 test_exposure.py are only inputs.
 """
 
@@ -20,6 +21,7 @@ import pytest
 from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest, Proposal, load_document, parse_document
 from feasibility.engine import check_proposal, wording
 from feasibility.engine.conditions import Conditions
+from feasibility.engine.spectral_curves import curves_for
 from feasibility.engine.sensitivity import (
     assess_exposure,
     resolution_element_pixels,
@@ -121,6 +123,129 @@ def test_design_snr_of_demo_imaging_matches_the_ccd_equation(
         assert figures["snr_expected"] == pytest.approx(expected, rel=0.02), request.label
         checked += 1
     assert checked >= 8  # every imaging request of the demo proposals with an S/N goal
+
+
+#: Bessell (1979): Jy of a Vega 0-magnitude star (docs/references.md, "Photometry and zero points").
+BESSELL_1979_JY = {"U": 1810.0, "B": 4260.0, "V": 3640.0, "R": 3080.0, "I": 2550.0}
+
+
+def _pchip_ln_f_lambda(wavelength_nm: float, nodes: list[tuple[float, float]]) -> float:
+    """Zero point (Jy) at ``wavelength_nm`` by monotone cubic Hermite interpolation of ln f_λ (f_λ ∝ f_ν/λ²) through
+    ``nodes`` (wavelength, Jy), written out from Fritsch & Carlson (1980) with the interior slopes of Fritsch & Butland
+    (1984) (weighted harmonic mean of the neighbouring secants). Only interior intervals: no end-slope rule needed."""
+    xs = [w for w, _ in nodes]
+    ys = [math.log(jy) - 2 * math.log(w) for w, jy in nodes]
+    i = next(k for k in range(1, len(xs) - 2) if xs[k] <= wavelength_nm <= xs[k + 1])
+    secant = [(ys[k + 1] - ys[k]) / (xs[k + 1] - xs[k]) for k in range(len(xs) - 1)]
+
+    def slope(k: int) -> float:
+        h0, h1 = xs[k] - xs[k - 1], xs[k + 1] - xs[k]
+        if secant[k - 1] * secant[k] <= 0:
+            return 0.0
+        w1, w2 = 2 * h1 + h0, h1 + 2 * h0
+        return (w1 + w2) / (w1 / secant[k - 1] + w2 / secant[k])
+
+    h = xs[i + 1] - xs[i]
+    t = (wavelength_nm - xs[i]) / h
+    y = (
+        (2 * t**3 - 3 * t**2 + 1) * ys[i] + (t**3 - 2 * t**2 + t) * h * slope(i)
+        + (-2 * t**3 + 3 * t**2) * ys[i + 1] + (t**3 - t**2) * h * slope(i + 1)
+    )
+    return math.exp(y + 2 * math.log(wavelength_nm))
+
+
+def _spectrum_snr_by_hand(
+    observatory: Observatory, instrument: Instrument, request: ObservationRequest, figures: dict[str, Any], extinction: float
+) -> tuple[float, float]:
+    """S/N per resolution element of a slit spectrum of a point source at its design conditions, and the element's pixels.
+
+    CCD equation (Merline & Howell 1995; Howell, Handbook of CCD Astronomy) as for imaging, over the element's pixels
+    along the dispersion times the extraction height along the slit. Photons per grating element Δλ = λ/R: f_ν (Δλ/λ)
+    × 1.51e7 (Bessell 1979), f_ν from the Bessell (1979) zero points interpolated in ln f_λ (PCHIP, as
+    docs/references.md and spectral_curves.py document). Seeing as for imaging at the central wavelength. Slit: a
+    centred Gaussian passes erf(w / (2√2 σ)) of its light through a slit of width w, and erf(h / (2√2 σ)) within an
+    extraction of height h = 2 × 0.673 FWHM along it (Gaussian identities). Element: the projected slit or the image,
+    whichever is narrower, never below the grating's sampling (docs/references.md, "Optics and spectra").
+    """
+    setup, telescope, detector = request.setup, observatory.telescope, instrument.detector
+    grating = instrument.grating_named(setup.grating or "")
+    assert grating is not None and setup.slit_arcsec is not None and setup.central_wavelength_nm is not None
+    wavelength, slit, pixel = setup.central_wavelength_nm, setup.slit_arcsec, detector.pixel_scale_arcsec
+    airmass, sky = figures["airmass_design"], figures["sky_mag_arcsec2_design"]
+    seeing = observatory.climate.median_seeing_arcsec * math.exp(SEEING_SPREAD * Z_80) * airmass**0.6 * (wavelength / 500) ** -0.2
+    diffraction = 1.029 * wavelength * 1e-9 / telescope.aperture_m * ARCSEC_PER_RAD
+    fwhm = math.hypot(seeing, diffraction)
+    if request.constraints.max_seeing_arcsec is not None:
+        fwhm = max(min(fwhm, request.constraints.max_seeing_arcsec), diffraction)
+    sigma = fwhm / (2 * math.sqrt(2 * math.log(2)))
+    sampling = grating.pixels_per_resolution_element
+    element = max(sampling, min(slit, fwhm) / pixel)
+    height = 2 * 0.673 * fwhm
+    if detector.slit_length_arcsec is not None:
+        height = min(height, detector.slit_length_arcsec)
+    # Bessell (1979) zero points at the site's band wavelengths, interpolated to the central wavelength.
+    bands = sorted((b.wavelength_nm, BESSELL_1979_JY[name]) for name, b in observatory.climate.bands.items() if name in BESSELL_1979_JY)
+    zero_point = 3631.0 if request.brightness.system == "ab" else _pchip_ln_f_lambda(wavelength, bands)
+    sky_zero_point = _pchip_ln_f_lambda(wavelength, bands)  # the sky figure is a Vega magnitude at the wavelength
+    area = math.pi / 4 * telescope.aperture_m**2 * (1 - telescope.central_obstruction**2)
+    throughput = grating.throughput or instrument.throughput
+    per_jy = 1.51e7 / grating.resolving_power * area * throughput  # e s⁻¹ Jy⁻¹ in one grating element
+    rate = zero_point * 10 ** (-0.4 * request.brightness.magnitude) * per_jy * 10 ** (-0.4 * extinction * airmass)
+    source_rate = rate * math.erf(slit / (2 * math.sqrt(2) * sigma)) * math.erf(height / (2 * math.sqrt(2) * sigma)) * element / sampling
+    sky_pix = sky_zero_point * 10 ** (-0.4 * sky) * per_jy * slit * pixel / sampling  # a pixel sees the whole slit width
+    n_pix = element * max(height / pixel, 1.0)
+    count, length = figures["exposures_in_hours_requested"], figures["exposure_time_s_in_hours_requested"]
+    t = count * length
+    source = source_rate * t
+    noise = math.sqrt(source + n_pix * (sky_pix * t + detector.dark_current_e_s_pix * t + count * detector.read_noise_e**2))
+    return source / noise, element
+
+
+def test_design_snr_of_demo_spectra_matches_the_ccd_equation(
+    demo_observatory: Observatory, demo_results: list[tuple[ObservationRequest, RequestResult]]
+) -> None:
+    checked = 0
+    climate = demo_observatory.climate
+    for request, result in demo_results:
+        instrument = demo_observatory.instrument_named(request.instrument)
+        if instrument is None or instrument.kind != "slit_spectrograph" or request.goal.snr is None or result.verdict is Level.UNCHECKED:
+            continue
+        wavelength = request.setup.central_wavelength_nm
+        assert wavelength is not None and request.brightness.kind != "surface"
+        if not instrument.min_wavelength_nm <= wavelength <= instrument.max_wavelength_nm:
+            # Outside the instrument (feige110-uv, 290 nm): the instrument finding says infeasible, and the zero point
+            # there is an extrapolation beyond the bluest published band, not a published value.
+            assert _finding(result, "instrument").level is Level.INFEASIBLE, request.label
+            continue
+        for name, jy in BESSELL_1979_JY.items():
+            assert climate.bands[name].zero_point_jy == jy  # the demo's zero points are Bessell (1979)'s
+        # The design sky is the sky at the central wavelength (not carried from a band).
+        assert result.figures["sky_band"] == f"{wavelength:g} nm", request.label
+        # Extinction at the wavelength: the documented model (spectral_curves.py: Rayleigh + ozone + aerosol, through
+        # the site's band extinctions), checked first against published bounds: (1) between the site's extinctions of
+        # the bands either side (Krisciunas et al. 1987-like values; extinction changes monotonically between B and R);
+        # (2) above the Rayleigh optical depth alone, Bucholtz (1995) at the site's pressure (U.S. Standard Atmosphere
+        # 1976), × 1.0857 mag; (3) within 0.02 mag/airmass of a power law through the two bands (common practice; the
+        # ozone Chappuis band, about 0.04 mag at its 600 nm peak for 300 DU, bends it). Then the test uses that value.
+        extinction = curves_for(demo_observatory).extinction(wavelength)
+        nodes = sorted((b.wavelength_nm, b.extinction_mag_per_airmass) for n, b in climate.bands.items() if n in BESSELL_1979_JY)
+        (w1, k1), (w2, k2) = next((a, b) for a, b in zip(nodes, nodes[1:]) if a[0] <= wavelength <= b[0])
+        assert min(k1, k2) <= extinction <= max(k1, k2), request.label
+        um = wavelength / 1000
+        a, b, c, d = (6.50362e-3, 3.55212, 1.35579, 0.11563) if um <= 0.5 else (8.64627e-3, 3.99668, 1.10298e-3, 2.71393e-2)
+        pressure = 1013.25 * (1 - 2.25577e-5 * demo_observatory.site.elevation_m) ** 5.25588
+        assert extinction > 1.0857 * a * um ** -(b + c * um + d / um) * pressure / 1013.25, request.label
+        power_law = k1 * (wavelength / w1) ** (math.log(k2 / k1) / math.log(w2 / w1))
+        assert extinction == pytest.approx(power_law, abs=0.02), request.label
+
+        figures = _finding(result, "sensitivity").figures
+        expected, element = _spectrum_snr_by_hand(demo_observatory, instrument, request, figures, extinction)
+        # Geometry (docs/references.md, "Optics and spectra"): the element at the design seeing.
+        assert result.figures["resolution_element_pixels"] == pytest.approx(element, rel=2e-3), request.label
+        # Merline & Howell (1995) / Howell, Handbook of CCD Astronomy: the CCD equation per resolution element.
+        assert figures["snr_expected"] == pytest.approx(expected, rel=0.02), request.label
+        checked += 1
+    assert checked >= 2  # rgb-spectra (520 nm, R2500) and turnoff-spectra (600 nm, R600)
 
 
 def test_design_conditions_are_never_better_than_typical(demo_results: list[tuple[ObservationRequest, RequestResult]]) -> None:
