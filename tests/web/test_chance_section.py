@@ -42,11 +42,11 @@ def test_the_overview_shows_the_latest_simulation(app: Flask) -> None:
     reviewer = app.test_client()
     sign_in(reviewer, "rita")
     before = reviewer.get("/semesters/2027A").get_data(as_text=True)
-    assert "Chance of completion" in before and "No simulation of this semester yet" in before
+    assert "Chance of completion" in before and "No finished simulation of this semester yet" in before
 
     result = _simulate(app)
     page = html.unescape(reviewer.get("/semesters/2027A").get_data(as_text=True))
-    assert "No simulation of this semester yet" not in page
+    assert "No finished simulation of this semester yet" not in page
     for row in result["proposals"]:
         assert row["proposal_id"] in page
         assert f"{100 * row['chance_of_completion']:.0f} %" in page

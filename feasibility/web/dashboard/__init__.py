@@ -36,3 +36,4 @@ from feasibility.web.dashboard import upload, views  # noqa: E402,F401  (routes 
 from feasibility.web.dashboard import schedule_changes  # noqa: E402,F401  (re-check helper's page)
 from feasibility.web.dashboard import packet, review_pages  # noqa: E402,F401  (technical review and meeting packet)
 from feasibility.web.dashboard import schedule_admin  # noqa: E402,F401  (admins' schedule upload and calendar)
+from feasibility.web.dashboard import chance_form  # noqa: E402,F401  (the overview's form asking for a simulation)
