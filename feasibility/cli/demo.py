@@ -10,13 +10,15 @@ from __future__ import annotations
 
 import json
 import secrets
+import threading
+import time
 from dataclasses import dataclass
 from importlib import resources
 
 import click
 from sqlalchemy import select
 
-__all__ = ["DEMO_PEOPLE", "DEMO_PROPOSER_OWNS", "DemoPerson", "make_demo_people", "submit_demo_proposals", "seed_demo_store"]
+__all__ = ["DEMO_PEOPLE", "DEMO_PROPOSER_OWNS", "DemoPerson", "ask_demo_simulation", "make_demo_people", "submit_demo_proposals", "seed_demo_store"]
 
 
 @dataclass(frozen=True)
@@ -36,6 +38,10 @@ DEMO_PEOPLE = (
 )
 #: The hand-written demo proposal the demo proposer owns.
 DEMO_PROPOSER_OWNS = "SQ-2027A-001"
+#: Realisations of the demo's simulation: steady enough to read, done within minutes on a laptop.
+DEMO_REALISATIONS = 500
+#: How often, and at most how long, the demo's simulation waits for the check runs to finish, in seconds.
+_POLL_S, _WAIT_AT_MOST_S = 2.0, 3600.0
 
 
 def seed_demo_store() -> None:
@@ -45,6 +51,9 @@ def seed_demo_store() -> None:
     created = submit_demo_proposals()
     enqueue(created)
     click.echo(f"Demo proposals submitted: {len(created)} new check runs.")
+    simulation_id = ask_demo_simulation()
+    if simulation_id is not None:
+        click.echo(f"Simulation #{simulation_id} of the demo semester asked for: it runs when the check runs have finished.")
     passwords = make_demo_people()
     for person in DEMO_PEOPLE:
         if person.name in passwords:
@@ -100,3 +109,53 @@ def make_demo_people() -> dict[str, str]:
                 if record is not None and record.owner_id is None:
                     record.owner_id = user.id
     return passwords
+
+
+def ask_demo_simulation(realisations: int = DEMO_REALISATIONS) -> int | None:
+    """Store a simulation of the demo semester (none when one has finished already) and send it once no check run waits.
+
+    The simulation reads the proposals' latest versions, stored before their runs, so it
+    could run at once; it waits so that it does not take the CPU from the check runs the
+    pages show first (the embedded pool knows only check runs). A daemon thread polls the
+    store until no run is queued or running (at most an hour), then sends it as the API does.
+    Returns the simulation's id, or None when none was asked for.
+    """
+    from flask import current_app
+
+    from feasibility.demo_semester import DEMO_SEMESTER
+    from feasibility.service.simulations import SimulationSettings, ask_for_simulation, send_simulation
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import Simulation
+
+    with session_scope() as session:
+        finished = session.scalar(select(Simulation.id).where(Simulation.semester == DEMO_SEMESTER, Simulation.state == "done").limit(1))
+        if finished is not None:
+            return None
+        simulation_id = ask_for_simulation(session, DEMO_SEMESTER, SimulationSettings(realisations=realisations), None).id
+    app = current_app._get_current_object()  # type: ignore[attr-defined]
+
+    def send_when_runs_are_done() -> None:
+        with app.app_context():
+            wait_for_check_runs()
+            send_simulation(simulation_id)
+
+    threading.Thread(target=send_when_runs_are_done, name=f"feasibility-demo-simulation-{simulation_id}", daemon=True).start()
+    return simulation_id
+
+
+def wait_for_check_runs(poll_s: float = _POLL_S, at_most_s: float = _WAIT_AT_MOST_S) -> bool:
+    """Wait until the store has no check run queued or running; False when ``at_most_s`` passed first."""
+    from sqlalchemy import func
+
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import CheckRun
+
+    deadline = time.monotonic() + at_most_s
+    while True:
+        with session_scope(read_only=True) as session:
+            waiting = session.scalar(select(func.count()).select_from(CheckRun).where(CheckRun.state.in_(("queued", "running"))))
+        if not waiting:
+            return True
+        if time.monotonic() >= deadline:
+            return False
+        time.sleep(poll_s)
