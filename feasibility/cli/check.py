@@ -14,9 +14,9 @@ from pathlib import Path
 import click
 from pydantic import BaseModel
 
-from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, load_document, parse_document
-from feasibility.documents.consistency import schedule_problems
-from feasibility.documents.loading import Problem, json_schema
+from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, load_document
+from feasibility.documents.loading import json_schema
+from feasibility.cli.inputs import read_observatory, read_schedule
 from feasibility.documents.proposal_problems import read_proposal
 from feasibility.documents.reading import read_file
 
@@ -109,14 +109,7 @@ def _load_inputs(
     observatory's and the schedule's problems beside them.
     """
     errors: list[DocumentError] = []
-    observatory: Observatory | None = None
-    try:
-        if observatory_path is None:
-            observatory = parse_document(Observatory, _data("observatory.yaml").read_bytes(), "packaged observatory")
-        else:
-            observatory = load_document(Observatory, observatory_path)
-    except DocumentError as error:
-        errors.append(error)
+    observatory = read_observatory(observatory_path, errors)
 
     proposal: Proposal | None = None
     try:
@@ -128,29 +121,8 @@ def _load_inputs(
         errors.append(error)
 
     notes: list[str] = []
-    schedule: InstrumentSchedule | None = None
     semester = proposal.semester if proposal is not None else None
-    try:
-        if schedule_path is not None:
-            schedule = load_document(InstrumentSchedule, schedule_path)
-            name = str(schedule_path)
-        elif semester is not None and observatory is not None:
-            packaged = _data(f"schedule-{semester}.yaml")
-            name = f"packaged schedule-{semester}.yaml"
-            if packaged.is_file():
-                schedule = parse_document(InstrumentSchedule, packaged.read_bytes(), name)
-                if schedule.observatory != observatory.name:
-                    schedule = None
-    except DocumentError as error:
-        errors.append(error)
-    if schedule is not None and observatory is not None:
-        problems = schedule_problems(schedule, observatory)
-        if schedule.observatory != observatory.name:
-            problems.append(Problem("observatory", f"{schedule.observatory!r} is not the observatory {observatory.name!r}"))
-        if semester is not None and schedule.semester != semester:
-            problems.append(Problem("semester", f"{schedule.semester!r} is not the proposal's semester {semester!r}"))
-        if problems:
-            errors.append(DocumentError(problems, name))
+    schedule = read_schedule(schedule_path, semester, observatory, errors, whose="the proposal's")
     if errors:
         raise _Errors(errors)
     assert proposal is not None and observatory is not None

@@ -14,9 +14,9 @@ from typing import Any
 
 import click
 
-from feasibility.cli.check import BAD_INPUT, _data, _Errors
-from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, load_document, parse_document
-from feasibility.documents.consistency import schedule_problems
+from feasibility.cli.check import BAD_INPUT, _Errors
+from feasibility.cli.inputs import read_observatory, read_schedule
+from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, load_document
 from feasibility.documents.loading import Problem, read_mapping
 from feasibility.documents.proposal_problems import read_proposal
 from feasibility.documents.reading import read_file
@@ -140,14 +140,7 @@ def _load(
 ) -> tuple[list[Proposal], Observatory, InstrumentSchedule | None, dict[str, float] | None]:
     """Read every document; raise :class:`DocumentError` naming every problem of every file."""
     errors: list[DocumentError] = []
-    observatory: Observatory | None = None
-    try:
-        if observatory_path is None:
-            observatory = parse_document(Observatory, _data("observatory.yaml").read_bytes(), "packaged observatory")
-        else:
-            observatory = load_document(Observatory, observatory_path)
-    except DocumentError as error:
-        errors.append(error)
+    observatory = read_observatory(observatory_path, errors)
 
     files = sorted(p for p in directory.iterdir() if p.is_file() and p.suffix.lower() in _SUFFIXES)
     if not files:
@@ -167,28 +160,7 @@ def _load(
     errors += _mixed(proposals)
     semester = proposals[0][1].semester if proposals else None
 
-    schedule: InstrumentSchedule | None = None
-    try:
-        if schedule_path is not None:
-            schedule = load_document(InstrumentSchedule, schedule_path)
-            name = str(schedule_path)
-        elif semester is not None and observatory is not None:
-            name = f"packaged schedule-{semester}.yaml"
-            packaged = _data(f"schedule-{semester}.yaml")
-            if packaged.is_file():
-                schedule = parse_document(InstrumentSchedule, packaged.read_bytes(), name)
-                if schedule.observatory != observatory.name:
-                    schedule = None
-    except DocumentError as error:
-        errors.append(error)
-    if schedule is not None and observatory is not None:
-        problems = schedule_problems(schedule, observatory)
-        if schedule.observatory != observatory.name:
-            problems.append(Problem("observatory", f"{schedule.observatory!r} is not the observatory {observatory.name!r}"))
-        if semester is not None and schedule.semester != semester:
-            problems.append(Problem("semester", f"{schedule.semester!r} is not the proposals' semester {semester!r}"))
-        if problems:
-            errors.append(DocumentError(problems, name))
+    schedule = read_schedule(schedule_path, semester, observatory, errors, whose="the proposals'")
 
     ranks = None
     if ranks_path is not None:
