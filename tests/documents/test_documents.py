@@ -16,29 +16,7 @@ from feasibility.documents import (
     parse_document,
 )
 from feasibility.documents.consistency import proposal_problems, schedule_problems
-
-GOOD = {
-    "id": "T-1",
-    "semester": "2027A",
-    "title": "A test proposal",
-    "pi": {"name": "Test Person", "email": "person@example.org"},
-    "requests": [
-        {
-            "label": "r1",
-            "target": {"name": "somewhere", "ra": "05:35:17.3", "dec": "-05:23:28"},
-            "instrument": "KESTREL",
-            "setup": {"filter": "V"},
-            "brightness": {"magnitude": 15.0, "band": "V"},
-            "goal": {"snr": 50},
-            "hours_requested": 2,
-        }
-    ],
-}
-
-
-@pytest.fixture(scope="module")
-def observatory() -> Observatory:
-    return load_document(Observatory, resources.files("feasibility") / "data" / "observatory.yaml")
+from tests.documents.examples import GOOD
 
 
 def problems_of(data: dict) -> dict[str, str]:

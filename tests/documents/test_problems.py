@@ -4,35 +4,17 @@ the field with its allowed range; conflicting constraints refused; unknown keys 
 from __future__ import annotations
 
 import copy
-from importlib import resources
 
 import pytest
 
-from feasibility.documents import DocumentError, Observatory, Proposal, load_document, parse_document
+from feasibility.documents import (
+    DocumentError,
+    Observatory,
+    Proposal,
+    parse_document,
+)
 from feasibility.documents.proposal_problems import read_proposal
-
-GOOD = {
-    "id": "T-1",
-    "semester": "2027A",
-    "title": "A test proposal",
-    "pi": {"name": "Test Person", "email": "person@example.org"},
-    "requests": [
-        {
-            "label": "r1",
-            "target": {"name": "somewhere", "ra": "05:35:17.3", "dec": "-05:23:28"},
-            "instrument": "KESTREL",
-            "setup": {"filter": "V"},
-            "brightness": {"magnitude": 15.0, "band": "V"},
-            "goal": {"snr": 50},
-            "hours_requested": 2,
-        }
-    ],
-}
-
-
-@pytest.fixture(scope="module")
-def observatory() -> Observatory:
-    return load_document(Observatory, resources.files("feasibility") / "data" / "observatory.yaml")
+from tests.documents.examples import GOOD
 
 
 def _all_problems(data: dict, observatory: Observatory) -> dict[str, str]:

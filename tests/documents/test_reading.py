@@ -13,27 +13,21 @@ import json
 
 import pytest
 
-from feasibility.documents import DocumentError, InstrumentSchedule, Proposal, parse_document
+from feasibility.documents import (
+    DocumentError,
+    InstrumentSchedule,
+    Proposal,
+    parse_document,
+)
 from feasibility.documents.problems import MAX_PROBLEMS, UnreadableDocument
-from feasibility.documents.reading import MAX_DEPTH, MAX_DOCUMENT_BYTES, MAX_NUMBER_CHARS, read_data, read_file
-
-GOOD = {
-    "id": "T-1",
-    "semester": "2027A",
-    "title": "A test proposal",
-    "pi": {"name": "Test Person", "email": "person@example.org"},
-    "requests": [
-        {
-            "label": "r1",
-            "target": {"name": "somewhere", "ra": "05:35:17.3", "dec": "-05:23:28"},
-            "instrument": "KESTREL",
-            "setup": {"filter": "V"},
-            "brightness": {"magnitude": 15.0, "band": "V"},
-            "goal": {"snr": 50},
-            "hours_requested": 2,
-        }
-    ],
-}
+from feasibility.documents.reading import (
+    MAX_DEPTH,
+    MAX_DOCUMENT_BYTES,
+    MAX_NUMBER_CHARS,
+    read_data,
+    read_file,
+)
+from tests.documents.examples import GOOD
 
 
 def problems(data: object) -> dict[str, str]:
