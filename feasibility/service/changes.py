@@ -1,17 +1,22 @@
 """Recording what a re-check changed: a proposal's verdict, a request's verdict or a key figure.
 
 After a run's results are stored, the worker calls :func:`record_changes` in the
-same transaction. It compares the run with the proposal's previous finished run
-(any version of the same proposal) request by request, matched on the request
-label, and stores one :class:`~feasibility.store.models.VerdictChange` when
+same transaction. When the run is now the proposal's standing run (the one rule is
+:mod:`feasibility.store.standing`; a re-check of an old version that finishes after
+a newer version's run changes nothing that stands, and records nothing), it compares
+the run with the finished run before it in that order (any version of the same
+proposal) request by request, matched on the request label, and stores one
+:class:`~feasibility.store.models.VerdictChange` when
 
 - the proposal's verdict or a request's verdict changed, or a request was added
   or removed, or
-- a key figure (:data:`KEY_FIGURES`) moved by more than :data:`RELATIVE_THRESHOLD`
-  (5 %) of the larger of the two values and by more than its absolute floor
-  (:data:`ABSOLUTE_FLOOR`: 0.1 h for hours, 0.5 for a signal-to-noise ratio), so
-  that noise in a figure near zero is not reported; a figure that appears or
-  disappears counts as changed.
+- a key figure (:data:`KEY_FIGURES`) changed by :func:`figure_changed`: it moved
+  by more than :data:`RELATIVE_THRESHOLD` (5 %) of the larger of the two values and
+  by more than its absolute floor (:data:`ABSOLUTE_FLOOR`: 0.1 h for hours, 0.5 for a
+  signal-to-noise ratio), so that noise in a figure near zero is not reported; a
+  figure that appears or disappears counts as changed. The same rule marks what
+  changed in a proposal's run history on the dashboard
+  (:mod:`feasibility.web.dashboard.history`): one definition of "changed".
 
 When the proposal's verdict changed, a signed notice is queued for each portal
 with a webhook (:func:`feasibility.service.webhooks.queue_notices`); sending it
@@ -27,8 +32,9 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from feasibility.store.models import CheckRun, ProposalVersion, VerdictChange
+from feasibility.store.standing import is_standing, run_before
 
-__all__ = ["ABSOLUTE_FLOOR", "KEY_FIGURES", "RELATIVE_THRESHOLD", "compare_results", "previous_run", "record_changes"]
+__all__ = ["ABSOLUTE_FLOOR", "KEY_FIGURES", "RELATIVE_THRESHOLD", "compare_results", "figure_changed", "previous_run", "record_changes"]
 
 #: Figures whose change a reviewer should see, in the order they are reported.
 KEY_FIGURES: tuple[str, ...] = ("hours_observable", "hours_usable", "hours_scheduled", "hours_needed", "snr_expected")
@@ -42,7 +48,7 @@ _DEFAULT_FLOOR = 0.1
 
 
 def record_changes(session: Session, run: CheckRun) -> VerdictChange | None:
-    """Compare ``run`` with the proposal's previous finished run; store and return a change, if any.
+    """Compare standing ``run`` with the proposal's finished run before it; store and return a change, if any.
 
     Parameters
     ----------
@@ -54,13 +60,16 @@ def record_changes(session: Session, run: CheckRun) -> VerdictChange | None:
     Returns
     -------
     VerdictChange or None
-        None when there is no earlier finished run, when the verdicts and key
-        figures are the same within the thresholds, or when this run's change
-        is already recorded (the task ran twice).
+        None when ``run`` is not the proposal's standing run, when there is no
+        earlier finished run, when the verdicts and key figures are the same
+        within the thresholds, or when this run's change is already recorded
+        (the task ran twice).
     """
     if run.result is None or run.verdict is None:
         return None
     if session.scalar(select(VerdictChange.id).where(VerdictChange.run_id == run.id)) is not None:
+        return None
+    if not is_standing(session, run):
         return None
     before = previous_run(session, run)
     if before is None or before.result is None or before.verdict is None:
@@ -94,18 +103,8 @@ def record_changes(session: Session, run: CheckRun) -> VerdictChange | None:
 
 
 def previous_run(session: Session, run: CheckRun) -> CheckRun | None:
-    """The proposal's finished run before ``run`` (by finish time, then id), or None."""
-    proposal_ref = select(ProposalVersion.proposal_ref).where(ProposalVersion.id == run.proposal_version_id).scalar_subquery()
-    versions = select(ProposalVersion.id).where(ProposalVersion.proposal_ref == proposal_ref)
-    query = (
-        select(CheckRun)
-        .where(CheckRun.proposal_version_id.in_(versions), CheckRun.state == "done", CheckRun.id != run.id)
-        .order_by(CheckRun.finished_at.desc(), CheckRun.id.desc())
-        .limit(1)
-    )
-    if run.finished_at is not None:
-        query = query.where(CheckRun.finished_at <= run.finished_at)
-    return session.scalar(query)
+    """The proposal's finished run before ``run`` in the standing order (feasibility.store.standing), or None."""
+    return run_before(session, run)
 
 
 def compare_results(before: dict[str, Any], after: dict[str, Any]) -> list[dict[str, Any]]:
@@ -126,7 +125,7 @@ def compare_results(before: dict[str, Any], after: dict[str, Any]) -> list[dict[
             x, y = _number(figures_a.get(name)), _number(figures_b.get(name))
             if x is None and y is None:
                 continue
-            figures[name] = {"before": x, "after": y, "changed": _figure_changed(name, x, y)}
+            figures[name] = {"before": x, "after": y, "changed": figure_changed(name, x, y)}
         verdict_a = a["verdict"] if a else None
         verdict_b = b["verdict"] if b else None
         changed = [name for name, f in figures.items() if f["changed"]]
@@ -144,7 +143,12 @@ def compare_results(before: dict[str, Any], after: dict[str, Any]) -> list[dict[
     return entries
 
 
-def _figure_changed(name: str, before: float | None, after: float | None) -> bool:
+def figure_changed(name: str, before: Any, after: Any) -> bool:
+    """Whether key figure ``name`` changed from ``before`` to ``after``: the one rule (see the module's description).
+
+    Anything not a finite number (missing, NaN) counts as absent.
+    """
+    before, after = _number(before), _number(after)
     if before is None or after is None:
         return before is not after
     difference = abs(after - before)

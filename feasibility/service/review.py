@@ -30,6 +30,7 @@ from sqlalchemy.orm import Session
 from feasibility.documents.loading import DocumentError, Problem
 from feasibility.store import queries
 from feasibility.store.models import ProposalRecord, ReviewAssignment, ReviewDecision, ReviewNote, User
+from feasibility.store.standing import standing_run
 
 __all__ = [
     "ACTIONS",
@@ -124,8 +125,8 @@ class Review:
 
 
 def review_of(session: Session, record: ProposalRecord) -> Review:
-    """The proposal's review as it stands now (engine verdict from its latest finished run)."""
-    run = queries.latest_done_run(session, record)
+    """The proposal's review as it stands now (engine verdict from its standing run, feasibility.store.standing)."""
+    run = standing_run(session, record)
     assignments = list(session.scalars(select(ReviewAssignment).where(ReviewAssignment.proposal_ref == record.id).order_by(ReviewAssignment.id)))
     notes = list(session.scalars(select(ReviewNote).where(ReviewNote.proposal_ref == record.id).order_by(ReviewNote.id)))
     decisions = list(session.scalars(select(ReviewDecision).where(ReviewDecision.proposal_ref == record.id).order_by(ReviewDecision.id)))
@@ -214,7 +215,7 @@ def decide(session: Session, actor: User, record: ProposalRecord, decision: Any,
     """Confirm the engine's verdict (``decision="confirm"``) or override it (``"override"`` with a verdict and a reason)."""
     check_allowed(actor, "decide")
     problems: list[Problem] = []
-    run = queries.latest_done_run(session, record)
+    run = standing_run(session, record)
     if run is None or run.verdict is None:
         problems.append(Problem("", "the proposal has no finished check run yet: there is no engine verdict to confirm or override"))
     if decision not in ("confirm", "override"):

@@ -1,7 +1,7 @@
 """The queries the API and dashboard need: proposals by semester, verdict, instrument and check.
 
-A proposal's verdict is that of its latest finished check run (the highest run id
-in state ``done`` over all its versions); its status is that of its latest run.
+A proposal's verdict is that of its standing run (:mod:`feasibility.store.standing`,
+the one rule); its status is that of its latest run.
 """
 
 from __future__ import annotations
@@ -12,10 +12,10 @@ from sqlalchemy import ColumnElement, Select, exists, func, select, true
 from sqlalchemy.orm import Session, aliased
 
 from feasibility.store.models import CheckRun, FindingRow, ProposalRecord, ProposalVersion, RequestOutcome, User
+from feasibility.store.standing import standing_run_id
 
 __all__ = [
     "ProposalRow",
-    "latest_done_run",
     "latest_run",
     "latest_version",
     "list_proposals",
@@ -29,7 +29,7 @@ _READ_ALL = ("reviewer", "admin")
 
 @dataclass
 class ProposalRow:
-    """One line of a proposal list: the proposal, its latest version and its latest finished run (if any)."""
+    """One line of a proposal list: the proposal, its latest version and its standing run (if any)."""
 
     proposal: ProposalRecord
     version: ProposalVersion
@@ -61,17 +61,15 @@ def list_proposals(
 ) -> tuple[list[ProposalRow], int]:
     """A page of proposals matching the filters, newest first, and how many match in all.
 
-    ``failed_check`` keeps proposals whose latest verdict has a finding of that
+    ``failed_check`` keeps proposals whose standing verdict has a finding of that
     check worse than feasible; ``instrument`` those whose latest version uses it.
     """
-    done = _latest_done_runs()
     newest = _latest_versions()
     query: Select = (
         select(ProposalRecord, ProposalVersion, CheckRun)
         .join(newest, newest.c.proposal_ref == ProposalRecord.id)
         .join(ProposalVersion, ProposalVersion.id == newest.c.version_id)
-        .outerjoin(done, done.c.proposal_ref == ProposalRecord.id)
-        .outerjoin(CheckRun, CheckRun.id == done.c.run_id)
+        .outerjoin(CheckRun, CheckRun.id == standing_run_id())
         .where(visible_to(user))
     )
     if semester:
@@ -104,11 +102,6 @@ def latest_run(session: Session, proposal: ProposalRecord) -> CheckRun | None:
     return session.scalars(_runs(proposal).order_by(CheckRun.id.desc()).limit(1)).first()
 
 
-def latest_done_run(session: Session, proposal: ProposalRecord) -> CheckRun | None:
-    """The proposal's most recent finished check run: the one whose verdict stands."""
-    return session.scalars(_runs(proposal).where(CheckRun.state == "done").order_by(CheckRun.id.desc()).limit(1)).first()
-
-
 def runs_of(session: Session, proposal: ProposalRecord, *, offset: int = 0, limit: int = 100) -> list[CheckRun]:
     """The proposal's check runs, newest first."""
     return list(session.scalars(_runs(proposal).order_by(CheckRun.id.desc()).offset(offset).limit(limit)))
@@ -117,16 +110,6 @@ def runs_of(session: Session, proposal: ProposalRecord, *, offset: int = 0, limi
 def _runs(proposal: ProposalRecord) -> Select:
     return select(CheckRun).join(ProposalVersion, CheckRun.proposal_version_id == ProposalVersion.id).where(
         ProposalVersion.proposal_ref == proposal.id
-    )
-
-
-def _latest_done_runs():  # type: ignore[no-untyped-def]
-    return (
-        select(ProposalVersion.proposal_ref.label("proposal_ref"), func.max(CheckRun.id).label("run_id"))
-        .join(CheckRun, CheckRun.proposal_version_id == ProposalVersion.id)
-        .where(CheckRun.state == "done")
-        .group_by(ProposalVersion.proposal_ref)
-        .subquery("latest_done")
     )
 
 

@@ -23,6 +23,7 @@ from feasibility.service.submissions import NotAllowed, Submission, submit
 from feasibility.store import queries
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
+from feasibility.store.standing import standing_run
 from feasibility.web.auth import READ_ALL, SUBMITTERS, current_user, require_role
 from feasibility.web.bodies import problem_status, read_request_data, request_body
 
@@ -252,7 +253,7 @@ def proposal_json(session: Session, record: ProposalRecord) -> dict[str, Any]:
     """A proposal with its latest version's summary, latest run and standing verdict."""
     version = queries.latest_version(session, record)
     latest = queries.latest_run(session, record)
-    done = latest if latest is not None and latest.state == "done" else queries.latest_done_run(session, record)
+    done = standing_run(session, record)
     return {
         "proposal_id": record.proposal_id,
         "semester": record.semester,

@@ -52,3 +52,33 @@ def test_verdict_change_and_request_added() -> None:
 def test_figure_appearing_counts() -> None:
     before = _result("marginal", snr_expected=None)
     assert compare_results(before, _result("marginal"))[0]["changed_figures"] == ["snr_expected"]
+
+
+def _outcome(**figures: Any) -> Any:
+    from feasibility.store.models import RequestOutcome
+
+    values = {"hours_requested": 4.0, "hours_observable": 40.0, "hours_needed": 4.0, "snr_expected": 50.0, **figures}
+    return RequestOutcome(label="a", instrument="HERON", target="T", verdict="feasible", figures={}, **values)
+
+
+def test_the_run_history_uses_the_same_rule_as_the_notices() -> None:
+    # One definition of "changed" (feasibility.service.changes.figure_changed): the dashboard's run history
+    # marks a key figure changed exactly when the change notices do, on both sides of each threshold.
+    from feasibility.web.dashboard.history import _compare_outcomes
+
+    cases = [
+        {"hours_observable": 38.5},  # 3.75 %: under 5 %, not a change (it was one under the history's old 0.5 %)
+        {"hours_observable": 30.0},  # 25 %: a change
+        {"snr_expected": 48.0},  # 4 %: not a change
+        {"snr_expected": 40.0},  # 20 % and 10 in S/N: a change
+        {"hours_needed": 0.02},  # from 4 h: a change
+    ]
+    for figures in cases:
+        name, value = next(iter(figures.items()))
+        notices = compare_results(_result("feasible"), _result("feasible", **figures))
+        in_notices = bool(notices) and name in notices[0]["changed_figures"]
+        in_history = any(name.replace("_", " ").split()[-1] in c.subject for c in _compare_outcomes("a", _outcome(), _outcome(**figures)))
+        assert in_history == in_notices, (figures, notices)
+    assert [bool(compare_results(_result("feasible"), _result("feasible", **f))) for f in cases] == [False, True, False, True, True]
+    # Below the absolute floor: 0.05 -> 0.02 h is 60 % but 0.03 h; neither place reports it.
+    assert not _compare_outcomes("a", _outcome(hours_needed=0.05), _outcome(hours_needed=0.02))

@@ -1,13 +1,15 @@
 """A proposal's check runs, newest first, each with what changed since the finished run before it.
 
-Changes are read from stored rows only: the run's verdict, which inputs differ
+"Before" is in the standing order of :mod:`feasibility.store.standing` (proposal
+version, then the run queued last), the order that says whose verdict stands, and
+a key figure counts as changed by :func:`feasibility.service.changes.figure_changed`,
+the rule the change notices use. Changes are read from stored rows only: the run's verdict, which inputs differ
 (proposal version, observatory description, instrument schedule, engine), and per
 observation request its verdict and key figures (``RequestOutcome`` columns).
 """
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from typing import Any
@@ -15,7 +17,9 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session, selectinload
 
+from feasibility.service.changes import figure_changed
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, RequestOutcome
+from feasibility.store.standing import sort_key
 
 __all__ = ["KEY_FIGURES", "Change", "RunEntry", "run_history"]
 
@@ -26,8 +30,6 @@ KEY_FIGURES: dict[str, tuple[str, str]] = {
     "hours_needed": ("hours needed", "h"),
     "snr_expected": ("expected S/N", ""),
 }
-#: Relative change below which a figure counts as unchanged (rounding between engine versions).
-TOLERANCE = 0.005
 
 
 @dataclass
@@ -69,7 +71,7 @@ def run_history(session: Session, record: ProposalRecord) -> list[RunEntry]:
     )
     version_ids = sorted({run.proposal_version_id for run in runs})
     numbers = {version_id: position + 1 for position, version_id in enumerate(version_ids)}
-    finished = sorted((r for r in runs if r.state == "done"), key=lambda r: (_sortable(r.finished_at), r.id))
+    finished = sorted((r for r in runs if r.state == "done"), key=sort_key)
     entries = {run.id: RunEntry(run=run, version_number=numbers[run.proposal_version_id]) for run in runs}
     for before, after in zip(finished, finished[1:]):
         entry = entries[after.id]
@@ -109,18 +111,9 @@ def _compare_outcomes(label: str, old: RequestOutcome, new: RequestOutcome) -> l
         changes.append(Change(f"request {label}: verdict", old.verdict, new.verdict))
     for column, (name, unit) in KEY_FIGURES.items():
         a, b = getattr(old, column), getattr(new, column)
-        if _differs(a, b):
+        if figure_changed(column, a, b):
             changes.append(Change(f"request {label}: {name}", _figure(a, unit), _figure(b, unit)))
     return changes
-
-
-def _differs(a: float | None, b: float | None) -> bool:
-    if a is None or b is None:
-        return (a is None) != (b is None)
-    if math.isnan(a) or math.isnan(b):
-        return math.isnan(a) != math.isnan(b)
-    scale = max(abs(a), abs(b), 1e-9)
-    return abs(a - b) / scale > TOLERANCE
 
 
 def _figure(value: float | None, unit: str) -> str:
@@ -134,9 +127,3 @@ def _label(run: CheckRun, what: str) -> str:
     if what == "observatory":
         return str(result.get("observatory_version") or f"#{run.observatory_version_id}")
     return str(result.get("schedule_version") or (f"#{run.schedule_version_id}" if run.schedule_version_id else "none"))
-
-
-def _sortable(moment: datetime | None) -> datetime:
-    if moment is None:
-        return datetime.max.replace(tzinfo=timezone.utc)
-    return moment if moment.tzinfo else moment.replace(tzinfo=timezone.utc)

@@ -1,7 +1,7 @@
 """The committee's semester overview: counts by verdict, hours per instrument and demand by right ascension.
 
-Demand comes from stored rows (each proposal's latest finished run and its
-request outcomes; the target's right ascension from the stored proposal
+Demand comes from stored rows (each proposal's standing run, as
+:mod:`feasibility.store.standing` defines it, and its request outcomes; the target's right ascension from the stored proposal
 version); supply from :mod:`feasibility.web.dashboard.offer`, cached per
 observatory version and semester.
 """
@@ -18,9 +18,10 @@ from sqlalchemy.orm import Session
 from feasibility.documents.angles import parse_right_ascension
 from feasibility.service.current import current_observatory, current_schedule, observatory_of, schedule_of
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, RequestOutcome
+from feasibility.store.standing import standing_run_id
 from feasibility.documents.proposal import SKY_ILLUMINATION
 from feasibility.web.dashboard.offer import LUNAR_TIMES, instrument_hours_offered, lunar_offer, semester_offer
-from feasibility.web.dashboard.queries import LEVELS, latest_runs
+from feasibility.web.dashboard.queries import LEVELS
 
 __all__ = ["InstrumentLine", "LunarLine", "Overview", "lunar_time", "semester_overview"]
 
@@ -113,12 +114,11 @@ def lunar_time(constraints: Any) -> str:
 
 
 def semester_overview(session: Session, semester: str) -> Overview:
-    """Sum the semester's latest verdicts and request outcomes, and set them against what the sky offers."""
-    runs = latest_runs()
+    """Sum the semester's standing verdicts and request outcomes, and set them against what the sky offers."""
+    standing = select(standing_run_id().label("run_id")).select_from(ProposalRecord).where(ProposalRecord.semester == semester).subquery("standing_ids")
     in_semester = (
-        select(runs.c.run_id, runs.c.verdict)
-        .join(ProposalRecord, ProposalRecord.id == runs.c.proposal_ref)
-        .where(ProposalRecord.semester == semester)
+        select(CheckRun.id.label("run_id"), CheckRun.verdict)
+        .join(standing, CheckRun.id == standing.c.run_id)
         .subquery("semester_runs")
     )
     counts = {level: 0 for level in LEVELS}

@@ -19,6 +19,7 @@ from sqlalchemy.orm import Session
 from feasibility.service import review
 from feasibility.store import queries as store_queries
 from feasibility.store.models import CheckRun, ProposalRecord, User
+from feasibility.store.standing import standing_run
 from feasibility.web import plots
 from feasibility.web.auth_pages import current_user, db, sign_in_required
 from feasibility.web.dashboard import bp
@@ -36,7 +37,7 @@ __all__ = ["proposal_pdf", "semester_pdf"]
 def proposal_report(proposal_id: str) -> Any:
     """The proposal's report as a page made for printing: everything expanded, no navigation."""
     record = _visible_record(proposal_id)
-    run = store_queries.latest_done_run(db(), record)
+    run = standing_run(db(), record)
     return render_template(
         "dashboard/report.html",
         record=record,
@@ -103,7 +104,7 @@ def proposal_pdf(session: Session, record: ProposalRecord, user: User) -> bytes:
 
 def _write_proposal(writer: PacketWriter, session: Session, record: ProposalRecord, user: User, state: review.Review | None = None) -> None:
     version = store_queries.latest_version(session, record)
-    run: CheckRun | None = store_queries.latest_done_run(session, record)
+    run: CheckRun | None = standing_run(session, record)
     state = state or review.review_of(session, record)
     writer.heading(f"{record.proposal_id} — {version.title}", size=13)
     writer.line(f"PI {version.pi_name} · semester {record.semester} · instruments {version.instruments.replace(',', ', ')} · "

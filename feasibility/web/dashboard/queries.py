@@ -1,7 +1,7 @@
-"""The proposal list as one SQL query: latest check per proposal, filters, search, sorting and paging.
+"""The proposal list as one SQL query: standing check per proposal, filters, search, sorting and paging.
 
-Everything is done by the database (window functions for "latest run" and
-"previous verdict", ``LIMIT``/``OFFSET`` for pages), so a semester of thousands
+Everything is done by the database (correlated subqueries for the standing run and
+the run before it, ``LIMIT``/``OFFSET`` for pages), so a semester of thousands
 of proposals costs one page of rows in Python. Only stored results are read.
 """
 
@@ -16,6 +16,7 @@ from sqlalchemy import Select, and_, case, exists, func, literal, or_, select
 from sqlalchemy.orm import Session, aliased
 
 from feasibility.store.models import CheckRun, FindingRow, ProposalRecord, ProposalVersion, RequestOutcome, User
+from feasibility.store.standing import standing_run_id, unindexed
 
 __all__ = [
     "CHECK_NAMES",
@@ -25,7 +26,6 @@ __all__ = [
     "SORT_KEYS",
     "count_rows",
     "iter_rows",
-    "latest_runs",
     "list_rows",
     "semesters",
     "visible_proposals",
@@ -124,11 +124,11 @@ class ProposalRow:
     targets: list[str] = field(default_factory=list)
     failing_check: str | None = None
     needed_ratio: float | None = None
-    """Hours needed over hours requested, summed over the latest run's requests (None when a goal cannot be reached)."""
+    """Hours needed over hours requested, summed over the standing run's requests (None when a goal cannot be reached)."""
 
     @property
     def changed(self) -> bool:
-        """Whether the latest check's verdict differs from the one before it."""
+        """Whether the standing verdict differs from that of the finished run before it (feasibility.store.standing)."""
         return self.previous_verdict is not None and self.verdict is not None and self.previous_verdict != self.verdict
 
     def as_dict(self) -> dict[str, Any]:
@@ -155,29 +155,6 @@ def visible_proposals(user: User) -> Any:
     if user.role in ("reviewer", "admin"):
         return literal(True)
     return ProposalRecord.owner_id == user.id
-
-
-def latest_runs() -> Any:
-    """A subquery: each proposal's latest finished run, with the verdict of the finished run before it."""
-    part = ProposalVersion.proposal_ref
-    ranked = (
-        select(
-            part.label("proposal_ref"),
-            CheckRun.id.label("run_id"),
-            CheckRun.verdict.label("verdict"),
-            CheckRun.finished_at.label("checked_at"),
-            func.row_number().over(partition_by=part, order_by=(CheckRun.finished_at.desc(), CheckRun.id.desc())).label("position"),
-            func.lag(CheckRun.verdict).over(partition_by=part, order_by=(CheckRun.finished_at.asc(), CheckRun.id.asc())).label("previous_verdict"),
-        )
-        .join(ProposalVersion, ProposalVersion.id == CheckRun.proposal_version_id)
-        .where(CheckRun.state == "done")
-        .subquery("ranked_runs")
-    )
-    return (
-        select(ranked.c.proposal_ref, ranked.c.run_id, ranked.c.verdict, ranked.c.checked_at, ranked.c.previous_verdict)
-        .where(ranked.c.position == 1)
-        .subquery("latest_runs")
-    )
 
 
 def list_rows(session: Session, user: User, query: ListQuery) -> list[ProposalRow]:
@@ -212,9 +189,10 @@ def semesters(session: Session, user: User) -> list[str]:
 
 # --- building the statement -----------------------------------------------------------------
 #
-# Each proposal's latest and previous finished runs are found by correlated subqueries that
-# walk the indexes (proposal -> its versions -> their runs), so a page costs a few index
-# look-ups per proposal rather than a scan of every run per proposal.
+# Each proposal's standing run and the finished run before it (feasibility.store.standing, the
+# one rule) are found by correlated subqueries that walk the indexes (proposal -> its versions
+# -> their runs), so a page costs a few index look-ups per proposal rather than a scan of every
+# run per proposal.
 
 _version = aliased(ProposalVersion, name="shown_version")
 _latest_version = (
@@ -224,33 +202,7 @@ _latest_version = (
 )
 
 
-def _finished_run(position: int) -> Any:
-    """The id of the proposal's finished run at ``position`` (0 the latest, 1 the one before), correlated."""
-    return (
-        select(CheckRun.id)
-        .join(ProposalVersion, ProposalVersion.id == CheckRun.proposal_version_id)
-        .where(ProposalVersion.proposal_ref == ProposalRecord.id, _unindexed(CheckRun.state) == "done")
-        .order_by(CheckRun.finished_at.desc(), CheckRun.id.desc())
-        .limit(1)
-        .offset(position)
-        .correlate(ProposalRecord)
-        .scalar_subquery()
-    )
-
-
-def _unindexed(column: Any) -> Any:
-    """``column || ''``: the same value, but SQLite will not pick the column's own index for the term.
-
-    Without table statistics SQLite takes an equality on an indexed column (``state = 'done'``,
-    ``check = 'moon'``) as the best way in, and so scans every finished run or every finding
-    of a check once per proposal. Hiding those terms from the planner (the SQLite query
-    optimizer overview, "disqualifying WHERE clause terms") makes it follow the proposal's
-    versions, runs and outcomes through their foreign-key indexes instead.
-    """
-    return column.concat("")
-
-
-_latest = aliased(CheckRun, name="latest_run")
+_standing = aliased(CheckRun, name="standing_run")
 _previous = aliased(CheckRun, name="previous_run")
 
 _pending = (
@@ -265,24 +217,24 @@ _pending = (
 
 _verdict_rank = case(
     {level: rank for rank, level in enumerate(LEVELS)},
-    value=_latest.verdict,
+    value=_standing.verdict,
     else_=-1,
 )
 _changed = case(
-    (and_(_previous.verdict.is_not(None), _previous.verdict != _latest.verdict), 1),
+    (and_(_previous.verdict.is_not(None), _previous.verdict != _standing.verdict), 1),
     else_=0,
 )
-#: The worst finding of the latest run that is not feasible (worst level first, then in the engine's order): its check.
+#: The worst finding of the standing run that is not feasible (worst level first, then in the engine's order): its check.
 _failing_check = (
     select(FindingRow.check)
     .join(RequestOutcome, RequestOutcome.id == FindingRow.outcome_id)
-    .where(RequestOutcome.run_id == _latest.id, FindingRow.level != "feasible")
+    .where(RequestOutcome.run_id == _standing.id, FindingRow.level != "feasible")
     .order_by(case({"infeasible": 0, "unchecked": 1, "marginal": 2}, value=FindingRow.level, else_=3), RequestOutcome.id, FindingRow.id)
     .limit(1)
-    .correlate(_latest)
+    .correlate(_standing)
     .scalar_subquery()
 )
-#: Hours needed over hours requested in the latest run; NULL when some request's goal cannot be reached (no hours needed).
+#: Hours needed over hours requested in the standing run; NULL when some request's goal cannot be reached (no hours needed).
 _needed_ratio = (
     select(
         case(
@@ -290,8 +242,8 @@ _needed_ratio = (
             else_=None,
         )
     )
-    .where(RequestOutcome.run_id == _latest.id)
-    .correlate(_latest)
+    .where(RequestOutcome.run_id == _standing.id)
+    .correlate(_standing)
     .scalar_subquery()
 )
 _SORT_COLUMNS: dict[str, Any] = {
@@ -301,7 +253,7 @@ _SORT_COLUMNS: dict[str, Any] = {
     "instruments": _version.instruments,
     "hours": _version.hours_requested,
     "verdict": _verdict_rank,
-    "checked": _latest.finished_at,
+    "checked": _standing.finished_at,
     "changed": _changed,
     "failing": _failing_check,
     "pressure": _needed_ratio,
@@ -320,9 +272,9 @@ def _base() -> Select[Any]:
             _version.instruments,
             _version.hours_requested,
             _version.targets,
-            _latest.id.label("run_id"),
-            _latest.verdict.label("verdict"),
-            _latest.finished_at.label("checked_at"),
+            _standing.id.label("run_id"),
+            _standing.verdict.label("verdict"),
+            _standing.finished_at.label("checked_at"),
             _previous.verdict.label("previous_verdict"),
             _pending.label("pending"),
             _failing_check.label("failing_check"),
@@ -330,8 +282,8 @@ def _base() -> Select[Any]:
         )
         .join(_latest_version, _latest_version.c.proposal_ref == ProposalRecord.id)
         .join(_version, _version.id == _latest_version.c.version_id)
-        .outerjoin(_latest, _latest.id == _finished_run(0))
-        .outerjoin(_previous, _previous.id == _finished_run(1))
+        .outerjoin(_standing, _standing.id == standing_run_id(0))
+        .outerjoin(_previous, _previous.id == standing_run_id(1))
     )
 
 
@@ -347,9 +299,9 @@ def _ordered(query: ListQuery) -> Select[Any]:
 def _filtered(user: User, query: ListQuery, statement: Select[Any]) -> Select[Any]:
     statement = statement.where(visible_proposals(user), ProposalRecord.semester == query.semester)
     if query.verdict == "none":
-        statement = statement.where(_latest.verdict.is_(None))
+        statement = statement.where(_standing.verdict.is_(None))
     elif query.verdict:
-        statement = statement.where(_latest.verdict == query.verdict)
+        statement = statement.where(_standing.verdict == query.verdict)
     if query.instrument:
         listed = literal(",") + func.replace(_version.instruments, " ", "") + literal(",")
         statement = statement.where(func.lower(listed).like(f"%,{_like_escape(query.instrument.lower())},%", escape="\\"))
@@ -357,9 +309,9 @@ def _filtered(user: User, query: ListQuery, statement: Select[Any]) -> Select[An
         statement = statement.where(
             exists()
             .where(
-                RequestOutcome.run_id == _latest.id,
+                RequestOutcome.run_id == _standing.id,
                 FindingRow.outcome_id == RequestOutcome.id,
-                _unindexed(FindingRow.check) == query.check,
+                unindexed(FindingRow.check) == query.check,
                 FindingRow.level != "feasible",
             )
         )

@@ -18,6 +18,7 @@ from werkzeug.exceptions import HTTPException
 from feasibility.service.current import current_observatory, observatory_of
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
+from feasibility.store import standing
 from feasibility.web import auth_pages, plots
 from feasibility.web.auth_pages import check_csrf, current_user, db, sees_all, security_headers, sign_in_required
 from feasibility.web.dashboard import bp
@@ -332,7 +333,7 @@ def _latest_version(record: ProposalRecord) -> ProposalVersion | None:
 
 
 def _chosen_run(history: list[Any], wanted: str | None) -> CheckRun | None:
-    """The run asked for (``?run=``), else the latest finished one, else the newest."""
+    """The run asked for (``?run=``), else the standing one (feasibility.store.standing), else the newest."""
     runs = [entry.run for entry in history]
     if wanted and wanted.isdigit():
         for run in runs:
@@ -341,7 +342,7 @@ def _chosen_run(history: list[Any], wanted: str | None) -> CheckRun | None:
         abort(404, description="This proposal has no run with that number.")
     done = [entry for entry in history if entry.run.state == "done"]
     if done:
-        return max(done, key=lambda e: (e.finished_at is not None, e.finished_at, e.run.id)).run
+        return max((entry.run for entry in done), key=standing.sort_key)
     return runs[0] if runs else None
 
 
