@@ -61,7 +61,7 @@ import functools
 import math
 from dataclasses import dataclass
 
-from feasibility.documents import Instrument, Observatory, ObservationRequest
+from feasibility.documents import Instrument, ObservationRequest, Observatory
 from feasibility.documents.observatory import Climate
 from feasibility.engine.conditions import Conditions, sky_band_for, wavelength_for
 from feasibility.engine.moonsky import SOLAR_COLOUR_MINUS_V, band_factor

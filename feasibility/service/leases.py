@@ -17,7 +17,7 @@ import socket
 import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 from flask import current_app, has_app_context
@@ -170,5 +170,5 @@ class Heartbeat:
 def aware(moment: datetime | None) -> datetime | None:
     """SQLite hands back naive datetimes (stored as UTC): make them comparable with ``utcnow()``."""
     if moment is not None and moment.tzinfo is None:
-        return moment.replace(tzinfo=timezone.utc)
+        return moment.replace(tzinfo=UTC)
     return moment

@@ -21,7 +21,7 @@ Who may do what is decided by :data:`PERMISSIONS` alone.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import select
@@ -298,4 +298,4 @@ def _request_labels(session: Session, record: ProposalRecord) -> list[str]:
 
 def _aware(moment: datetime) -> datetime:
     """SQLite gives naive UTC times back; make them aware."""
-    return moment if moment.tzinfo is not None else moment.replace(tzinfo=timezone.utc)
+    return moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)

@@ -126,7 +126,7 @@ class ScheduleDiff:
             "instrument_changed": [c.as_dict() for c in self.instrument_changed],
             "status_changed": [c.as_dict() for c in self.status_changed],
             "affected_instruments": dict(sorted(self.nights_affected.items())),
-            "gained_and_lost": {name: {"gained": g, "lost": l} for name, (g, l) in self.gained_and_lost.items()},
+            "gained_and_lost": {name: {"gained": gained, "lost": lost} for name, (gained, lost) in self.gained_and_lost.items()},
         }
 
 

@@ -33,7 +33,7 @@ import urllib.request
 from collections.abc import Callable
 from contextlib import AbstractContextManager
 from dataclasses import dataclass
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from typing import Any
 from urllib.parse import urlsplit
 
@@ -323,7 +323,7 @@ def _seconds_to_next(sessions: SessionMaker) -> float | None:
     if due is None:
         return None
     if due.tzinfo is None:
-        due = due.replace(tzinfo=timezone.utc)
+        due = due.replace(tzinfo=UTC)
     return max((due - utcnow()).total_seconds(), 0.05)
 
 

@@ -15,8 +15,8 @@ from __future__ import annotations
 import hashlib
 import secrets
 from collections.abc import Callable
-from functools import wraps
 from datetime import datetime
+from functools import wraps
 from typing import Any, TypeVar
 
 from flask import abort, g, request, session

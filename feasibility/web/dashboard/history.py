@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import select
@@ -52,7 +52,7 @@ class RunEntry:
     def finished_at(self) -> datetime | None:
         moment = self.run.finished_at
         if moment is not None and moment.tzinfo is None:
-            moment = moment.replace(tzinfo=timezone.utc)
+            moment = moment.replace(tzinfo=UTC)
         return moment
 
 
@@ -138,5 +138,5 @@ def _label(run: CheckRun, what: str) -> str:
 
 def _sortable(moment: datetime | None) -> datetime:
     if moment is None:
-        return datetime.max.replace(tzinfo=timezone.utc)
-    return moment if moment.tzinfo else moment.replace(tzinfo=timezone.utc)
+        return datetime.max.replace(tzinfo=UTC)
+    return moment if moment.tzinfo else moment.replace(tzinfo=UTC)

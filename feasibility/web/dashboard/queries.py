@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import Select, and_, case, exists, func, literal, or_, select
@@ -401,7 +401,7 @@ def _like_escape(text: str) -> str:
 def _aware(moment: datetime | None) -> datetime | None:
     """SQLite gives naive UTC times back; make them aware."""
     if moment is not None and moment.tzinfo is None:
-        return moment.replace(tzinfo=timezone.utc)
+        return moment.replace(tzinfo=UTC)
     return moment
 
 

@@ -19,12 +19,12 @@ from feasibility.service.current import current_observatory, observatory_of
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
 from feasibility.web import auth_pages, plots
-from feasibility.web.auth_pages import check_csrf, current_user, db, sees_all, security_headers, sign_in_required
+from feasibility.web.auth_pages import check_csrf, current_user, db, security_headers, sees_all, sign_in_required
 from feasibility.web.dashboard import bp
 from feasibility.web.dashboard.history import run_history
 from feasibility.web.dashboard.overview import semester_overview
-from feasibility.web.dashboard.review_pages import page_review
 from feasibility.web.dashboard.queries import CHECK_NAMES, LEVELS, SORT_KEYS, ListQuery, count_rows, iter_rows, list_rows, semesters
+from feasibility.web.dashboard.review_pages import page_review
 
 __all__ = ["PLOT_KINDS"]
 
@@ -258,12 +258,12 @@ def _verdict_table(data: Any) -> list[list[Any]]:
 
 def _instrument_table(data: Any) -> list[list[Any]]:
     head = ["instrument", "requests", "hours_requested", "hours_needed", "hours_offered", "requested_over_offered"]
-    return [head, *([l.instrument, l.requests, l.hours_requested, l.hours_needed, l.hours_offered, l.pressure] for l in data.instruments)]
+    return [head, *([row.instrument, row.requests, row.hours_requested, row.hours_needed, row.hours_offered, row.pressure] for row in data.instruments)]
 
 
 def _lunar_table(data: Any) -> list[list[Any]]:
     head = ["instrument", "lunar_time", "requests_feasible_or_marginal", "hours_requested", "hours_offered", "requested_over_offered"]
-    return [head, *([l.instrument, l.lunar_time, l.requests, l.hours_requested, l.hours_offered, l.pressure] for l in data.lunar)]
+    return [head, *([row.instrument, row.lunar_time, row.requests, row.hours_requested, row.hours_offered, row.pressure] for row in data.lunar)]
 
 
 def _ra_table(data: Any) -> list[list[Any]]:
