@@ -167,8 +167,8 @@ class SpectralCurves:
             beyond="slope",
         )
         if climate.dark_sky_by_wavelength:
-            table = climate.dark_sky_by_wavelength
-            self._sky_ab: SmoothCurve | None = SmoothCurve([p.wavelength_nm for p in table], [p.ab_mag_arcsec2 for p in table])
+            sky_table = climate.dark_sky_by_wavelength
+            self._sky_ab: SmoothCurve | None = SmoothCurve([p.wavelength_nm for p in sky_table], [p.ab_mag_arcsec2 for p in sky_table])
         else:
             self._sky_ab = None
             self._sky = SmoothCurve(
