@@ -18,10 +18,10 @@ import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
 from datetime import UTC, datetime, timedelta
-from typing import Any
+from typing import Any, cast
 
 from flask import current_app, has_app_context
-from sqlalchemy import Table, update
+from sqlalchemy import CursorResult, Table, update
 from sqlalchemy.exc import SQLAlchemyError
 
 from feasibility.store.db import session_scope
@@ -164,7 +164,7 @@ class Heartbeat:
                 .where(_RUNS.c.id == self.run_id, _RUNS.c.state == "running", _RUNS.c.attempts == self.attempt)
                 .values(lease_expires_at=until)
             )
-            return bool(session.execute(statement).rowcount)
+            return bool(cast(CursorResult[Any], session.execute(statement)).rowcount)
 
 
 def aware(moment: datetime | None) -> datetime | None:

@@ -193,7 +193,7 @@ def assign_by_instrument(session: Session, actor: User, semester: Any, instrumen
 def add_note(session: Session, actor: User, record: ProposalRecord, text: Any, request_label: Any = None) -> ReviewNote:
     """Add a note to the proposal, or to its observation request ``request_label`` (a label of its latest version)."""
     check_allowed(actor, "write_note")
-    problems = []
+    problems: list[Problem] = []
     clean = _text(text, "text", problems, required=True)
     label = None
     if request_label not in (None, ""):

@@ -7,7 +7,7 @@ of proposals costs one page of rows in Python. Only stored results are read.
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Generator
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
@@ -186,7 +186,7 @@ def list_rows(session: Session, user: User, query: ListQuery) -> list[ProposalRo
     return [_row(values) for values in session.execute(_filtered(user, query, statement))]
 
 
-def iter_rows(session: Session, user: User, query: ListQuery) -> Iterator[ProposalRow]:
+def iter_rows(session: Session, user: User, query: ListQuery) -> Generator[ProposalRow]:
     """Every row of the filtered list, in order (for the exports), fetched in batches.
 
     Close the iterator when stopping early (``contextlib.closing``): that closes the
@@ -310,7 +310,7 @@ _SORT_COLUMNS: dict[str, Any] = {
 _NULLS_LAST = frozenset({"failing", "pressure"})
 
 
-def _base() -> Select[Any]:
+def _base() -> Select:
     return (
         select(
             ProposalRecord.proposal_id,

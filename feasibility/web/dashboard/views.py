@@ -353,7 +353,7 @@ def _requests_of(run: CheckRun | None) -> list[dict[str, Any]]:
     for raw in run.result.get("requests") or []:
         if not isinstance(raw, dict):
             continue
-        series = raw.get("series") if isinstance(raw.get("series"), dict) else {}
+        series = given if isinstance(given := raw.get("series"), dict) else {}
         figures = raw.get("figures") if isinstance(raw.get("figures"), dict) else {}
         findings = [f for f in raw.get("findings") or [] if isinstance(f, dict)]
         findings.sort(key=lambda f: -LEVELS.index(f["level"]) if f.get("level") in LEVELS else 0)  # worst first: the "why"
