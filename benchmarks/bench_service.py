@@ -211,8 +211,8 @@ class Service:
         return self
 
     def token(self, role: str) -> str:
-        from feasibility.web import create_app
         from feasibility.store.db import session_scope
+        from feasibility.web import create_app
         from feasibility.web.auth import create_token, create_user
 
         app = create_app({"DATABASE_URL": self.url, "BROKER_URL": REDIS_URL, "QUEUE_PREFIX": self.prefix})

@@ -58,7 +58,7 @@ def _request_block(number: int, request: RequestResult) -> list[str]:
     summary = _summary(request)
     if summary:
         lines.append(f"    {summary}")
-    caused = {}
+    caused: dict[str, list[str]] = {}
     for finding in request.findings:
         if finding.see:
             caused.setdefault(finding.see, []).append(finding.check)

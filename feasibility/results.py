@@ -17,7 +17,7 @@ __all__ = ["Finding", "Level", "ProposalResult", "RequestResult", "worst"]
 Figure = float | int | str | bool | None | list[float] | list[int] | list[str]
 
 
-class Level(str, Enum):
+class Level(str, Enum):  # noqa: UP042 - StrEnum would change str(level) from "Level.FEASIBLE" to "feasible"
     """How a check, a request or a proposal came out."""
 
     FEASIBLE = "feasible"

@@ -41,14 +41,14 @@ def check_run(task: Any, run_id: int) -> str:
     try:
         return execute_run(run_id)
     except LeaseHeld as held:
-        raise task.retry(countdown=held.retry_in)
+        raise task.retry(countdown=held.retry_in) from held
     except SQLAlchemyError as exc:
         tries = task.request.retries
         if tries >= _DB_RETRIES:
             log.error("check run %s: database faults on %d tries; left for the relay", run_id, tries)
             return "given up"
         delay = min(2.0**min(tries, 10), _DB_BACKOFF_MAX_S) * random.uniform(0.5, 1.0)
-        raise task.retry(exc=exc, countdown=delay)
+        raise task.retry(exc=exc, countdown=delay) from exc
 
 
 @shared_task(name=RELAY_TASK, acks_late=False)

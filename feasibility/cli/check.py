@@ -14,9 +14,9 @@ from pathlib import Path
 import click
 from pydantic import BaseModel
 
+from feasibility.cli.inputs import read_observatory, read_schedule
 from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, load_document
 from feasibility.documents.loading import json_schema
-from feasibility.cli.inputs import read_observatory, read_schedule
 from feasibility.documents.proposal_problems import read_proposal
 from feasibility.documents.reading import read_file
 

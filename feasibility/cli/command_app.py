@@ -24,6 +24,6 @@ def command_app(**settings: Any) -> Iterator[Any]:
             yield app
     finally:
         dispatcher = app.extensions.get("feasibility.dispatch")
-        if hasattr(dispatcher, "shutdown"):
+        if dispatcher is not None and hasattr(dispatcher, "shutdown"):
             dispatcher.shutdown()
         app.extensions["feasibility.db"]["engine"].dispose()

@@ -14,7 +14,7 @@ from __future__ import annotations
 import json
 import sys
 import time
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -197,7 +197,7 @@ def _parse_time(raw: str, option: str) -> datetime:
     except ValueError:
         click.echo(f"{option}: {raw!r} is not an ISO 8601 time (e.g. 2027-05-01T03:00:00Z)", err=True)
         sys.exit(BAD_INPUT)
-    return moment if moment.tzinfo is not None else moment.replace(tzinfo=timezone.utc)
+    return moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)
 
 
 def _bad(error: Any) -> None:

@@ -106,8 +106,8 @@ def token_group() -> None:
 @click.option("--label", default=None, help="A note on what the token is for.")
 def token_create(user_name: str, role: str | None, label: str | None) -> None:
     """Make an API token and print it once; only its hash is stored."""
-    from feasibility.store.db import session_scope
     from feasibility.cli.command_app import command_app
+    from feasibility.store.db import session_scope
     from feasibility.store.models import User
     from feasibility.web.auth import create_token, create_user
 

@@ -43,7 +43,7 @@ LAYOUT_ALLOWED_PATTERN = r"^[^\u0000-\u0008\u000b\u000c\u000e-\u001f\u007f-\u009
 
 def _schema_rules(schema: dict[str, Any], model: type[BaseModel]) -> None:
     """State this module's rules in a model's published JSON Schema (``json_schema_extra``), in place."""
-    multiline = getattr(model, "multiline_fields", frozenset())
+    multiline: frozenset[str] = getattr(model, "multiline_fields", frozenset())
     by_key = {field.serialization_alias or field.alias or name: name for name, field in model.model_fields.items()}
     for key, node in schema.get("properties", {}).items():
         _state_rules(node, by_key.get(key, key) in multiline)

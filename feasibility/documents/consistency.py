@@ -6,7 +6,7 @@ have), reported like validation errors with the field path.
 
 from __future__ import annotations
 
-from datetime import datetime, time, timedelta, timezone
+from datetime import UTC, datetime, time, timedelta
 
 from feasibility.documents.loading import DocumentError, Problem
 from feasibility.documents.observatory import Observatory, Semester
@@ -104,8 +104,8 @@ def semester_span_utc(observatory: Observatory, semester: Semester) -> tuple[dat
     taken from the site's longitude, as the sky grid does.
     """
     offset = timedelta(hours=observatory.site.longitude_deg / 15.0)
-    start = datetime.combine(semester.first_night, time(12), tzinfo=timezone.utc) - offset
-    end = datetime.combine(semester.last_night + timedelta(days=1), time(12), tzinfo=timezone.utc) - offset
+    start = datetime.combine(semester.first_night, time(12), tzinfo=UTC) - offset
+    end = datetime.combine(semester.last_night + timedelta(days=1), time(12), tzinfo=UTC) - offset
     return start, end
 
 
@@ -127,7 +127,7 @@ def window_problems(where: str, windows: list[TimeWindow], observatory: Observat
 
 
 def _utc(moment: datetime) -> str:
-    return moment.astimezone(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    return moment.astimezone(UTC).strftime("%Y-%m-%d %H:%M UTC")
 
 
 def schedule_problems(schedule: InstrumentSchedule, observatory: Observatory) -> list[Problem]:

@@ -13,6 +13,7 @@ from __future__ import annotations
 import difflib
 import types
 import typing
+from collections.abc import Mapping
 from typing import Any
 
 import annotated_types
@@ -69,7 +70,7 @@ def plain_name(location: tuple[int | str, ...]) -> str:
     return key.replace("_", " ")
 
 
-def plain_message(error: dict[str, Any], model: type[BaseModel] | None = None) -> str:
+def plain_message(error: Mapping[str, Any], model: type[BaseModel] | None = None) -> str:
     """One pydantic error (from ``ValidationError.errors()``) as a sentence in our words."""
     kind = str(error.get("type", ""))
     location = tuple(error.get("loc", ()))

@@ -6,6 +6,7 @@ degrees unless the field name says arcsec, times in seconds, rates per second.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Literal
 
 from pydantic import Field, ValidationInfo, field_validator, model_validator
@@ -205,7 +206,10 @@ class Climate(_Part):
                 raise ValueError(f"usable_night_fraction: month {month} is not between 1 and 12")
             if not 0.0 <= fraction <= 1.0:
                 raise ValueError(f"usable_night_fraction: month {month} has fraction {fraction}, not between 0 and 1")
-        for name, points in (("extinction_by_wavelength", self.extinction_by_wavelength), ("dark_sky_by_wavelength", self.dark_sky_by_wavelength)):
+        curves: tuple[tuple[str, Sequence[ExtinctionPoint | DarkSkyPoint]], ...] = (
+            ("extinction_by_wavelength", self.extinction_by_wavelength), ("dark_sky_by_wavelength", self.dark_sky_by_wavelength)
+        )
+        for name, points in curves:
             if len(points) == 1:
                 raise ValueError(f"{name}: give at least two points, or none")
             for i, (before, after) in enumerate(zip(points, points[1:]), start=1):

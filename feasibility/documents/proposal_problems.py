@@ -73,7 +73,7 @@ def _raw_problems(data: dict[str, Any], observatory: Observatory, reported: set[
         if semester is not None and isinstance(windows, list):
             parts = [_part(TimeWindow, item) for item in windows]
             if all(part is not None for part in parts):
-                problems.extend(window_problems(f"{where}.windows", parts, observatory, semester))  # type: ignore[arg-type]
+                problems.extend(window_problems(f"{where}.windows", parts, observatory, semester))
     return [p for p in problems if p.field not in reported]
 
 

@@ -165,7 +165,7 @@ def _json_constant(literal: str) -> float:
 _Base: Any = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 
-class _Loader(_Base):  # type: ignore[misc, valid-type]
+class _Loader(_Base):
     """The safe loader, with bounded and finite numbers."""
 
 
@@ -213,7 +213,7 @@ def _check_yaml_events(events: Iterator[yaml.Event], max_values: int) -> None:
     for event in events:
         if isinstance(event, yaml.AliasEvent):
             if event.anchor not in sizes:
-                raise _Refused(f"the alias *{_short(event.anchor)} refers to a part that contains it, or to no part")
+                raise _Refused(f"the alias *{_short(event.anchor or '')} refers to a part that contains it, or to no part")
             total += sizes[event.anchor]
         elif isinstance(event, (yaml.ScalarEvent, yaml.MappingStartEvent, yaml.SequenceStartEvent)):
             total += 1

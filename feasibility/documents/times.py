@@ -10,7 +10,7 @@ naive times are read as UTC.
 from __future__ import annotations
 
 import re
-from datetime import date, datetime, timezone
+from datetime import UTC, date, datetime
 from typing import Annotated, Any
 
 from pydantic import AfterValidator, BeforeValidator, WithJsonSchema
@@ -56,9 +56,9 @@ def _date_text(value: Any) -> Any:
 def _utc(value: datetime) -> datetime:
     """Read naive times as UTC and keep every time timezone-aware."""
     if value.tzinfo is None:
-        return value.replace(tzinfo=timezone.utc)
+        return value.replace(tzinfo=UTC)
     try:
-        return value.astimezone(timezone.utc)
+        return value.astimezone(UTC)
     except OverflowError:  # e.g. 9999-12-31T23:00-05:00 is in the year 10000 in UTC
         raise ValueError("lies outside the years 1 to 9999 once converted to UTC") from None
 

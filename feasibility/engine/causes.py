@@ -87,7 +87,7 @@ def _follows(
     if _failing(schedule):
         assert schedule is not None
         as_requested = level_for_hours(sky.clear_usable, sky.total_usable, requested, windows)
-        need = max(requested, hours_needed) if goal_larger else requested  # type: ignore[type-var]
+        need = max(requested, hours_needed) if goal_larger and hours_needed is not None else requested
         without_schedule = level_for_hours(sky.clear_observable, sky.total_observable, need, windows)
         if goal_larger and _failing(sensitivity) and as_requested.rank < schedule.level.rank:
             follows["schedule"] = "sensitivity"

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from feasibility.documents import Instrument, Observatory, ObservationRequest
+from feasibility.documents import Instrument, ObservationRequest, Observatory
 
 __all__ = ["Conditions", "nearest_rank", "sky_band_for", "wavelength_for"]
 

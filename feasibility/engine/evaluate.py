@@ -17,14 +17,14 @@ import math
 import re
 import threading
 from collections import OrderedDict
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
 import feasibility
-from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest, Proposal
+from feasibility.documents import Instrument, InstrumentSchedule, ObservationRequest, Observatory, Proposal
 from feasibility.documents.consistency import proposal_problems
 from feasibility.documents.loading import Problem
 from feasibility.engine.causes import link_causes
@@ -101,7 +101,7 @@ def check_proposal(
         observatory=observatory.name,
         observatory_version=observatory.version,
         schedule_version=schedule.version if schedule is not None else None,
-        computed_at=datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        computed_at=datetime.now(UTC).isoformat(timespec="seconds"),
     )
 
 

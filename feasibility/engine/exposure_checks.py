@@ -27,7 +27,7 @@ from dataclasses import dataclass
 from statistics import NormalDist
 
 from feasibility.documents import Instrument, ObservationRequest
-from feasibility.results import Finding, Level
+from feasibility.results import Figure, Finding, Level
 
 __all__ = [
     "AIRY_FWHM_FACTOR",
@@ -87,7 +87,7 @@ _ATMOSPHERE: list[tuple[float, float, Level, str]] = [
 
 def atmosphere_finding(wavelength_nm: float) -> Finding:
     """Can ``wavelength_nm`` be observed from the ground at all (common-practice transmission windows)?"""
-    figures = {"wavelength_nm": round(wavelength_nm, 3)}
+    figures: dict[str, Figure] = {"wavelength_nm": round(wavelength_nm, 3)}
     method = "ground transmission windows by wavelength (common practice: ozone cutoff, water-vapour bands, far infrared, ionosphere)"
     for low, high, level, reason in _ATMOSPHERE:
         if low <= wavelength_nm < high:
@@ -126,7 +126,7 @@ def image_quality_finding(
     diffraction = diffraction_fwhm_arcsec(wavelength_nm, aperture_m)
     rayleigh = rayleigh_limit_rad(wavelength_nm, aperture_m) * RAD_TO_ARCSEC
     delivered = math.hypot(natural, diffraction)
-    figures: dict[str, float | None] = {
+    figures: dict[str, Figure] = {
         "seeing_median_arcsec": round(delivered, 3),
         "diffraction_limit_arcsec": round(rayleigh, 4),
         "max_seeing_arcsec": request.constraints.max_seeing_arcsec,

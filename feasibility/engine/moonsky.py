@@ -118,7 +118,7 @@ def moon_term(phase_angle_deg: ArrayLike, moon_zenith_deg: ArrayLike, extinction
 
 def moonlight_from_term(term: ArrayLike, separation_deg: ArrayLike, target_zenith_deg: ArrayLike, extinction: float) -> Array:
     """Eq. 15 from :func:`moon_term`: f(ρ) × term × [1 − 10^(−0.4 k X(Z))] (nL, V band)."""
-    return scattering_function(separation_deg) * term * -np.expm1(-0.4 * _LN10 * extinction * optical_path(target_zenith_deg))
+    return scattering_function(separation_deg) * np.asarray(term, dtype=float) * -np.expm1(-0.4 * _LN10 * extinction * optical_path(target_zenith_deg))
 
 
 def sky_components_nl(
@@ -135,7 +135,7 @@ def sky_components_nl(
     grid, dark_factor, path_factor = _zenith_tables(float(extinction))
     sin_alt = np.asarray(sin_altitude, dtype=float)
     dark = nanolamberts_from_mag(zenith_mag_arcsec2) * np.interp(sin_alt, grid, dark_factor)
-    scattering = np.interp(separation_deg, _RHO_TABLE, _SCATTERING_TABLE)
+    scattering = np.interp(np.asarray(separation_deg, dtype=float), _RHO_TABLE, _SCATTERING_TABLE)
     return dark, scattering * np.asarray(term, dtype=float) * np.interp(sin_alt, grid, path_factor)
 
 

@@ -55,7 +55,7 @@ from typing import Any
 
 import numpy as np
 
-from feasibility.documents import Detector, Instrument, Observatory, ObservationRequest
+from feasibility.documents import Detector, Instrument, ObservationRequest, Observatory
 from feasibility.engine import photometry, spectral_curves, wording
 from feasibility.engine.airmass import altitude_for_airmass
 from feasibility.engine.conditions import Conditions, wavelength_for
@@ -415,7 +415,7 @@ def _optics(
     climate = observatory.climate
     telescope = observatory.telescope
     area = photometry.collecting_area_m2(telescope.aperture_m, telescope.central_obstruction)
-    sky_band = climate.bands[conditions.sky_band] if conditions.sky_band in climate.bands else None
+    sky_band = climate.bands.get(conditions.sky_band)
     sky_offset = None
     if instrument.kind == "imager":
         item = instrument.filter_named(request.setup.filter or "")

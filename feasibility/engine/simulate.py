@@ -169,7 +169,7 @@ def summarise(plan: Plan, items: Sequence[PlanRequest], outcomes: Outcomes) -> d
             "rank": items[members[0]].rank,
             "requests": len(members),
             "hours_to_obtain": round(wanted, 3),
-            **_chances(complete[:, members].all(axis=1), total >= 0.5 * wanted - 1e-9, total),
+            **_chances(np.all(complete[:, members], axis=1), total >= 0.5 * wanted - 1e-9, total),
         })
 
     demand = _demand(plan)

@@ -31,7 +31,7 @@ from datetime import date
 import numpy as np
 from numpy.typing import NDArray
 
-from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest
+from feasibility.documents import Instrument, InstrumentSchedule, ObservationRequest, Observatory
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
 from feasibility.documents.proposal import SKY_ILLUMINATION
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass, limit_airmass, limit_altitude

@@ -331,8 +331,8 @@ def schedule_finding(sky: SkyMeasure, hours_needed: float | None, schedule: Inst
     observable, hours, clear = sky.total_observable, sky.total_usable, sky.clear_usable
     need = sky.hours_requested
     goal_decides = hours_needed is not None and math.isfinite(hours_needed) and hours_needed > sky.hours_requested
-    if goal_decides:
-        need = max(need, hours_needed)  # type: ignore[type-var]
+    if goal_decides and hours_needed is not None:
+        need = max(need, hours_needed)
     level = level_for_hours(clear, hours, need, sky.has_windows)
     nights = int(np.count_nonzero(sky.usable))
     if sky.schedule_given:

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import numpy as np
 from numpy.typing import NDArray
@@ -88,4 +88,4 @@ def window_nights(windows: Sequence[TimeWindow], midnight_mjd: NDArray[np.float6
 
 def to_mjd(moment: datetime) -> float:
     """A time as a UTC modified Julian date."""
-    return moment.astimezone(timezone.utc).timestamp() / 86400.0 + _MJD_UNIX_EPOCH
+    return moment.astimezone(UTC).timestamp() / 86400.0 + _MJD_UNIX_EPOCH

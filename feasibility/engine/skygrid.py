@@ -193,8 +193,9 @@ class SkyGrid:
     _curves: dict[int, dict[str, object]] = field(default_factory=dict, repr=False, compare=False)
 
     @property
-    def step_hours(self) -> float:
-        return self.step_minutes / 60.0
+    def step_hours(self) -> np.float64:
+        """Hours per sample, a NumPy float so that counts x step_hours is typed float64."""
+        return np.float64(self.step_minutes / 60.0)
 
     @property
     def n_nights(self) -> int:
@@ -343,7 +344,7 @@ def build_sky_grid(
     step_days = step_minutes / 1440.0
 
     first_mjd = _mjd(first_night)
-    midnight_mjd = first_mjd + np.arange(n_nights) + 1.0 - longitude_deg / 360.0
+    midnight_mjd = first_mjd + np.arange(n_nights, dtype=np.float64) + 1.0 - longitude_deg / 360.0
     offsets = -0.5 + (np.arange(per_night) + 0.5) * step_days  # bin centres, local noon to noon
     mjd = (midnight_mjd[:, None] + offsets[None, :]).ravel()
     night_index = np.repeat(np.arange(n_nights, dtype=np.int32), per_night)

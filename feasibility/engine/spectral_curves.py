@@ -61,7 +61,7 @@ import functools
 import math
 from dataclasses import dataclass
 
-from feasibility.documents import Instrument, Observatory, ObservationRequest
+from feasibility.documents import Instrument, ObservationRequest, Observatory
 from feasibility.documents.observatory import Climate
 from feasibility.engine.conditions import Conditions, sky_band_for, wavelength_for
 from feasibility.engine.moonsky import SOLAR_COLOUR_MINUS_V, band_factor
@@ -167,8 +167,8 @@ class SpectralCurves:
             beyond="slope",
         )
         if climate.dark_sky_by_wavelength:
-            table = climate.dark_sky_by_wavelength
-            self._sky_ab: SmoothCurve | None = SmoothCurve([p.wavelength_nm for p in table], [p.ab_mag_arcsec2 for p in table])
+            sky_table = climate.dark_sky_by_wavelength
+            self._sky_ab: SmoothCurve | None = SmoothCurve([p.wavelength_nm for p in sky_table], [p.ab_mag_arcsec2 for p in sky_table])
         else:
             self._sky_ab = None
             self._sky = SmoothCurve(

@@ -50,7 +50,7 @@ class SkyProbe:
     max_moon_illumination: float
     available: NDArray[np.bool_]
     weather: NDArray[np.float64]
-    step_hours: float
+    step_hours: np.float64
     _floor_cache: dict[bool, tuple[NDArray[np.float64], NDArray[np.int32]]] = field(default_factory=dict, repr=False, compare=False)
 
     def visible(self, airmass_limit: float | None = None, *, windows: bool = True) -> Hours:

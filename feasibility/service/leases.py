@@ -17,11 +17,11 @@ import socket
 import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
-from datetime import datetime, timedelta, timezone
-from typing import Any
+from datetime import UTC, datetime, timedelta
+from typing import Any, cast
 
 from flask import current_app, has_app_context
-from sqlalchemy import Table, update
+from sqlalchemy import CursorResult, Table, update
 from sqlalchemy.exc import SQLAlchemyError
 
 from feasibility.store.db import session_scope
@@ -164,11 +164,11 @@ class Heartbeat:
                 .where(_RUNS.c.id == self.run_id, _RUNS.c.state == "running", _RUNS.c.attempts == self.attempt)
                 .values(lease_expires_at=until)
             )
-            return bool(session.execute(statement).rowcount)
+            return bool(cast(CursorResult[Any], session.execute(statement)).rowcount)
 
 
 def aware(moment: datetime | None) -> datetime | None:
     """SQLite hands back naive datetimes (stored as UTC): make them comparable with ``utcnow()``."""
     if moment is not None and moment.tzinfo is None:
-        return moment.replace(tzinfo=timezone.utc)
+        return moment.replace(tzinfo=UTC)
     return moment

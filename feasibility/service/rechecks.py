@@ -28,7 +28,7 @@ from __future__ import annotations
 
 from collections import Counter
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 from sqlalchemy import func, select
@@ -420,7 +420,7 @@ def _changed(uploaded_at: datetime | None, since: datetime | None) -> bool:
 
 def _aware(value: datetime) -> datetime:
     """SQLite gives back naive datetimes; they are UTC."""
-    return value if value.tzinfo is not None else value.replace(tzinfo=timezone.utc)
+    return value if value.tzinfo is not None else value.replace(tzinfo=UTC)
 
 
 def _schedule_field(field: str) -> str:

@@ -31,9 +31,9 @@ import logging
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
-from typing import Any
+from typing import Any, cast
 
-from sqlalchemy import and_, func, or_, select, update
+from sqlalchemy import CursorResult, Table, and_, func, or_, select, update
 from sqlalchemy.orm import Session
 
 from feasibility.service.leases import holder_is_gone, owner_id
@@ -89,7 +89,7 @@ def relay(dispatcher: Any, config: Any, *, exclude: set[int] | None = None, limi
 
 def take_back_lapsed(now: datetime, lease: timedelta) -> list[int]:
     """Queue again (unsent) the running runs whose lease lapsed or whose holder on this host is dead."""
-    runs = CheckRun.__table__
+    runs = cast(Table, CheckRun.__table__)  # a declarative class's table (typed as the wider FromClause)
     lapsed = or_(runs.c.lease_expires_at < now, and_(runs.c.lease_expires_at.is_(None), runs.c.started_at < now - lease))
     back = {"state": "queued", "started_at": None, "lease_expires_at": None, "lease_owner": None, "dispatched_at": None}
     with session_scope() as session:
@@ -101,7 +101,7 @@ def take_back_lapsed(now: datetime, lease: timedelta) -> list[int]:
         for run_id, attempts, owner in local:
             if holder_is_gone(owner, run_id):
                 statement = update(runs).where(runs.c.id == run_id, runs.c.state == "running", runs.c.attempts == attempts).values(**back)
-                if session.execute(statement).rowcount:
+                if cast(CursorResult[Any], session.execute(statement)).rowcount:
                     taken.append(run_id)
     return taken
 

@@ -21,7 +21,7 @@ Who may do what is decided by :data:`PERMISSIONS` alone.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import select
@@ -194,7 +194,7 @@ def assign_by_instrument(session: Session, actor: User, semester: Any, instrumen
 def add_note(session: Session, actor: User, record: ProposalRecord, text: Any, request_label: Any = None) -> ReviewNote:
     """Add a note to the proposal, or to its observation request ``request_label`` (a label of its latest version)."""
     check_allowed(actor, "write_note")
-    problems = []
+    problems: list[Problem] = []
     clean = _text(text, "text", problems, required=True)
     label = None
     if request_label not in (None, ""):
@@ -299,4 +299,4 @@ def _request_labels(session: Session, record: ProposalRecord) -> list[str]:
 
 def _aware(moment: datetime) -> datetime:
     """SQLite gives naive UTC times back; make them aware."""
-    return moment if moment.tzinfo is not None else moment.replace(tzinfo=timezone.utc)
+    return moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)

@@ -180,7 +180,7 @@ def _parse_inputs(
 
     observatory = cached_document(Observatory, observatory_hash, lambda: read(ObservatoryVersion, observatory_id))
     schedule = None
-    if schedule_id is not None:
+    if schedule_id is not None and schedule_hash is not None:  # the hash comes with the id (same row)
         schedule = cached_document(InstrumentSchedule, schedule_hash, lambda: read(ScheduleVersion, schedule_id))
     return proposal, observatory, schedule
 

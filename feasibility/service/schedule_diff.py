@@ -16,7 +16,7 @@ from __future__ import annotations
 from collections import Counter
 from dataclasses import dataclass, field
 from datetime import date
-from typing import Any, Literal
+from typing import Any, Literal, overload
 
 from feasibility.documents.schedule import InstrumentSchedule, ScheduledNight
 
@@ -126,7 +126,7 @@ class ScheduleDiff:
             "instrument_changed": [c.as_dict() for c in self.instrument_changed],
             "status_changed": [c.as_dict() for c in self.status_changed],
             "affected_instruments": dict(sorted(self.nights_affected.items())),
-            "gained_and_lost": {name: {"gained": g, "lost": l} for name, (g, l) in self.gained_and_lost.items()},
+            "gained_and_lost": {name: {"gained": gained, "lost": lost} for name, (gained, lost) in self.gained_and_lost.items()},
         }
 
 
@@ -192,6 +192,14 @@ def available_instrument(entry: ScheduledNight | None) -> str | None:
     if entry is None or entry.status != "open":
         return None
     return entry.instrument
+
+
+@overload
+def _key(name: str) -> str: ...
+
+
+@overload
+def _key(name: None) -> None: ...
 
 
 def _key(name: str | None) -> str | None:

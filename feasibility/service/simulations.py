@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import logging
 import threading
+from collections.abc import Callable
 from typing import Any
 
 from flask import current_app
@@ -90,7 +91,7 @@ def execute_simulation(simulation_id: int) -> str:
             proposals = []
             for record in session.scalars(select(ProposalRecord).where(ProposalRecord.semester == semester).order_by(ProposalRecord.proposal_id)):
                 version: ProposalVersion = latest_version(session, record)
-                proposals.append(cached_document(Proposal, version.content_hash, lambda v=version: v.document))
+                proposals.append(cached_document(Proposal, version.content_hash, _stored_document(version)))
         if not proposals:
             raise ValueError(f"semester {semester!r} has no proposals")
         result = simulate_semester(
@@ -106,6 +107,11 @@ def execute_simulation(simulation_id: int) -> str:
         if simulation is not None:
             simulation.state, simulation.result, simulation.error, simulation.finished_at = state, result, error, utcnow()
     return state
+
+
+def _stored_document(version: ProposalVersion) -> Callable[[], Any]:
+    """Reads the version's stored document, called only when the parsed-document cache misses."""
+    return lambda: version.document
 
 
 def simulation_json(simulation: Simulation, *, with_result: bool = True) -> dict[str, Any]:

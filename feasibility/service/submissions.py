@@ -21,8 +21,8 @@ from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.orm import Session
 
 from feasibility.documents import Proposal, parse_document
-from feasibility.documents.proposal_problems import read_proposal
 from feasibility.documents.loading import DocumentError, Problem
+from feasibility.documents.proposal_problems import read_proposal
 from feasibility.service.current import current_observatory, current_schedule, observatory_of
 from feasibility.service.engine_version import engine_version
 from feasibility.store.hashing import document_hash

@@ -33,12 +33,12 @@ import urllib.request
 from collections.abc import Callable
 from contextlib import AbstractContextManager
 from dataclasses import dataclass
-from datetime import datetime, timedelta, timezone
-from typing import Any
+from datetime import UTC, datetime, timedelta
+from typing import Any, cast
 from urllib.parse import urlsplit
 
 from flask import current_app, has_app_context
-from sqlalchemy import event, func, select, update
+from sqlalchemy import CursorResult, event, func, select, update
 from sqlalchemy.orm import Session
 
 from feasibility.service.outbound import RefusedAddress, host_problem, opener
@@ -242,12 +242,12 @@ def _claim(sessions: SessionMaker, now: datetime, limit: int) -> list[tuple[int,
             if not url:
                 delivery.state, delivery.last_error = "failed", "the user no longer has a webhook address"
                 continue
-            taken = session.execute(
+            taken = cast(CursorResult[Any], session.execute(
                 update(WebhookDelivery)
                 .where(WebhookDelivery.id == delivery.id, WebhookDelivery.next_attempt_at == delivery.next_attempt_at)
                 .values(next_attempt_at=now + CLAIM_LEASE)
                 .execution_options(synchronize_session=False)
-            )
+            ))
             if taken.rowcount == 1:
                 claimed.append((delivery.id, url, secret, delivery.body, delivery.attempts))
     return claimed
@@ -323,7 +323,7 @@ def _seconds_to_next(sessions: SessionMaker) -> float | None:
     if due is None:
         return None
     if due.tzinfo is None:
-        due = due.replace(tzinfo=timezone.utc)
+        due = due.replace(tzinfo=UTC)
     return max((due - utcnow()).total_seconds(), 0.05)
 
 

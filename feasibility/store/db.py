@@ -64,7 +64,7 @@ class JSONText(str):
     re-encodes the equivalent dict; any other value is encoded as usual.
     """
 _default: dict[str, Any] = {}
-_engines: "weakref.WeakSet[Engine]" = weakref.WeakSet()
+_engines: weakref.WeakSet[Engine] = weakref.WeakSet()
 
 
 def instance_dir() -> Path:

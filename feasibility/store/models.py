@@ -7,7 +7,7 @@ and instrument schedule it was computed from. Versions are never overwritten.
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import JSON, DateTime, Dialect, Float, ForeignKey, Index, Integer, MetaData, String, Text, TypeDecorator, UniqueConstraint, event
@@ -49,7 +49,7 @@ NAMING_CONVENTION = {
 
 def utcnow() -> datetime:
     """Now, timezone-aware in UTC."""
-    return datetime.now(timezone.utc)
+    return datetime.now(UTC)
 
 
 class UTCDateTime(TypeDecorator[datetime]):
@@ -75,8 +75,8 @@ def _as_utc(value: datetime | None) -> datetime | None:
     if value is None:
         return None
     if value.tzinfo is None:
-        return value.replace(tzinfo=timezone.utc)
-    return value.astimezone(timezone.utc)
+        return value.replace(tzinfo=UTC)
+    return value.astimezone(UTC)
 
 
 class Base(DeclarativeBase):

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from sqlalchemy import ColumnElement, Select, exists, func, select, true
+from sqlalchemy import ColumnElement, Select, Subquery, exists, func, select, true
 from sqlalchemy.orm import Session, aliased
 
 from feasibility.store.models import CheckRun, FindingRow, ProposalRecord, ProposalVersion, RequestOutcome, User
@@ -113,7 +113,7 @@ def _runs(proposal: ProposalRecord) -> Select:
     )
 
 
-def _latest_versions():  # type: ignore[no-untyped-def]
+def _latest_versions() -> Subquery:
     return (
         select(ProposalVersion.proposal_ref.label("proposal_ref"), func.max(ProposalVersion.id).label("version_id"))
         .group_by(ProposalVersion.proposal_ref)

@@ -10,7 +10,7 @@ needs any role; changes are filtered to the proposals the caller may read.
 
 from __future__ import annotations
 
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 from flask import Blueprint, abort, current_app, request
@@ -212,7 +212,7 @@ def change_json(change: VerdictChange, record: ProposalRecord) -> dict[str, Any]
     """One change as the API shows it."""
     recorded = change.recorded_at
     if recorded is not None and recorded.tzinfo is None:
-        recorded = recorded.replace(tzinfo=timezone.utc)
+        recorded = recorded.replace(tzinfo=UTC)
     return {
         "id": change.id,
         "proposal_id": record.proposal_id,
@@ -257,8 +257,8 @@ def _parse_time(raw: Any, field: str) -> datetime | None:
     except ValueError:
         raise DocumentError([Problem(field, "must be an ISO 8601 time, e.g. 2027-05-01T00:00:00Z")], "query") from None
     if moment.tzinfo is None:
-        moment = moment.replace(tzinfo=timezone.utc)
-    return moment.astimezone(timezone.utc)
+        moment = moment.replace(tzinfo=UTC)
+    return moment.astimezone(UTC)
 
 
 def _schedule_version(session: Session, semester: str, arg: str) -> ScheduleVersion | None:

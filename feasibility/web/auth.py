@@ -15,8 +15,8 @@ from __future__ import annotations
 import hashlib
 import secrets
 from collections.abc import Callable
-from functools import wraps
 from datetime import datetime
+from functools import wraps
 from typing import Any, TypeVar
 
 from flask import abort, g, request, session
@@ -106,7 +106,10 @@ def revoke_tokens(session: Session, *, token_id: int | None = None, user: User |
     if (token_id is None) == (user is None):
         raise ValueError("give a token id or a user, not both")
     query = select(ApiToken).where(ApiToken.revoked_at.is_(None)).order_by(ApiToken.id)
-    query = query.where(ApiToken.id == token_id) if token_id is not None else query.where(ApiToken.user_id == user.id)  # type: ignore[union-attr]
+    if token_id is not None:
+        query = query.where(ApiToken.id == token_id)
+    elif user is not None:
+        query = query.where(ApiToken.user_id == user.id)
     tokens = list(session.scalars(query))
     now: datetime = utcnow()
     for token in tokens:
@@ -117,7 +120,9 @@ def revoke_tokens(session: Session, *, token_id: int | None = None, user: User |
 
 def check_password(user: User, password: str) -> bool:
     """Whether ``password`` is the user's (False for users without a password)."""
-    return bool(user.password_hash) and check_password_hash(user.password_hash, password)
+    if not user.password_hash:
+        return False
+    return check_password_hash(user.password_hash, password)
 
 
 def create_token(session: Session, user: User, label: str | None = None) -> str:

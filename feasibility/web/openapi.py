@@ -256,7 +256,8 @@ from feasibility.web.admin_api import OPENAPI_PATHS as _ADMIN_PATHS  # noqa: E40
 
 _PATHS.update(_ADMIN_PATHS)
 
-from feasibility.web.access_api import OPENAPI_PATHS as _ACCESS_PATHS, OPENAPI_SCHEMAS as _ACCESS_SCHEMAS  # noqa: E402 - tokens, passwords
+from feasibility.web.access_api import OPENAPI_PATHS as _ACCESS_PATHS  # noqa: E402 - tokens, passwords
+from feasibility.web.access_api import OPENAPI_SCHEMAS as _ACCESS_SCHEMAS  # noqa: E402
 
 _PATHS.update(_ACCESS_PATHS)
 _API_SCHEMAS.update(_ACCESS_SCHEMAS)

@@ -14,8 +14,9 @@ from __future__ import annotations
 import hashlib
 import secrets
 from datetime import datetime, timedelta
+from typing import Any, cast
 
-from sqlalchemy import delete, or_, select, update
+from sqlalchemy import CursorResult, delete, or_, select, update
 from sqlalchemy.orm import Session
 
 from feasibility.store.models import PageSession, User, utcnow
@@ -85,23 +86,23 @@ def user_for_session(db: Session, raw_id: str, *, now: datetime | None = None) -
 
 def end_session(db: Session, raw_id: str) -> bool:
     """Revoke the session ``raw_id`` (signing out); whether a live one was found."""
-    result = db.execute(
+    result = cast(CursorResult[Any], db.execute(
         update(PageSession)
         .where(PageSession.id_hash == hash_session_id(raw_id), PageSession.revoked_at.is_(None))
         .values(revoked_at=utcnow())
         .execution_options(synchronize_session=False)
-    )
+    ))
     return bool(result.rowcount)
 
 
 def revoke_user_sessions(db: Session, user_id: int) -> int:
     """Revoke every live session of the user (after a password change); how many were live."""
-    result = db.execute(
+    result = cast(CursorResult[Any], db.execute(
         update(PageSession)
         .where(PageSession.user_id == user_id, PageSession.revoked_at.is_(None), PageSession.expires_at > utcnow())
         .values(revoked_at=utcnow())
         .execution_options(synchronize_session=False)
-    )
+    ))
     return int(result.rowcount or 0)
 
 

@@ -306,7 +306,8 @@ def _legend_below(fig: Figure, ax: Any) -> None:
 def figures_kept() -> Iterator[list[Figure]]:
     """Within the block, this thread's drawing functions keep each figure they draw (in order) in the list given, and return "" (no SVG)."""
     previous = getattr(_kept, "figures", None)
-    _kept.figures = kept = []
+    kept: list[Figure] = []
+    _kept.figures = kept
     try:
         yield kept
     finally:

@@ -16,7 +16,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 from sqlalchemy import delete, func, select
@@ -87,5 +87,5 @@ def _failures(db: Session, column: InstrumentedAttribute[str], key: str, since: 
     if isinstance(latest, str):  # SQLite gives the max of a DateTime column back as text
         latest = datetime.fromisoformat(latest)
     if latest is not None and latest.tzinfo is None:
-        latest = latest.replace(tzinfo=timezone.utc)  # every stored time is UTC
+        latest = latest.replace(tzinfo=UTC)  # every stored time is UTC
     return int(count or 0), latest

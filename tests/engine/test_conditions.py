@@ -18,17 +18,16 @@ from typing import Any
 
 import pytest
 
-from feasibility.documents import Instrument, InstrumentSchedule, Observatory, ObservationRequest, Proposal, load_document, parse_document
+from feasibility.documents import Instrument, InstrumentSchedule, ObservationRequest, Observatory, Proposal, load_document, parse_document
 from feasibility.engine import check_proposal, wording
 from feasibility.engine.conditions import Conditions
-from feasibility.engine.spectral_curves import curves_for
 from feasibility.engine.sensitivity import (
     assess_exposure,
     resolution_element_pixels,
     saturation_level_e,
 )
+from feasibility.engine.spectral_curves import curves_for
 from feasibility.results import Level, RequestResult
-
 from test_exposure import OBSERVATORY, _request  # the hand-built observatory (input only)
 
 ARCSEC_PER_RAD = 206264.806

@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 import pytest
 
-from feasibility.documents import Observatory, ObservationRequest, parse_document
+from feasibility.documents import ObservationRequest, Observatory, parse_document
 from feasibility.engine import photometry
 from feasibility.engine.conditions import Conditions
 from feasibility.engine.exposure_checks import (

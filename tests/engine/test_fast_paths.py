@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 import pytest
 
-from feasibility.documents import InstrumentSchedule, Observatory, ObservationRequest, parse_document
+from feasibility.documents import InstrumentSchedule, ObservationRequest, Observatory, parse_document
 from feasibility.engine import sky_findings
 from feasibility.engine.airmass import limit_altitude
 from feasibility.engine.sky_checks import measure_sky, night_availability

@@ -11,7 +11,7 @@ from typing import Any
 import numpy as np
 import pytest
 
-from feasibility.documents import InstrumentSchedule, Observatory, ObservationRequest, Proposal, parse_document
+from feasibility.documents import InstrumentSchedule, ObservationRequest, Observatory, Proposal, parse_document
 from feasibility.engine import check_proposal, sky_checks, wording
 from feasibility.engine.sky_checks import measure_sky, night_availability
 from feasibility.results import Level

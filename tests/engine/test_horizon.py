@@ -98,6 +98,6 @@ def test_asymmetric_profile_against_a_direct_count(grid_2027a, demo_observatory:
     # Reference: a direct count over the grid's instants with the profile evaluated segment by segment.
     assert sky.visible.sum() == pytest.approx(direct, abs=2 * grid_2027a.step_hours)
     # The profile matters here: with a flat 8° floor (its lowest point) there would be more hours.
-    flat = np.count_nonzero((altitude >= max(lowest, 8.0))) * grid_2027a.step_hours
+    flat = np.count_nonzero(altitude >= max(lowest, 8.0)) * grid_2027a.step_hours
     assert direct < flat - 10.0
     assert math.isfinite(sky.visible.sum())

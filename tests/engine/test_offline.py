@@ -97,6 +97,5 @@ def test_sky_grid_past_the_bundled_table_logs_once(
 def test_unrelated_warnings_still_propagate() -> None:
     import warnings
 
-    with pytest.raises(UserWarning):
-        with offline.log_astropy_warnings():
-            warnings.warn("not astropy's", UserWarning)
+    with pytest.raises(UserWarning), offline.log_astropy_warnings():
+        warnings.warn("not astropy's", UserWarning, stacklevel=1)

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 from feasibility.documents import DocumentError, Observatory, parse_document
-from feasibility.engine.exposure_checks import fraction_seeing_better, seeing_fwhm_arcsec, diffraction_fwhm_arcsec
+from feasibility.engine.exposure_checks import diffraction_fwhm_arcsec, fraction_seeing_better, seeing_fwhm_arcsec
 from feasibility.engine.simulate import BLOCK, run_realisations, simulate_semester
 from feasibility.engine.simulate_dispatch import dispatch, dispatch_one, draw_lottery, slot_order
 from feasibility.engine.simulate_plan import Plan, PlanRequest, seeing_limit_ln
@@ -253,9 +253,10 @@ def test_the_climate_fields_are_optional_and_default_to_independent_nights(demo_
 
 
 def test_demo_semester_offers_the_scheduled_true_night(demo_observatory: Observatory, demo_schedule, grid_2027a) -> None:
+    from pathlib import Path
+
     from feasibility.documents import Proposal, load_document
     from tests.engine.conftest import DEMO_DATA
-    from pathlib import Path
 
     proposals = [load_document(Proposal, Path(str(p))) for p in sorted((DEMO_DATA / "proposals").iterdir()) if p.name.endswith(".yaml")]
     proposals = [p for p in proposals if p.semester == "2027A"]

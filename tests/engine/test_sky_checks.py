@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 import pytest
 
-from feasibility.documents import InstrumentSchedule, Observatory, ObservationRequest, parse_document
+from feasibility.documents import InstrumentSchedule, ObservationRequest, Observatory, parse_document
 from feasibility.engine import sky_checks
 from feasibility.engine.sky_checks import level_for_hours, measure_sky, night_availability
 from feasibility.results import Level

@@ -9,7 +9,7 @@ night ends in May, so that some nights have no instants at all.
 from __future__ import annotations
 
 import math
-from datetime import date
+from datetime import UTC, date
 
 import numpy as np
 import pytest
@@ -75,7 +75,7 @@ def test_visible_hours_per_night_from_masks_match_a_direct_count(northern_grid: 
 
 
 def test_time_windows_include_both_ends(northern_grid: skygrid.SkyGrid) -> None:
-    from datetime import datetime, timedelta, timezone
+    from datetime import datetime, timedelta
 
     from feasibility.documents import ObservationRequest, parse_document
     from feasibility.engine.sky_checks import _in_windows
@@ -84,7 +84,7 @@ def test_time_windows_include_both_ends(northern_grid: skygrid.SkyGrid) -> None:
     unix_epoch_mjd = 40587.0
 
     def moment(value: float) -> str:
-        return (datetime(1970, 1, 1, tzinfo=timezone.utc) + timedelta(days=value - unix_epoch_mjd)).isoformat()
+        return (datetime(1970, 1, 1, tzinfo=UTC) + timedelta(days=value - unix_epoch_mjd)).isoformat()
 
     start, end = float(mjd[100]), float(mjd[130])
     request = parse_document(ObservationRequest, {

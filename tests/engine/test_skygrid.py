@@ -32,8 +32,8 @@ TARGETS = [
 @pytest.fixture(scope="module")
 def sampled(grid_2027a: skygrid.SkyGrid):
     """Every 6th grid instant over the whole semester, as astropy times and an AltAz frame."""
-    from astropy.coordinates import AltAz, EarthLocation
     import astropy.units as u
+    from astropy.coordinates import AltAz, EarthLocation
     from astropy.time import Time
 
     index = np.arange(0, grid_2027a.mjd.size, 6)

@@ -19,9 +19,9 @@ from flask import Flask
 from flask.testing import FlaskClient
 from hypothesis import given
 from hypothesis import strategies as st
-from web.support import add_user, csrf_from, sign_in
 
 from feasibility.documents.problems import MAX_PROBLEMS
+from web.support import add_user, csrf_from, sign_in
 
 from . import tally
 from .mutations import fuzz, poisoned

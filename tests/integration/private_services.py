@@ -7,6 +7,7 @@ ourselves) from a temporary directory it owns, on its own port and socket direct
 
 from __future__ import annotations
 
+import contextlib
 import glob
 import os
 import shutil
@@ -89,10 +90,8 @@ class PrivatePostgres:
         self._as_postgres(str(self.bin / "pg_ctl"), "-D", str(self.root / "data"), "-m", mode, "-w", "stop")
 
     def destroy(self) -> None:
-        try:
+        with contextlib.suppress(subprocess.CalledProcessError, AttributeError):
             self.stop("immediate")
-        except (subprocess.CalledProcessError, AttributeError):
-            pass
         shutil.rmtree(self.root, ignore_errors=True)
 
 

@@ -18,12 +18,11 @@ from typing import Any
 
 import pytest
 import requests
-
 from integration.conftest import LiveService, live, postgres_url, redis_prefix  # noqa: F401 - fixtures
 
 from .conftest import make_proposal
-from .test_changes_webhooks import SECRET, Receiver
 from .test_admin_api import _without_heron
+from .test_changes_webhooks import SECRET, Receiver
 
 pytestmark = pytest.mark.integration
 

@@ -12,9 +12,9 @@ from typing import Any
 from celery.schedules import crontab
 from flask import Flask
 
+from feasibility.documents import InstrumentSchedule
 from feasibility.store.db import session_scope
 from feasibility.store.hashing import document_hash
-from feasibility.documents import InstrumentSchedule
 from feasibility.store.models import ScheduleVersion
 
 from .test_admin_api import _without_heron

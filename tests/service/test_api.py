@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Callable
+from datetime import UTC
 
 import yaml
 from flask import Flask
@@ -267,10 +268,10 @@ def test_schema_and_observatory_problems_come_in_one_answer(app: Flask, client: 
 def test_times_are_answered_in_utc_on_every_store(app: Flask, client: FlaskClient, make_token: Callable[..., str], fake_engine: FakeEngine) -> None:
     # The PostgreSQL test database speaks America/Santiago (tests/conftest.py) and SQLite keeps no zone:
     # the API answers the same instants in UTC either way, as ISO 8601 with the offset +00:00.
-    from datetime import datetime, timedelta, timezone
+    from datetime import datetime, timedelta
 
     token = make_token("proposer")
-    before = datetime.now(timezone.utc)
+    before = datetime.now(UTC)
     run_id = client.post("/api/v1/proposals", json=proposal("Z-1"), headers=auth(token)).json["run"]["id"]
     assert app.extensions["feasibility.dispatch"].wait_idle(10)
     run = client.get(f"/api/v1/runs/{run_id}", headers=auth(token)).json
@@ -278,5 +279,5 @@ def test_times_are_answered_in_utc_on_every_store(app: Flask, client: FlaskClien
     for text in (run["queued_at"], run["finished_at"]):
         assert text.endswith("+00:00"), text
         moment = datetime.fromisoformat(text)
-        assert before - timedelta(seconds=1) <= moment <= datetime.now(timezone.utc)
+        assert before - timedelta(seconds=1) <= moment <= datetime.now(UTC)
     assert json.dumps(view).count("-03:00") + json.dumps(view).count("-04:00") == 0

@@ -68,9 +68,9 @@ def test_a_read_only_session_may_not_write(tmp_path: Path) -> None:
 
     app = _app(f"sqlite:///{tmp_path / 'ro.sqlite'}", create=True)
     with app.app_context():
-        with pytest.raises(OperationalError, match="readonly"):  # SQLite's message for PRAGMA query_only
-            with session_scope(read_only=True) as session:
-                session.execute(text("DELETE FROM users"))
+        # "readonly" is SQLite's message for PRAGMA query_only
+        with pytest.raises(OperationalError, match="readonly"), session_scope(read_only=True) as session:
+            session.execute(text("DELETE FROM users"))
         with session_scope() as session:  # the same pooled connection writes again afterwards
             session.execute(text("DELETE FROM users"))
     app.extensions["feasibility.db"]["engine"].dispose()

@@ -58,9 +58,8 @@ def test_read_only_sessions_refuse_writes_and_stream_in_batches(app: Flask) -> N
     with app.app_context():
         with session_scope() as session:
             session.add_all(User(name=f"user-{i}", role="proposer") for i in range(7))
-        with pytest.raises(DBAPIError, match="read-only transaction|readonly database"):
-            with session_scope(read_only=True) as session:
-                session.execute(text("DELETE FROM users"))
+        with pytest.raises(DBAPIError, match="read-only transaction|readonly database"), session_scope(read_only=True) as session:
+            session.execute(text("DELETE FROM users"))
         with session_scope(read_only=True) as session:
             # yield_per streams (a server-side cursor on PostgreSQL, which needs a transaction block)
             names = [user.name for user in session.scalars(select(User).order_by(User.id).execution_options(yield_per=3))]

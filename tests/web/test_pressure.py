@@ -86,7 +86,7 @@ def test_overview_counts_only_feasible_and_marginal_requests_by_lunar_time(
         assert line.hours_offered is not None and abs(sum(line.ra_offered or []) - line.hours_offered) < 1e-6
     for name, line in by_instrument.items():
         # Each time of night falls in exactly one lunar time, so the three add up to the instrument's night hours.
-        split = sum(l.hours_offered or 0.0 for l in data.lunar if l.instrument == name)
+        split = sum(row.hours_offered or 0.0 for row in data.lunar if row.instrument == name)
         assert abs(split - (line.hours_offered or 0.0)) < 0.02 * (line.hours_offered or 1.0), name
 
 

@@ -9,7 +9,8 @@ doubling to 15 min) are our settings, common practice rather than a published ru
 
 from __future__ import annotations
 
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
+
 from flask import Flask
 from flask.testing import FlaskClient
 
@@ -87,7 +88,7 @@ def test_wait_doubles_with_each_failure_past_the_limit() -> None:
 
 def test_waits_counted_from_the_latest_failure_within_the_window(app: Flask) -> None:
     limits = Limits(per_account=2, per_address=100, window=timedelta(minutes=10), first_delay=timedelta(seconds=30))
-    t0 = datetime(2027, 3, 1, 22, 0, tzinfo=timezone.utc)
+    t0 = datetime(2027, 3, 1, 22, 0, tzinfo=UTC)
     with app.app_context(), session_scope() as session:
         record_failure(session, "rita", "192.0.2.1", limits, now=t0)
         assert seconds_to_wait(session, "rita", "192.0.2.1", limits, now=t0) == 0  # one failure: no wait

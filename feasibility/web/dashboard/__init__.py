@@ -32,8 +32,11 @@ def _setup(state: object) -> None:
     chance.init_app(app)  # the chance of completion (semester simulation) for the page partials
 
 
+# One import per group of pages, each with its note, so import sorting is off here.
+# isort: off
 from feasibility.web.dashboard import upload, views  # noqa: E402,F401  (routes attach to bp)
 from feasibility.web.dashboard import schedule_changes  # noqa: E402,F401  (re-check helper's page)
 from feasibility.web.dashboard import packet, review_pages  # noqa: E402,F401  (technical review and meeting packet)
 from feasibility.web.dashboard import schedule_admin  # noqa: E402,F401  (admins' schedule upload and calendar)
 from feasibility.web.dashboard import chance_form  # noqa: E402,F401  (the overview's form asking for a simulation)
+# isort: on

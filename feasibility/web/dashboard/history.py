@@ -11,7 +11,7 @@ observation request its verdict and key figures (``RequestOutcome`` columns).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import select
@@ -54,7 +54,7 @@ class RunEntry:
     def finished_at(self) -> datetime | None:
         moment = self.run.finished_at
         if moment is not None and moment.tzinfo is None:
-            moment = moment.replace(tzinfo=timezone.utc)
+            moment = moment.replace(tzinfo=UTC)
         return moment
 
 

@@ -127,7 +127,7 @@ def _lunar_split(grid: Any, radec_from_vector: Any) -> dict[str, dict[str, list[
     n = grid.n_nights
     for twilight, limit in TWILIGHT_ALTITUDE.items():
         view = grid.samples(limit)
-        up = view.up if hasattr(view, "up") else view.basis[:, 2, :]
+        up = view.up
         ra, _ = radec_from_vector(up)
         cell = view.night_index.astype(np.int64) * 24 + (np.floor(ra / 15.0).astype(np.int64) % 24)
         taken = np.zeros(view.night_index.shape, dtype=bool)
@@ -155,7 +155,7 @@ def _compute(observatory: Observatory, first: date, last: date) -> SemesterOffer
 
     view = grid.samples(TWILIGHT_ALTITUDE["astronomical"])
     # The zenith's direction (the "up" row of the ICRS-to-horizon rotation): its right ascension is on the meridian.
-    up = view.up if hasattr(view, "up") else view.basis[:, 2, :]  # (the grid's layout changed once; read either)
+    up = view.up
     meridian_ra, _ = radec_from_vector(up)
     ra_bin = np.floor(meridian_ra / 15.0).astype(int) % 24
     dark = ~view.moon_up | (view.moon_illumination <= DARK_MOON_ILLUMINATION)

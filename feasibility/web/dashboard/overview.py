@@ -16,10 +16,10 @@ from sqlalchemy import case, func, select
 from sqlalchemy.orm import Session
 
 from feasibility.documents.angles import parse_right_ascension
+from feasibility.documents.proposal import SKY_ILLUMINATION
 from feasibility.service.current import current_observatory, current_schedule, observatory_of, schedule_of
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, RequestOutcome
 from feasibility.store.standing import standing_run_id
-from feasibility.documents.proposal import SKY_ILLUMINATION
 from feasibility.web.dashboard.offer import LUNAR_TIMES, instrument_hours_offered, lunar_offer, semester_offer
 from feasibility.web.dashboard.queries import LEVELS
 

@@ -135,7 +135,7 @@ def _write_proposal(writer: PacketWriter, session: Session, record: ProposalReco
         for note in notes:
             where = f"request {note.request_label}" if note.request_label else "whole proposal"
             writer.line(f"Note ({where}, {note.author.name}, {when(note.written_at)}): {note.text}", indent=0.02)
-    for index, item in enumerate(_requests_of(run)):
+    for item in _requests_of(run):
         writer.gap()
         writer.line(f"Request {item['label']}: {item['target']} with {item['instrument']} — {item['verdict']}", size=11, weight="bold")
         for finding in item["findings"]:
@@ -146,7 +146,7 @@ def _write_proposal(writer: PacketWriter, session: Session, record: ProposalReco
             if finding.get("suggestion"):
                 writer.line(f"Suggestion: {finding['suggestion']}", size=8.5, indent=0.03)
         with plots.figures_kept() as figures:
-            for kind, (title, draw) in PLOT_KINDS.items():
+            for kind, (_title, draw) in PLOT_KINDS.items():
                 if item["plots"][kind]:
                     draw(item["series"], item["figures"], item["target"])
         for figure in figures:

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import io
 import textwrap
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
@@ -93,7 +93,7 @@ class PacketWriter:
 
     def _finish_page(self) -> None:
         if self._fig is not None:
-            stamp = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+            stamp = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
             self._fig.text(0.5, _MARGIN_Y / 2, f"{self._footer} · page {self.pages} · printed {stamp}", fontsize=7, ha="center",
                            color="#555555")
             with plots.DRAWING_LOCK:

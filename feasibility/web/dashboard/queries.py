@@ -7,9 +7,9 @@ of proposals costs one page of rows in Python. Only stored results are read.
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Generator
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import Select, and_, case, exists, func, literal, or_, select
@@ -163,7 +163,7 @@ def list_rows(session: Session, user: User, query: ListQuery) -> list[ProposalRo
     return [_row(values) for values in session.execute(_filtered(user, query, statement))]
 
 
-def iter_rows(session: Session, user: User, query: ListQuery) -> Iterator[ProposalRow]:
+def iter_rows(session: Session, user: User, query: ListQuery) -> Generator[ProposalRow]:
     """Every row of the filtered list, in order (for the exports), fetched in batches.
 
     Close the iterator when stopping early (``contextlib.closing``): that closes the
@@ -262,7 +262,7 @@ _SORT_COLUMNS: dict[str, Any] = {
 _NULLS_LAST = frozenset({"failing", "pressure"})
 
 
-def _base() -> Select[Any]:
+def _base() -> Select:
     return (
         select(
             ProposalRecord.proposal_id,
@@ -353,7 +353,7 @@ def _like_escape(text: str) -> str:
 def _aware(moment: datetime | None) -> datetime | None:
     """SQLite gives naive UTC times back; make them aware."""
     if moment is not None and moment.tzinfo is None:
-        return moment.replace(tzinfo=timezone.utc)
+        return moment.replace(tzinfo=UTC)
     return moment
 
 

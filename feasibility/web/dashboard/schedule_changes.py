@@ -6,14 +6,13 @@ it reads stored schedule versions and recorded verdict changes only.
 
 from __future__ import annotations
 
+from datetime import datetime
 from typing import Any
 
 from flask import abort, render_template
 
 from feasibility.service.current import current_schedule, schedule_of
 from feasibility.service.rechecks import previous_schedule, version_dict
-from datetime import datetime
-
 from feasibility.service.schedule_diff import schedule_diff, schedule_summary
 from feasibility.web.admin_api import changes_since
 from feasibility.web.auth_pages import current_user, db, sign_in_required

@@ -16,16 +16,16 @@ from sqlalchemy import select
 from werkzeug.exceptions import HTTPException
 
 from feasibility.service.current import current_observatory, observatory_of
+from feasibility.store import standing
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
-from feasibility.store import standing
 from feasibility.web import auth_pages, plots
-from feasibility.web.auth_pages import check_csrf, current_user, db, sees_all, security_headers, sign_in_required
+from feasibility.web.auth_pages import check_csrf, current_user, db, security_headers, sees_all, sign_in_required
 from feasibility.web.dashboard import bp
 from feasibility.web.dashboard.history import run_history
 from feasibility.web.dashboard.overview import semester_overview
-from feasibility.web.dashboard.review_pages import page_review
 from feasibility.web.dashboard.queries import CHECK_NAMES, LEVELS, SORT_KEYS, ListQuery, count_rows, iter_rows, list_rows, semesters
+from feasibility.web.dashboard.review_pages import page_review
 
 __all__ = ["PLOT_KINDS"]
 
@@ -259,12 +259,12 @@ def _verdict_table(data: Any) -> list[list[Any]]:
 
 def _instrument_table(data: Any) -> list[list[Any]]:
     head = ["instrument", "requests", "hours_requested", "hours_needed", "hours_offered", "requested_over_offered"]
-    return [head, *([l.instrument, l.requests, l.hours_requested, l.hours_needed, l.hours_offered, l.pressure] for l in data.instruments)]
+    return [head, *([row.instrument, row.requests, row.hours_requested, row.hours_needed, row.hours_offered, row.pressure] for row in data.instruments)]
 
 
 def _lunar_table(data: Any) -> list[list[Any]]:
     head = ["instrument", "lunar_time", "requests_feasible_or_marginal", "hours_requested", "hours_offered", "requested_over_offered"]
-    return [head, *([l.instrument, l.lunar_time, l.requests, l.hours_requested, l.hours_offered, l.pressure] for l in data.lunar)]
+    return [head, *([row.instrument, row.lunar_time, row.requests, row.hours_requested, row.hours_offered, row.pressure] for row in data.lunar)]
 
 
 def _ra_table(data: Any) -> list[list[Any]]:
@@ -354,7 +354,7 @@ def _requests_of(run: CheckRun | None) -> list[dict[str, Any]]:
     for raw in run.result.get("requests") or []:
         if not isinstance(raw, dict):
             continue
-        series = raw.get("series") if isinstance(raw.get("series"), dict) else {}
+        series = given if isinstance(given := raw.get("series"), dict) else {}
         figures = raw.get("figures") if isinstance(raw.get("figures"), dict) else {}
         findings = [f for f in raw.get("findings") or [] if isinstance(f, dict)]
         findings.sort(key=lambda f: -LEVELS.index(f["level"]) if f.get("level") in LEVELS else 0)  # worst first: the "why"
