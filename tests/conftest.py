@@ -23,7 +23,6 @@ import shutil
 import socket
 import subprocess
 import tempfile
-import uuid
 from collections.abc import Callable, Iterator
 from pathlib import Path
 
@@ -32,19 +31,10 @@ from click.testing import CliRunner, Result
 from flask import Flask
 from flask.testing import FlaskClient
 
-POSTGRES_URL = os.environ.get("TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres")
-IN_CI = os.environ.get("CI", "").lower() in ("1", "true", "yes")
+from tests.services import scratch_postgres_database, service_unavailable
 
 #: The stores every API and page test runs on.
 DATABASES = ["sqlite", "postgresql"]
-
-
-def service_unavailable(what: str, error: BaseException) -> None:
-    """Skip the test because ``what`` cannot be reached — or fail it when CI is set (a missing service never passes CI)."""
-    message = f"{what} is not reachable: {error}"
-    if IN_CI:
-        pytest.fail(f"{message} (CI is set: the service is required)", pytrace=False)
-    pytest.skip(message)
 
 
 def _free_port() -> int:
@@ -125,58 +115,27 @@ def _dispose_engines_made_by_the_test() -> Iterator[None]:
 
 @pytest.fixture(scope="session")
 def postgres_database() -> Iterator[str]:
-    """A new, uniquely named PostgreSQL database for this test session with the models' tables; dropped at the end."""
-    from sqlalchemy import create_engine, text
-    from sqlalchemy.engine import make_url
+    """A new, uniquely named PostgreSQL database for this test session with the models' tables; dropped at the end.
+
+    Its sessions speak a time zone far from UTC (UTC-4/-3, and DST in the semester), so a time
+    read back and shown or compared as if it were UTC shows up in the tests.
+    """
+    from sqlalchemy import create_engine
 
     from feasibility.store.models import Base
 
-    admin = create_engine(POSTGRES_URL, isolation_level="AUTOCOMMIT")
-    try:
-        with admin.connect() as connection:
-            connection.execute(text("SELECT 1"))
-    except Exception as exc:  # noqa: BLE001 - any connection failure means "not available"
-        admin.dispose()
-        service_unavailable(f"PostgreSQL at {POSTGRES_URL}", exc)
-    name = f"feasibility_test_{uuid.uuid4().hex[:12]}"
-    with admin.connect() as connection:
-        connection.execute(text(f'CREATE DATABASE "{name}"'))
-        # Sessions of this database speak a time zone far from UTC (UTC-4/-3, and DST in the semester),
-        # so a time read back and shown or compared as if it were UTC shows up in the tests.
-        connection.execute(text(f"ALTER DATABASE \"{name}\" SET timezone TO 'America/Santiago'"))
-    url = make_url(POSTGRES_URL).set(database=name).render_as_string(hide_password=False)
-    try:
+    with scratch_postgres_database(timezone="America/Santiago") as url:
         engine = create_engine(url)
         Base.metadata.create_all(engine)
         engine.dispose()
         yield url
-    finally:
-        with admin.connect() as connection:
-            connection.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
-        admin.dispose()
 
 
 @pytest.fixture
 def new_postgres_database() -> Iterator[str]:
     """The URL of a new, empty PostgreSQL database of its own (no tables), dropped after the test."""
-    from sqlalchemy import create_engine, text
-    from sqlalchemy.engine import make_url
-    from sqlalchemy.pool import NullPool
-
-    admin = create_engine(POSTGRES_URL, isolation_level="AUTOCOMMIT", poolclass=NullPool)
-    name = f"feasibility_test_{uuid.uuid4().hex[:12]}"
-    try:
-        with admin.connect() as connection:
-            connection.execute(text(f'CREATE DATABASE "{name}"'))
-    except Exception as exc:  # noqa: BLE001 - any connection failure means "not available"
-        admin.dispose()
-        service_unavailable(f"PostgreSQL at {POSTGRES_URL}", exc)
-    try:
-        yield make_url(POSTGRES_URL).set(database=name).render_as_string(hide_password=False)
-    finally:
-        with admin.connect() as connection:
-            connection.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
-        admin.dispose()
+    with scratch_postgres_database() as url:
+        yield url
 
 
 @pytest.fixture(scope="session")

@@ -21,38 +21,14 @@ from typing import Any
 import pytest
 import requests
 
-POSTGRES_URL = os.environ.get("TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/postgres")
-REDIS_URL = os.environ.get("TEST_REDIS_URL", "redis://127.0.0.1:6379/0")
-IN_CI = os.environ.get("CI", "").lower() in ("1", "true", "yes")
-
-
-def _unavailable(what: str, error: Exception) -> None:
-    message = f"{what} is not reachable: {error}"
-    if IN_CI:
-        pytest.fail(f"{message} (CI is set: integration services are required)", pytrace=False)
-    pytest.skip(message)
+from tests.services import REDIS_URL, scratch_postgres_database, service_unavailable
 
 
 @pytest.fixture(scope="session")
 def postgres_url() -> Iterator[str]:
-    """A new, uniquely named PostgreSQL database for this session, dropped afterwards."""
-    from sqlalchemy import create_engine, text
-    from sqlalchemy.engine import make_url
-
-    admin = create_engine(POSTGRES_URL, isolation_level="AUTOCOMMIT")
-    try:
-        with admin.connect() as connection:
-            connection.execute(text("SELECT 1"))
-    except Exception as exc:  # noqa: BLE001 - any connection failure means "not available"
-        admin.dispose()
-        _unavailable(f"PostgreSQL at {POSTGRES_URL}", exc)
-    name = f"feasibility_test_{uuid.uuid4().hex[:12]}"
-    with admin.connect() as connection:
-        connection.execute(text(f'CREATE DATABASE "{name}"'))
-    yield make_url(POSTGRES_URL).set(database=name).render_as_string(hide_password=False)
-    with admin.connect() as connection:
-        connection.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
-    admin.dispose()
+    """A new, uniquely named PostgreSQL database for this session (no tables: the tests migrate it), dropped afterwards."""
+    with scratch_postgres_database() as url:
+        yield url
 
 
 @pytest.fixture(scope="session")
@@ -65,7 +41,7 @@ def redis_prefix() -> Iterator[str]:
         client.ping()
     except Exception as exc:  # noqa: BLE001
         client.close()
-        _unavailable(f"Redis at {REDIS_URL}", exc)
+        service_unavailable(f"Redis at {REDIS_URL}", exc)
     prefix = f"fzt{uuid.uuid4().hex[:10]}"
     yield prefix
     for key in client.scan_iter(f"{prefix}*"):

@@ -34,8 +34,9 @@ from sqlalchemy.exc import SQLAlchemyError
 
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, RequestOutcome
+from tests.services import IN_CI
 
-from .conftest import IN_CI, serve_in_thread, start_workers, stop_workers
+from .conftest import serve_in_thread, start_workers, stop_workers
 from .private_services import PrivatePostgres, PrivateRedis, missing_tools
 
 pytestmark = pytest.mark.integration
