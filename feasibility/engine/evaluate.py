@@ -193,6 +193,8 @@ def check_request(
         "hours_visible": visible,
         "hours_usable": usable,
         "hours_observable": observable,
+        "hours_night": np.round(sky.hours_night, 3).tolist(),
+        "clear_fraction": np.round(sky.weather, 3).tolist(),
         "moon_illumination": list(context.moon_illumination),
         "night_curve": sky.night_curve,
         **exposure.series,

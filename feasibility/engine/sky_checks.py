@@ -32,9 +32,10 @@ import numpy as np
 from numpy.typing import NDArray
 
 from feasibility.documents import Instrument, InstrumentSchedule, ObservationRequest, Observatory
-from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
+from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG, Site
 from feasibility.documents.proposal import SKY_ILLUMINATION
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass, limit_airmass, limit_altitude
+from feasibility.engine.horizon import horizon_altitude
 from feasibility.engine.conditions import Conditions, nearest_rank, nearest_rank_index
 from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, optical_path, sky_components_nl
 from feasibility.engine.positions import target_vector
@@ -48,7 +49,7 @@ from feasibility.engine.sky_findings import (
     visibility_finding,
 )
 from feasibility.engine.sky_masks import in_windows, visible_mask, window_nights
-from feasibility.engine.skygrid import SkyGrid
+from feasibility.engine.skygrid import NightSamples, SkyGrid
 from feasibility.engine.spectral_curves import sky_setting
 from feasibility.engine.what_if import SkyProbe
 
@@ -328,7 +329,12 @@ def measure_sky(
             "max_moon_illumination": moon_limit,
             "sky": constraints.sky or "bright",
         },
-        night_curve=_night_curve(grid, vector, hours_usable, hours_observable, hours_visible),
+        night_curve=_night_curve(
+            grid, vector, hours_usable, hours_observable, hours_visible,
+            _NightMarks(view=view, usable=usable, site=site, limit_alt=limit_altitude(constraints.max_airmass, formula),
+                        floor_alt=max(site.min_altitude_deg, telescope.min_altitude_deg), airmass_limit=constraints.max_airmass,
+                        formula=formula),
+        ),
         probe=SkyProbe(
             view=view,
             vector=vector,
@@ -362,17 +368,35 @@ def _moon_illumination_limit(request: ObservationRequest) -> float:
     return limit
 
 
+@dataclass(frozen=True)
+class _NightMarks:
+    """What the night plot marks beside the altitudes: the limits, and which instants were usable."""
+
+    view: NightSamples
+    usable: NDArray[np.bool_]
+    site: Site
+    limit_alt: float
+    floor_alt: float
+    airmass_limit: float
+    formula: str
+
+
 def _night_curve(
     grid: SkyGrid,
     vector: NDArray[np.float64],
     usable: NDArray[np.float64],
     observable: NDArray[np.float64],
     visible: NDArray[np.float64],
+    marks: _NightMarks | None = None,
 ) -> dict[str, object]:
     """Altitudes of the target, the Moon and the Sun through one representative night (for plots).
 
     The night is the one with the most usable hours, else observable, else visible
     hours, else the semester's middle night. The Sun-below-horizon instants are used.
+    With ``marks``, the curve also keeps the airmass limit as an altitude (in the
+    observatory's limit formula), the lowest altitude the site and mount allow, the
+    horizon profile along the target's path, the target's distance from the Moon,
+    which instants were usable, and the site's longitude (for local mean solar time).
     """
     for hours in (usable, observable, visible):
         if hours.any():
@@ -381,13 +405,34 @@ def _night_curve(
     else:
         night = grid.n_nights // 2
     view = grid.samples(0.0)
-    up = view.up[view.night_starts[night] : view.night_starts[night + 1]] @ vector
+    lo, hi = view.night_starts[night], view.night_starts[night + 1]
+    up = view.up[lo:hi] @ vector
     shared = grid.night_sky_curve(night)
-    return {
+    curve: dict[str, object] = {
         "night": shared["night"],
         **{name: list(shared[name]) for name in ("hours_from_midnight", "moon_alt_deg", "sun_alt_deg")},  # type: ignore[call-overload]
         "target_alt_deg": np.degrees(np.arcsin(np.minimum(np.maximum(up, -1.0), 1.0))).round(2).tolist(),
     }
+    if marks is None:
+        return curve
+    moon_cos = np.clip(view.moon[lo:hi] @ vector, -1.0, 1.0)
+    start, stop = marks.view.night_starts[night], marks.view.night_starts[night + 1]
+    usable_mjd = marks.view.mjd[start:stop][marks.usable[start:stop]]
+    curve.update(
+        {
+            "longitude_deg": grid.longitude_deg,
+            "airmass_limit": marks.airmass_limit,
+            "airmass_formula": marks.formula,
+            "limit_altitude_deg": round(marks.limit_alt, 4),
+            "floor_altitude_deg": marks.floor_alt,
+            "moon_separation_deg": np.degrees(np.arccos(moon_cos)).round(2).tolist(),
+            "usable": np.isin(view.mjd[lo:hi], usable_mjd).tolist(),
+        }
+    )
+    if marks.site.horizon:
+        azimuth = np.degrees(np.arctan2(view.east[lo:hi] @ vector, view.north[lo:hi] @ vector))
+        curve["horizon_alt_deg"] = horizon_altitude(marks.site, azimuth).round(2).tolist()
+    return curve
 
 
 def _in_windows(request: ObservationRequest, mjd: NDArray[np.float64]) -> NDArray[np.bool_]:

@@ -31,11 +31,15 @@ from matplotlib import dates as mdates  # noqa: E402  (after the backend choice)
 from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.ticker import MaxNLocator  # noqa: E402
 
+from feasibility.engine.airmass import LIMIT_FORMULAS, limit_altitude  # noqa: E402
+
 __all__ = [
     "DRAWING_LOCK",
+    "INK",
     "PALETTE",
     "figures_kept",
     "instrument_hours_svg",
+    "local_time_offset_hours",
     "night_curve_svg",
     "ra_demand_svg",
     "semester_hours_svg",
@@ -71,11 +75,46 @@ _SIZE = (7.2, 3.4)
 _kept = threading.local()
 
 
-def night_curve_svg(series: Mapping[str, Any], target: str = "target") -> str | None:
-    """Altitude of the target, the Moon and the Sun through one representative night.
+#: The request plots' own colours (night, semester and S/N): chosen to stay apart in lightness as well as hue,
+#: and every line or area also differs by line style or hatching, so the plots read in grey or without colour.
+INK: dict[str, str] = {
+    "target": "#1F3A5F",  # deep blue-black: the target, the plot's main line
+    "moon": "#7A4E9B",  # violet
+    "limit": "#B23A48",  # brick red: the request's airmass limit
+    "floor": "#4D4D4D",  # dark grey: the site's and mount's lowest altitude
+    "ground": "#8A6E4B",  # earth brown: the horizon profile
+    "usable": "#2E8B57",  # sea green: the usable stretch
+    "twilight": "#F1E6C8",  # pale sand: the Sun less than the night's depth below the horizon
+    "night": "#DCE3EC",  # pale slate: true night
+    "weather": "#8FA9C9",
+    "schedule": "#E0B04A",
+    "lunar": "#B8A1D1",
+    "hidden": "#D3D3D3",
+}
 
-    Shades civil, nautical and astronomical twilight (Sun 6°, 12° and 18° below the
-    horizon, U.S. Naval Observatory definitions) and marks the horizon.
+#: Airmasses labelled on the night plot's right-hand scale.
+_AIRMASS_TICKS = (1.0, 1.1, 1.2, 1.5, 2.0, 3.0)
+
+
+def local_time_offset_hours(longitude_deg: float) -> float:
+    """Local mean solar time minus UTC, in hours: the longitude (east positive) over 15° per hour.
+
+    Mean solar time turns with the mean Sun, 360° in 24 hours, so a place 15° east
+    of Greenwich has its mean noon one hour earlier in UTC (definition of local mean time).
+    """
+    return longitude_deg / 15.0
+
+
+def night_curve_svg(series: Mapping[str, Any], target: str = "target") -> str | None:
+    """Altitude of the target (and the Moon) through one representative night, with what limits it.
+
+    Draws the request's airmass limit as an altitude (converted with the observatory's
+    own limit formula when the engine stored it), the lowest altitude the site and
+    mount allow, the horizon profile along the target's path, an airmass scale on the
+    right, the usable stretch shaded, twilight in the background (U.S. Naval Observatory
+    definitions: the Sun 18° down ends astronomical twilight), local mean solar time with
+    UTC under it, and the Moon's distance at its closest during the usable stretch.
+    A target that never rises gets a plain message instead of an empty night.
     """
     curve = series.get("night_curve")
     if not isinstance(curve, Mapping):
@@ -84,71 +123,127 @@ def night_curve_svg(series: Mapping[str, Any], target: str = "target") -> str | 
     target_alt = _floats(curve.get("target_alt_deg"))
     if not hours or len(target_alt) != len(hours):
         return None
-    moon_alt = _floats(curve.get("moon_alt_deg"))
-    sun_alt = _floats(curve.get("sun_alt_deg"))
+    moon_alt = _aligned(curve.get("moon_alt_deg"), hours)
+    sun_alt = _aligned(curve.get("sun_alt_deg"), hours)
+    moon_sep = _aligned(curve.get("moon_separation_deg"), hours)
+    horizon = _aligned(curve.get("horizon_alt_deg"), hours)
+    usable = curve.get("usable")
+    usable_mask = [bool(u) for u in usable] if isinstance(usable, Sequence) and len(usable) == len(hours) else []
     night = curve.get("night")
+    formula = curve.get("airmass_formula") if curve.get("airmass_formula") in LIMIT_FORMULAS else "secant"
+    limit = _number(curve.get("airmass_limit"))
+    limit_alt = limit_altitude(limit, str(formula)) if limit is not None else None
+    floor = _number(curve.get("floor_altitude_deg"))
+    longitude = _number(curve.get("longitude_deg"))
 
     with _LOCK:
-        fig, ax = _figure()
-        if len(sun_alt) == len(hours):
-            _shade_twilight(ax, hours, sun_alt)
-        ax.plot(hours, target_alt, color=PALETTE["blue"], linewidth=2.2, label=f"Target: {_short(target)}")
-        if len(moon_alt) == len(hours):
-            ax.plot(hours, moon_alt, color=PALETTE["purple"], linewidth=1.6, linestyle="--", label="Moon")
-        if len(sun_alt) == len(hours):
-            ax.plot(hours, sun_alt, color=PALETTE["orange"], linewidth=1.4, linestyle=":", label="Sun")
-        ax.axhline(0.0, color=PALETTE["black"], linewidth=0.8)
-        ax.set_ylim(-30, 90)  # the Sun far below the horizon leaves the frame; the shading shows night
+        fig, ax = _figure(size=(7.6, 3.9))
+        if sun_alt:
+            _shade_sky(ax, hours, sun_alt)
+        if horizon:
+            ax.fill_between(hours, 0.0, horizon, color=INK["ground"], alpha=0.35, hatch="\\\\", linewidth=0, label="Horizon profile", gid="horizon")
+        if usable_mask and any(usable_mask):
+            ax.fill_between(hours, 0.0, 90.0, where=usable_mask, step="mid", facecolor=INK["usable"], alpha=0.18,
+                            hatch="//", edgecolor=INK["usable"], linewidth=0, label="Usable stretch", gid="usable")
+        ax.plot(hours, target_alt, color=INK["target"], linewidth=2.4, label=f"Target: {_short(target)}", gid="target")
+        if moon_alt:
+            ax.plot(hours, moon_alt, color=INK["moon"], linewidth=1.5, linestyle="--", label="Moon", gid="moon")
+        if limit_alt is not None and limit is not None:
+            ax.axhline(limit_alt, color=INK["limit"], linewidth=1.6, linestyle="-.", gid="airmass-limit",
+                       label=f"Airmass limit {limit:g} ({LIMIT_FORMULAS[str(formula)]}): {limit_alt:.1f}°")
+        if floor is not None:
+            ax.axhline(floor, color=INK["floor"], linewidth=1.2, linestyle=":", gid="lowest-altitude",
+                       label=f"Lowest altitude allowed (site, mount): {floor:g}°")
+        ax.set_ylim(0, 90)
         ax.set_xlim(min(hours), max(hours))
-        ax.set_xlabel("Hours from local midnight")
         ax.set_ylabel("Altitude (degrees)")
+        _airmass_scale(ax, str(formula))
+        _time_axis(ax, hours, longitude)
+        highest = max((a for a in target_alt if not math.isnan(a)), default=-90.0)
+        if moon_sep and moon_alt and highest > 0.0:
+            _note_moon(ax, hours, target_alt, moon_alt, moon_sep, usable_mask)
+        if highest <= 0.0:
+            ax.text(0.5, 0.55, f"{_short(target)} never rises above the horizon on this night",
+                    transform=ax.transAxes, ha="center", va="center", fontsize=11, color=INK["limit"], gid="never-rises",
+                    bbox={"boxstyle": "round", "facecolor": "white", "edgecolor": INK["limit"]})
+        elif usable_mask and not any(usable_mask):
+            ax.text(0.5, 0.92, "No usable time on this night", transform=ax.transAxes, ha="center", va="top", fontsize=10,
+                    color=INK["limit"], bbox={"boxstyle": "round", "facecolor": "white", "edgecolor": INK["limit"]})
         title = "Altitude through the night"
         if isinstance(night, str) and night:
             title += f" beginning {_short(night)}"
         ax.set_title(title)
-        _legend_below(fig, ax)
+        _legend_below(fig, ax, max_cols=3)
         return _svg(fig)
 
 
 def semester_hours_svg(series: Mapping[str, Any]) -> str | None:
-    """Hours usable per night across the semester, with the Moon's illuminated fraction on a second axis."""
+    """Per night across the semester, where the night's hours go, stacked from the bottom up.
+
+    Clear usable hours (usable hours times the month's clear fraction), then the hours
+    lost to the weather, to the schedule (instrument not mounted or telescope closed),
+    to the Moon's constraints, and the hours the target is not visible (below the limits,
+    outside the windows). Stored results from older versions lack the night and clear
+    hours: their plot starts at the visible hours and leaves the weather out.
+    """
     nights = _dates(series.get("nights"))
-    hours = _floats(series.get("hours_usable"))
-    if not nights or len(hours) != len(nights):
+    usable = _floats(series.get("hours_usable"))
+    if not nights or len(usable) != len(nights):
         return None
-    illumination = _floats(series.get("moon_illumination"))
+    n = len(nights)
+    observable = _aligned(series.get("hours_observable"), usable) or usable
+    visible = _aligned(series.get("hours_visible"), usable) or observable
+    night_hours = _aligned(series.get("hours_night"), usable)
+    clear = _aligned(series.get("clear_fraction"), usable)
+    zero = [0.0] * n
+    kept = [u * c for u, c in zip(usable, clear)] if clear else usable
+    layers = [
+        ("Usable, expected clear" if clear else "Usable", kept, INK["usable"], ""),
+        ("Lost to the weather", [u - k for u, k in zip(usable, kept)] if clear else zero, INK["weather"], "...."),
+        ("Lost to the schedule", [o - u for o, u in zip(observable, usable)], INK["schedule"], "\\\\"),
+        ("Lost to the Moon", [v - o for v, o in zip(visible, observable)], INK["lunar"], "xx"),
+        ("Target not visible", [h - v for h, v in zip(night_hours, visible)] if night_hours else zero, INK["hidden"], "//"),
+    ]
+    layers = [layer for layer in layers if any(value > 0 for value in _clean(layer[1]))] or layers[:1]
+    illumination = _aligned(series.get("moon_illumination"), usable)
 
     with _LOCK:
-        fig, ax = _figure()
-        days = [float(n.toordinal()) for n in nights]
-        if all(b - a == 1.0 for a, b in zip(days, days[1:])):
-            # Consecutive nights: one stepped outline (a single path) draws and lays out far faster than a bar per night.
-            edges = [float(d) for d in mdates.date2num(nights)] + [float(mdates.date2num(nights[-1])) + 1.0]
-            heights = [0.0 if math.isnan(h) else h for h in hours]
-            ax.stairs(heights, [e - 0.5 for e in edges], fill=True, color=PALETTE["sky"], edgecolor=PALETTE["blue"], linewidth=0.3,
-                      label="Hours usable")
-            ax.xaxis_date()
-        else:
-            ax.bar(nights, hours, width=1.0, color=PALETTE["sky"], edgecolor=PALETTE["blue"], linewidth=0.3, label="Hours usable")
-        ax.set_ylabel("Hours usable per night")
-        ax.set_ylim(0, max(max(hours) * 1.15, 1.0))
+        fig, ax = _figure(size=(7.6, 3.9))
+        edges = [float(d) - 0.5 for d in mdates.date2num(nights)]
+        edges.append(edges[-1] + 1.0)
+        days = [float(d.toordinal()) for d in nights]
+        bottom = zero
+        for label, values, colour, hatch in layers:
+            values = [max(v, 0.0) for v in _clean(values)]
+            top = [b + v for b, v in zip(bottom, values)]
+            if all(b - a == 1.0 for a, b in zip(days, days[1:])):
+                # Consecutive nights: one stepped area per layer (a single path) draws far faster than a bar per night.
+                ax.stairs(top, edges, baseline=bottom, fill=True, facecolor=colour, edgecolor=INK["floor"], hatch=hatch,
+                          linewidth=0.2, label=label, gid=f"layer:{label}")
+            else:
+                ax.bar(nights, values, bottom=bottom, width=1.0, color=colour, edgecolor=INK["floor"], hatch=hatch,
+                       linewidth=0.2, label=label, gid=f"layer:{label}")
+            bottom = top
+        ax.xaxis_date()
+        ax.set_ylabel("Hours per night")
+        ax.set_ylim(0, max(max(bottom) * 1.12, 1.0))
         ax.set_title("Usable hours per night across the semester")
         handles, labels = ax.get_legend_handles_labels()
-        if len(illumination) == len(nights):
+        if illumination:
             ax2 = ax.twinx()
-            ax2.plot(nights, illumination, color=PALETTE["black"], linewidth=1.2, linestyle="--", label="Moon illuminated fraction")
+            ax2.plot(nights, illumination, color=INK["target"], linewidth=1.0, linestyle="--", label="Moon illuminated fraction")
             ax2.set_ylim(0, 1.05)
             ax2.set_ylabel("Moon illuminated fraction")
             more_handles, more_labels = ax2.get_legend_handles_labels()
             handles += more_handles
             labels += more_labels
-        fig.legend(handles, labels, loc="outside lower center", ncols=len(labels), fontsize=8, frameon=False)
+        fig.legend(handles, labels, loc="outside lower center", ncols=3, fontsize=8, frameon=False)
         fig.autofmt_xdate()
         return _svg(fig)
 
 
 def snr_curve_svg(series: Mapping[str, Any], figures: Mapping[str, Any] | None = None) -> str | None:
-    """Signal-to-noise against total exposure time, with the goal and the requested time marked.
+    """Signal-to-noise against total exposure time in hours, with the goal and the requested and needed times marked.
 
     ``goal_snr`` and ``requested_exposure_s`` are looked up in the curve itself,
     then in the series, then in the request's figures.
@@ -164,25 +259,25 @@ def snr_curve_svg(series: Mapping[str, Any], figures: Mapping[str, Any] | None =
     goal = _number(curve.get("goal_snr"), series.get("goal_snr"), figures.get("goal_snr"))
     requested = _number(curve.get("requested_exposure_s"), series.get("requested_exposure_s"), figures.get("requested_exposure_s"))
     needed = _number(curve.get("needed_exposure_s"), series.get("needed_exposure_s"))
+    exposure_h = [value / 3600.0 for value in exposure]
 
     with _LOCK:
-        fig, ax = _figure()
-        ax.plot(exposure, snr, color=PALETTE["blue"], linewidth=2.2, label="Expected S/N")
+        fig, ax = _figure(size=(7.6, 3.9))
+        ax.plot(exposure_h, snr, color=INK["target"], linewidth=2.4, label="Expected S/N", gid="snr")
         if goal is not None:
-            ax.axhline(goal, color=PALETTE["green"], linewidth=1.4, linestyle="--", label=f"Goal S/N {goal:g}")
+            ax.axhline(goal, color=INK["usable"], linewidth=1.5, linestyle="--", label=f"Goal S/N {goal:g}")
         if requested is not None:
-            ax.axvline(requested, color=PALETTE["vermillion"], linewidth=1.4, linestyle=":", label=f"Requested: {_duration(requested)} exposure")
+            ax.axvline(requested / 3600.0, color=INK["limit"], linewidth=1.5, linestyle=":", label=f"Requested: {_duration(requested)} exposure")
         if needed is not None and (requested is None or abs(needed - requested) > 1e-6 * max(needed, 1.0)):
-            ax.axvline(needed, color=PALETTE["black"], linewidth=1.2, linestyle="-.", label=f"Needed: {_duration(needed)} exposure")
-        positive = all(value > 0 for value in exposure)
-        if positive and max(exposure) / min(exposure) > 50:
+            ax.axvline(needed / 3600.0, color=INK["moon"], linewidth=1.3, linestyle="-.", label=f"Needed: {_duration(needed)} exposure")
+        if all(value > 0 for value in exposure) and max(exposure) / min(exposure) > 50:
             ax.set_xscale("log")
         if all(value > 0 for value in snr) and max(snr) / max(min(snr), 1e-9) > 50:
             ax.set_yscale("log")
-        ax.set_xlabel("Total exposure time (s)")
+        ax.set_xlabel("Total exposure time (hours)")
         ax.set_ylabel("Signal-to-noise ratio")
         ax.set_title("Signal-to-noise against exposure time")
-        _legend_below(fig, ax)
+        _legend_below(fig, ax, max_cols=2)
         return _svg(fig)
 
 
@@ -293,12 +388,12 @@ def _figure(size: tuple[float, float] = _SIZE) -> tuple[Figure, Any]:
     return fig, ax
 
 
-def _legend_below(fig: Figure, ax: Any) -> None:
+def _legend_below(fig: Figure, ax: Any, max_cols: int = 4) -> None:
     """The legend in a row under the plot, where it hides no data."""
     handles, labels = ax.get_legend_handles_labels()
     if handles:
-        # One row when the labels fit across the figure (about 80 characters at this size), else two columns.
-        ncols = min(len(labels), 4) if sum(len(label) + 6 for label in labels) <= 96 else min(len(labels), 2)
+        # One row when the labels fit across the figure (about 80 characters at this size), else fewer columns.
+        ncols = min(len(labels), max_cols) if sum(len(label) + 6 for label in labels) <= 96 else min(len(labels), 2)
         fig.legend(handles, labels, loc="outside lower center", ncols=ncols, fontsize=8, frameon=False)
 
 
@@ -324,19 +419,75 @@ def _svg(fig: Figure) -> str:
     return buffer.getvalue()
 
 
-def _shade_twilight(ax: Any, hours: list[float], sun_alt: list[float]) -> None:
-    """Shade day, twilight and night from the Sun's altitude (USNO: −6°, −12°, −18°)."""
-    bands = [
-        (-6.0, 90.0, "#fff4d6", "Day and civil twilight"),
-        (-18.0, -6.0, "#e3ecf6", "Nautical and astronomical twilight"),
-    ]
-    for low, high, colour, label in bands:
-        mask = [low < s <= high for s in sun_alt]
-        if any(mask):
-            ax.fill_between(hours, -30, 90, where=mask, color=colour, step="mid", linewidth=0, label=label)
+def _shade_sky(ax: Any, hours: list[float], sun_alt: list[float]) -> None:
+    """Twilight (Sun between 0° and −18°) and true night (below −18°, USNO astronomical twilight) as background bands."""
+    twilight = [-18.0 < s <= 0.0 for s in sun_alt]
+    if any(twilight):
+        ax.fill_between(hours, 0, 90, where=twilight, color=INK["twilight"], step="mid", linewidth=0, label="Twilight")
     night = [s <= -18.0 for s in sun_alt]
     if any(night):
-        ax.fill_between(hours, -30, 90, where=night, color="#cdd5df", step="mid", linewidth=0, label="Night (Sun below −18°)")
+        ax.fill_between(hours, 0, 90, where=night, color=INK["night"], step="mid", linewidth=0, label="Night (Sun below −18°)")
+
+
+def _airmass_scale(ax: Any, formula: str) -> None:
+    """A right-hand scale labelling altitudes with their airmass in the limit's formula (the same rule as the limit line)."""
+    right = ax.twinx()
+    right.set_ylim(ax.get_ylim())
+    ticks = [(limit_altitude(x, formula), x) for x in _AIRMASS_TICKS]
+    right.set_yticks([alt for alt, _ in ticks], [f"{x:g}" for _, x in ticks])
+    right.set_ylabel(f"Airmass ({LIMIT_FORMULAS[formula]})")
+    right.grid(False)
+
+
+def _time_axis(ax: Any, hours: list[float], longitude: float | None) -> None:
+    """Whole hours of local mean solar time, with UTC under each when the site's longitude is known.
+
+    The engine counts ``hours_from_midnight`` from local mean midnight (the site's longitude), so the
+    local clock reading is the hour itself and UTC is it minus :func:`local_time_offset_hours`.
+    """
+    ticks = [float(h) for h in range(math.ceil(min(hours)), math.floor(max(hours)) + 1)]
+    if len(ticks) > 8:
+        ticks = [t for t in ticks if int(t) % 2 == 0]
+    if longitude is None:
+        ax.set_xticks(ticks, [_clock(t) for t in ticks])
+        ax.set_xlabel("Local time (hours from local midnight)")
+        return
+    offset = local_time_offset_hours(longitude)
+    ax.set_xticks(ticks, [f"{_clock(t)}\n{_clock(t - offset)} UTC" for t in ticks])
+    sign = "+" if offset >= 0 else "−"
+    ax.set_xlabel(f"Local mean solar time (UTC {sign}{_clock(abs(offset))}, longitude {longitude:g}°) and UTC")
+
+
+def _note_moon(ax: Any, hours: list[float], target_alt: list[float], moon_alt: list[float], moon_sep: list[float],
+               usable: list[bool]) -> None:
+    """Write the Moon's distance where it matters: its closest approach while the Moon is up, within the usable stretch if any."""
+    chosen = [i for i in range(len(hours)) if (usable[i] if usable and any(usable) else target_alt[i] > 0) and moon_alt[i] > 0]
+    chosen = [i for i in chosen if not math.isnan(moon_sep[i])]
+    if not chosen:
+        where = "during the usable stretch" if usable and any(usable) else "while the target is up"
+        ax.text(0.99, 0.97, f"Moon below the horizon {where}", transform=ax.transAxes, ha="right", va="top", fontsize=8, gid="moon-note")
+        return
+    i = min(chosen, key=lambda k: moon_sep[k])
+    ax.annotate(f"Moon {moon_sep[i]:.0f}° away", xy=(hours[i], target_alt[i]), xytext=(0, 14), textcoords="offset points",
+                ha="center", fontsize=8, color=INK["moon"], gid="moon-note",
+                arrowprops={"arrowstyle": "-", "color": INK["moon"], "linewidth": 0.8},
+                bbox={"boxstyle": "round,pad=0.2", "facecolor": "white", "edgecolor": INK["moon"], "linewidth": 0.6})
+
+
+def _clock(hours: float) -> str:
+    """Hours as a 24-hour clock reading, HH:MM (wrapping past midnight)."""
+    minutes = round(hours * 60.0) % (24 * 60)
+    return f"{minutes // 60:02d}:{minutes % 60:02d}"
+
+
+def _aligned(values: object, like: Sequence[object]) -> list[float]:
+    """``values`` as floats when they are as many as ``like``, else [] (an older or malformed series)."""
+    out = _floats(values)
+    return out if len(out) == len(like) else []
+
+
+def _clean(values: list[float]) -> list[float]:
+    return [0.0 if math.isnan(v) else v for v in values]
 
 
 def _floats(values: object) -> list[float]:

@@ -11,7 +11,7 @@ import pytest
 
 from feasibility.web import plots
 
-from .support import demo_doc, engine_result
+from .support import demo_doc, engine_result, proposal_doc
 
 SVG_NS = "{http://www.w3.org/2000/svg}"  # W3C SVG 1.1
 
@@ -105,3 +105,99 @@ def test_plots_can_be_drawn_from_several_threads(real_series: dict[str, Any]) ->
     for thread in threads:
         thread.join()
     assert errors == []
+
+
+# --- the redesigned request plots, read from the figure objects (figures_kept) -------------------------------------
+
+def _kept_figure(draw: Any) -> Any:
+    with plots.figures_kept() as figures:
+        assert draw() == ""
+    assert len(figures) == 1
+    return figures[0]
+
+
+def _by_gid(fig: Any, gid: str) -> list[Any]:
+    return [artist for artist in fig.findobj() if getattr(artist, "get_gid", lambda: None)() == gid]
+
+
+def test_night_limit_line_sits_at_the_limit_formulas_altitude(real_series: dict[str, Any]) -> None:
+    from feasibility.engine.airmass import limit_altitude
+
+    curve = real_series["night_curve"]
+    fig = _kept_figure(lambda: plots.night_curve_svg(real_series, "t"))
+    (line,) = _by_gid(fig, "airmass-limit")
+    expected = limit_altitude(curve["airmass_limit"], curve["airmass_formula"])
+    assert curve["airmass_formula"] == "secant"  # the demo observatory states its limits in plain sec z
+    # Reference: sec z = 1/sin(alt) (plane-parallel atmosphere), so the limit's altitude is asin(1/X).
+    import math
+
+    assert expected == pytest.approx(math.degrees(math.asin(1.0 / curve["airmass_limit"])), abs=1e-9)
+    assert list(line.get_ydata()) == pytest.approx([expected, expected])
+    (floor,) = _by_gid(fig, "lowest-altitude")
+    assert floor.get_ydata()[0] == curve["floor_altitude_deg"]
+
+
+def test_night_time_axis_is_local_mean_solar_time_with_utc(real_series: dict[str, Any]) -> None:
+    longitude = real_series["night_curve"]["longitude_deg"]
+    # Definition of local mean solar time: the mean Sun turns 15° per hour, so local − UTC = longitude / 15 h (east positive).
+    assert plots.local_time_offset_hours(longitude) == pytest.approx(longitude / 15.0)
+    assert plots.local_time_offset_hours(15.0) == 1.0
+    fig = _kept_figure(lambda: plots.night_curve_svg(real_series, "t"))
+    ax = fig.axes[0]
+    ticks, labels = ax.get_xticks(), [t.get_text() for t in ax.get_xticklabels()]
+    assert len(ticks) >= 3
+    for hour, label in zip(ticks, labels):
+        local, utc = label.split("\n")
+        local_h = int(local[:2]) + int(local[3:5]) / 60
+        utc_h = int(utc[:2]) + int(utc[3:5]) / 60
+        assert local_h == pytest.approx(hour % 24)
+        assert ((local_h - utc_h - longitude / 15.0 + 12) % 24) - 12 == pytest.approx(0.0, abs=1 / 60)
+
+
+def test_night_plot_marks_usable_stretch_moon_horizon_and_airmass_scale(real_series: dict[str, Any]) -> None:
+    curve = real_series["night_curve"]
+    assert any(curve["usable"]) and "horizon_alt_deg" in curve  # demo 001 is usable, the demo site has a horizon profile
+    svg = _svg_text(plots.night_curve_svg(real_series, "t"))
+    assert "<!-- Usable stretch -->" in svg and "<!-- Horizon profile -->" in svg
+    assert "Moon " in svg and "° away -->" in svg
+    fig = _kept_figure(lambda: plots.night_curve_svg(real_series, "t"))
+    right = fig.axes[1]
+    from feasibility.engine.airmass import airmass_secant
+
+    for altitude, label in zip(right.get_yticks(), right.get_yticklabels()):
+        assert float(airmass_secant(altitude)) == pytest.approx(float(label.get_text()), rel=1e-9)  # sec z = 1/sin(alt)
+
+
+def test_never_rising_target_gets_a_message() -> None:
+    # Demo site at latitude −26.4°: a star at declination +80° culminates at 90 − 26.4 − 80 < 0°, below the horizon
+    # (altitude at upper culmination = 90° − |φ − δ|, spherical astronomy, e.g. Smart's Textbook on Spherical Astronomy).
+    series = engine_result(proposal_doc("NR-1", dec="+80:00:00")).requests[0].series
+    assert max(series["night_curve"]["target_alt_deg"]) < 0
+    svg = _svg_text(plots.night_curve_svg(series, "Polar field"))
+    assert "<!-- Polar field never rises above the horizon on this night -->" in svg
+    assert "never rises" not in _svg_text(plots.night_curve_svg(engine_result(demo_doc("001")).requests[0].series, "t"))
+
+
+def test_semester_layers_account_for_every_night_hour(real_series: dict[str, Any]) -> None:
+    import numpy as np
+
+    fig = _kept_figure(lambda: plots.semester_hours_svg(real_series))
+    layers = [a for a in fig.findobj() if str(getattr(a, "get_gid", lambda: "")() or "").startswith("layer:")]
+    names = [a.get_gid() for a in layers]
+    assert names[0] == "layer:Usable, expected clear" and "layer:Target not visible" in names
+    top = layers[-1].get_data().values  # the stack's top: the last layer's upper edge
+    # The stages only ever remove hours, so the stack reaches each night's hours of true night (engine's own series).
+    assert np.allclose(top, real_series["hours_night"], atol=1e-6)
+    usable = np.asarray(real_series["hours_usable"]) * np.asarray(real_series["clear_fraction"])
+    assert np.allclose(layers[0].get_data().values, usable, atol=1e-9)
+
+
+def test_snr_plot_is_in_hours(real_series: dict[str, Any]) -> None:
+    fig = _kept_figure(lambda: plots.snr_curve_svg(real_series, {}))
+    (line,) = _by_gid(fig, "snr")
+    assert list(line.get_xdata()) == pytest.approx([s / 3600.0 for s in real_series["snr_curve"]["exposure_s"]])
+    assert fig.axes[0].get_xlabel() == "Total exposure time (hours)"
+    fig.draw_without_rendering()
+    (legend,) = fig.legends
+    # Below the data, covering none of it (display coordinates grow upwards).
+    assert legend.get_window_extent().y1 <= fig.axes[0].get_window_extent().y0
