@@ -35,8 +35,8 @@ from feasibility.documents import Instrument, InstrumentSchedule, ObservationReq
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG, Site
 from feasibility.documents.proposal import SKY_ILLUMINATION
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass, limit_airmass, limit_altitude
-from feasibility.engine.horizon import horizon_altitude
 from feasibility.engine.conditions import Conditions, nearest_rank, nearest_rank_index
+from feasibility.engine.horizon import horizon_altitude
 from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, optical_path, sky_components_nl
 from feasibility.engine.positions import target_vector
 from feasibility.engine.sky_findings import (
