@@ -6,6 +6,7 @@ The generated proposals are invented; what is checked is how the real engine
 
 from __future__ import annotations
 
+import statistics
 from collections import Counter
 from pathlib import Path
 from typing import Any
@@ -54,6 +55,21 @@ def test_generated_semester_mix_as_the_real_engine_judges_it(verdicts: dict[str,
     assert 0.13 <= share["marginal"] <= 0.27, counts
     assert 0.05 <= share["infeasible"] <= 0.15, counts
     assert counts["unchecked"] == 0, counts
+
+
+def test_generated_requests_ask_about_what_the_real_engine_says_they_need(verdicts: dict[str, Any]) -> None:
+    """Requests are sized like a proposer's: the median of needed ÷ requested (both from the real engine's figures)
+    lies between 0.6 and 1.1 (the issue's aim: a small contingency on the need, common practice), not at the
+    0.05 of requests asking twenty times what one exposure takes."""
+    ratios = [
+        item.figures["hours_needed"] / item.figures["hours_requested"]
+        for result in verdicts.values()
+        for item in result.requests
+        if item.figures.get("hours_needed") is not None
+    ]
+    assert len(ratios) >= 150
+    assert 0.6 <= statistics.median(ratios) <= 1.1, sorted(ratios)
+    assert all(item.figures["hours_requested"] >= 0.1 for result in verdicts.values() for item in result.requests)
 
 
 def test_never_rising_targets_are_judged_invisible(verdicts: dict[str, Any]) -> None:
