@@ -7,14 +7,13 @@ input (every problem on stderr, one line each, naming the field path).
 from __future__ import annotations
 
 import json
-from importlib.resources import files
 from importlib.resources.abc import Traversable
 from pathlib import Path
 
 import click
 from pydantic import BaseModel
 
-from feasibility.cli.inputs import read_observatory, read_schedule
+from feasibility.cli.inputs import packaged, read_observatory, read_schedule
 from feasibility.documents import DocumentError, InstrumentSchedule, Observatory, Proposal, load_document
 from feasibility.documents.loading import json_schema
 from feasibility.documents.proposal_problems import read_proposal
@@ -144,7 +143,7 @@ class _Errors(DocumentError):
 
 def _demo_files(directory: Path) -> dict[Path, Traversable]:
     """Where each packaged demo file goes under ``directory``."""
-    data = _data("")
+    data = packaged()
     wanted: dict[Path, Traversable] = {}
     for item in sorted(data.iterdir(), key=lambda t: t.name):
         if item.is_file() and item.name.endswith(".yaml"):
@@ -161,9 +160,3 @@ def _generated_files(directory: Path) -> dict[Path, bytes]:
     from feasibility.demo_semester import demo_semester, semester_yaml
 
     return {directory / f"{document['id']}.yaml": semester_yaml(document).encode("utf-8") for document in demo_semester()}
-
-
-def _data(name: str) -> Traversable:
-    """A file (or, with an empty name, the folder) of the packaged demo data."""
-    folder = files("feasibility") / "data"
-    return folder / name if name else folder

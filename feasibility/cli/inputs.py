@@ -63,6 +63,7 @@ def read_schedule(
     return schedule
 
 
-def packaged(name: str) -> Traversable:
-    """A file of the packaged demo data (``feasibility/data``)."""
-    return files("feasibility").joinpath("data", name)
+def packaged(name: str = "") -> Traversable:
+    """A file of the packaged demo data (``feasibility/data``), or with no name the folder itself."""
+    folder = files("feasibility") / "data"
+    return folder / name if name else folder
