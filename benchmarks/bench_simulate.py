@@ -73,7 +73,7 @@ def main() -> None:
     ranks = {p.id: float(rng.randint(1, 4)) for p in proposals}
 
     started, cpu = time.perf_counter(), time.process_time()
-    items, _ = _plan_requests(proposals, observatory, schedule, ranks, "needed")
+    items, left_out, _ = _plan_requests(proposals, observatory, schedule, ranks, "needed")
     plan = build_plan(items, observatory, grid, schedule)
     climate = night_climate(observatory, grid.night_months)
     prepare = (time.perf_counter() - started, time.process_time() - cpu)
@@ -85,7 +85,7 @@ def main() -> None:
     load_before = os.getloadavg()[0]
     started, cpu = time.perf_counter(), time.process_time()
     outcomes = run_realisations(plan, climate, args.realisations, args.seed)
-    summary = summarise(plan, items, outcomes)
+    summary = summarise(plan, items, outcomes, left_out)
     simulate = (time.perf_counter() - started, time.process_time() - cpu)
     print(f"{args.realisations} realisations, vectorised (NumPy):  {simulate[0]:7.2f} s wall, {simulate[1]:7.2f} s CPU")
     print(f"prepare + realisations:                     {prepare[0] + simulate[0]:7.2f} s wall "

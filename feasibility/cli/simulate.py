@@ -109,6 +109,9 @@ def render_simulation(result: dict[str, Any]) -> str:
             f"at least half the hours {_percent(proposal['chance_of_half'])}; {_hours(proposal)}"
         )
         for row in by_proposal.get(proposal["proposal_id"], []):
+            if not row.get("dispatched", True):
+                lines.append(f"  {row['label']:<24} {row['instrument']:<10} not simulated: infeasible, so never done")
+                continue
             lines.append(
                 f"  {row['label']:<24} {row['instrument']:<10} done {_percent(row['chance_of_completion']):>5}  "
                 f"half {_percent(row['chance_of_half']):>5}  {_hours(row)}"

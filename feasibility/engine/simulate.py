@@ -14,6 +14,12 @@ the design conditions (``hours="needed"``, the figure ``hours_needed`` of its
 check; the hours requested when the check gives none), or the hours requested
 (``hours="requested"``).
 
+Only feasible and marginal requests take part in the dispatch. A request the
+engine found infeasible cannot be completed in any semester (its hours needed
+can be thousands of times what it asked for), so it is listed with a chance of
+0, its hours requested as its hours to obtain, and ``"dispatched": false``; it
+asks nothing of the offered time, so it does not inflate the oversubscription.
+
 Realisations are drawn in fixed blocks of :data:`BLOCK` from one
 ``numpy.random.SeedSequence(seed)`` (block ``i`` from its ``i``-th child), so the
 same seed gives the same answer, and a longer run begins with the realisations of
@@ -37,13 +43,25 @@ from feasibility.engine.simulate_plan import DEFAULT_SLOT_MINUTES, LUNAR_TIMES, 
 from feasibility.engine.skygrid import SkyGrid, sky_grid
 from feasibility.engine.weather import NightClimate, Weather, draw_weather, night_climate
 
-__all__ = ["BLOCK", "Outcomes", "run_realisations", "simulate_semester", "summarise"]
+__all__ = ["BLOCK", "LeftOut", "Outcomes", "run_realisations", "simulate_semester", "summarise"]
 
 #: Realisations drawn and dispatched together (a fixed size, so that results do not depend on how a run is cut).
 BLOCK = 500
 
 HoursBasis = Literal["needed", "requested"]
 Progress = Callable[[int, int], None]
+
+
+@dataclass(frozen=True)
+class LeftOut:
+    """A request kept out of the dispatch because the engine found it infeasible: listed with a chance of 0."""
+
+    proposal_id: str
+    label: str
+    instrument: str
+    rank: float
+    hours_requested: float
+    reason: str
 
 
 @dataclass(frozen=True)
@@ -101,7 +119,8 @@ def simulate_semester(
     All proposals must be for one semester the observatory has (``ValueError`` otherwise).
     ``ranks`` gives a proposal's rank by id (smaller goes first); proposals not listed
     come after every listed one; without ranks all are equal. A request the engine
-    cannot check (it names something the observatory lacks) is left out and named in ``notes``.
+    cannot check (it names something the observatory lacks) is left out and named in ``notes``;
+    an infeasible request is listed with a chance of 0 but not dispatched (module docstring).
     """
     semesters = {p.semester for p in proposals}
     if len(semesters) != 1:
@@ -116,11 +135,15 @@ def simulate_semester(
         schedule = None
     site = observatory.site
     grid = sky_grid(site.latitude_deg, site.longitude_deg, site.elevation_m, semester.first_night, semester.last_night)
-    items, notes = _plan_requests(proposals, observatory, schedule, ranks, hours)
+    items, left_out, notes = _plan_requests(proposals, observatory, schedule, ranks, hours)
     plan = build_plan(items, observatory, grid, schedule, slot_minutes)
     climate = night_climate(observatory, grid.night_months)
     outcomes = run_realisations(plan, climate, realisations, seed, progress)
-    result = summarise(plan, items, outcomes)
+    result = summarise(plan, items, outcomes, left_out)
+    place = {(p.id, r.label): (i, j) for i, p in enumerate(proposals) for j, r in enumerate(p.requests)}
+    first = {p.id: i for i, p in enumerate(proposals)}
+    result["requests"].sort(key=lambda row: place[(row["proposal_id"], row["label"])])  # in the documents' order
+    result["proposals"].sort(key=lambda row: first[row["proposal_id"]])
     return {
         "semester": name,
         "observatory": observatory.name,
@@ -136,8 +159,13 @@ def simulate_semester(
     }
 
 
-def summarise(plan: Plan, items: Sequence[PlanRequest], outcomes: Outcomes) -> dict[str, list[dict[str, Any]]]:
-    """Per request, per proposal and per (instrument, lunar time): chances, expected hours and their spread."""
+def summarise(
+    plan: Plan, items: Sequence[PlanRequest], outcomes: Outcomes, left_out: Sequence[LeftOut] = ()
+) -> dict[str, list[dict[str, Any]]]:
+    """Per request, per proposal and per (instrument, lunar time): chances, expected hours and their spread.
+
+    ``left_out`` requests (infeasible) are listed with a chance of 0; a proposal with one is never complete.
+    """
     obtained, needed = outcomes.hours_obtained, plan.hours_needed
     complete = obtained >= needed[None, :] - 1e-9
     half = obtained >= 0.5 * needed[None, :] - 1e-9
@@ -154,22 +182,42 @@ def summarise(plan: Plan, items: Sequence[PlanRequest], outcomes: Outcomes) -> d
             "rank": item.rank,
             "hours_to_obtain": round(float(needed[k]), 3),
             "hours_offered_clear_sky": round(float(opportunity[k]), 2),
+            "dispatched": True,
             **_chances(complete[:, k], half[:, k], obtained[:, k]),
+        })
+    runs = obtained.shape[0]
+    never = np.zeros(runs, dtype=bool)
+    for out in left_out:
+        requests.append({
+            "proposal_id": out.proposal_id,
+            "label": out.label,
+            "instrument": out.instrument,
+            "rank": out.rank,
+            "hours_to_obtain": round(out.hours_requested, 3),
+            "hours_offered_clear_sky": 0.0,
+            "dispatched": False,
+            "left_out_because": out.reason,
+            **_chances(never, never, np.zeros(runs)),
         })
 
     proposals = []
-    order: dict[str, list[int]] = {}
+    order: dict[str, tuple[list[int], list[LeftOut]]] = {}
     for k, item in enumerate(items):
-        order.setdefault(item.proposal_id, []).append(k)
-    for proposal_id, members in order.items():
+        order.setdefault(item.proposal_id, ([], []))[0].append(k)
+    for out in left_out:
+        order.setdefault(out.proposal_id, ([], []))[1].append(out)
+    ranks = {item.proposal_id: item.rank for item in items} | {out.proposal_id: out.rank for out in left_out}
+    for proposal_id, (members, outs) in order.items():
         total = obtained[:, members].sum(axis=1)
-        wanted = float(needed[members].sum())
+        wanted = float(needed[members].sum()) + sum(out.hours_requested for out in outs)
+        done = np.all(complete[:, members], axis=1) & (not outs)
         proposals.append({
             "proposal_id": proposal_id,
-            "rank": items[members[0]].rank,
-            "requests": len(members),
+            "rank": ranks[proposal_id],
+            "requests": len(members) + len(outs),
+            "requests_infeasible": len(outs),
             "hours_to_obtain": round(wanted, 3),
-            **_chances(np.all(complete[:, members], axis=1), total >= 0.5 * wanted - 1e-9, total),
+            **_chances(done, total >= 0.5 * wanted - 1e-9, total),
         })
 
     demand = _demand(plan)
@@ -243,10 +291,12 @@ def _plan_requests(
     schedule: InstrumentSchedule | None,
     ranks: Mapping[str, float] | None,
     hours: HoursBasis,
-) -> tuple[list[PlanRequest], list[str]]:
-    """Each request with its hours to obtain, rank, and the airmass and wavelength its seeing limit is judged at."""
+) -> tuple[list[PlanRequest], list[LeftOut], list[str]]:
+    """Each feasible or marginal request with its hours to obtain, rank, and the airmass and wavelength
+    its seeing limit is judged at; the infeasible ones, left out of the dispatch; notes on unchecked ones."""
     unlisted = (max(ranks.values()) + 1.0) if ranks else 0.0
     items: list[PlanRequest] = []
+    left_out: list[LeftOut] = []
     notes: list[str] = []
     for proposal in proposals:
         rank = float(ranks.get(proposal.id, unlisted)) if ranks else 0.0
@@ -255,6 +305,16 @@ def _plan_requests(
             instrument = observatory.instrument_named(request.instrument)
             if instrument is None or checked.verdict.value == "unchecked":
                 notes.append(f"{proposal.id} {request.label}: left out, the engine could not check it")
+                continue
+            if checked.verdict.value == "infeasible":
+                left_out.append(LeftOut(
+                    proposal_id=proposal.id,
+                    label=request.label,
+                    instrument=instrument.name,
+                    rank=rank,
+                    hours_requested=float(request.hours_requested),
+                    reason="the engine found it infeasible",
+                ))
                 continue
             figures = checked.figures
             needed = _positive(figures.get("hours_needed"))
@@ -269,7 +329,7 @@ def _plan_requests(
                 airmass=_positive(figures.get("airmass_median")) or 1.0,
                 wavelength_nm=_positive(figures.get("wavelength_nm")) or 500.0,
             ))
-    return items, notes
+    return items, left_out, notes
 
 
 def _positive(value: object) -> float | None:

@@ -27,13 +27,20 @@ def test_overview_sums_the_latest_checks(app: Flask, semester: dict[str, Any], e
     assert counts == {"feasible": 2, "marginal": 1, "unchecked": 0, "infeasible": 1}
     assert data.counts == counts
     lines = {line.instrument: line for line in data.instruments}
-    # Requested hours from the documents: 001 4 + 3.5 h and M-1 1 h on KESTREL, 002 6 h on HERON, 005 1 + 2.5 + 2 h on OWL.
-    assert lines["KESTREL"].hours_requested == 8.5 and lines["KESTREL"].requests == 3
-    assert lines["HERON"].hours_requested == 6.0 and lines["OWL"].hours_requested == 5.5
-    # Hours needed: the sums of the engine's per-request figures.
+    # Requested hours from the documents: 001 4 + 3.5 h and M-1 1 h on KESTREL, 002 6 h on HERON, 005 1 + 2.5 + 2 h on OWL;
+    # only feasible and marginal requests count towards the hours asked of the time offered.
+    counted = {"feasible", "marginal"}
     for instrument, line in lines.items():
-        needed = sum(q.figures["hours_needed"] for r in expected.values() for q in r.requests if q.instrument == instrument)
-        assert line.hours_needed == pytest.approx(needed, rel=1e-9), instrument
+        mine = [q for r in expected.values() for q in r.requests if q.instrument == instrument]
+        assert line.requests == len(mine), instrument
+        assert line.not_counted == sum(q.verdict.value not in counted for q in mine), instrument
+        # Hours needed: the sums of the engine's per-request figures over the counted requests.
+        needed = sum(q.figures["hours_needed"] for q in mine if q.verdict.value in counted)
+        assert (line.hours_needed or 0.0) == pytest.approx(needed, rel=1e-9), instrument
+    assert lines["KESTREL"].requests == 3 and lines["HERON"].requests == 1
+    # 002 (HERON, 6 h) is infeasible: it asks nothing of HERON's time; 001, M-1 and 005 are counted whole.
+    assert lines["HERON"].not_counted == 1 and lines["HERON"].hours_requested == 0.0 and lines["HERON"].pressure in (0.0, None)
+    assert lines["KESTREL"].hours_requested == 8.5 and lines["OWL"].hours_requested == 5.5
     # Right ascension 13h25m (001) falls in the 13h bin, 19h45m (002) in 19h, 17h46m (005) in 17h, 06h00m (M-1) in 6h.
     assert data.ra_requested[13] == 7.5 and data.ra_requested[19] == 6.0 and data.ra_requested[17] == 5.5 and data.ra_requested[6] == 1.0
     assert sum(data.ra_requested) == 20.0
@@ -76,10 +83,12 @@ def test_requests_without_hours_needed_are_counted_apart(app: Flask, semester: d
 
     with app.app_context():
         with session_scope() as session:
-            session.execute(update(RequestOutcome).where(RequestOutcome.instrument == "HERON").values(hours_needed=None))
+            session.execute(update(RequestOutcome).where(RequestOutcome.instrument == "OWL").values(hours_needed=None))
         session = session_factory()
         lines = {line.instrument: line for line in semester_overview(session, "2027A").instruments}
         session.close()
-    assert lines["HERON"].needed_unknown == 1 and lines["HERON"].hours_needed is None
+    # OWL's requests (005, marginal) are counted towards the pressure, so each lacking hours needed is counted apart.
+    owl = [q for r in expected.values() for q in r.requests if q.instrument == "OWL" and q.verdict.value in ("feasible", "marginal")]
+    assert owl and lines["OWL"].needed_unknown == len(owl) and lines["OWL"].hours_needed is None
     kestrel = sum(q.figures["hours_needed"] for r in expected.values() for q in r.requests if q.instrument == "KESTREL")
     assert lines["KESTREL"].needed_unknown == 0 and lines["KESTREL"].hours_needed == pytest.approx(kestrel, rel=1e-9)  # the engine's figures

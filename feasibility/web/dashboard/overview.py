@@ -35,16 +35,21 @@ class InstrumentLine:
 
     instrument: str
     requests: int
+    """Every request on the instrument in the standing checks, infeasible ones included."""
     hours_requested: float
+    """Hours requested by the feasible and marginal requests (an infeasible request will not be scheduled)."""
     hours_needed: float | None
+    """Hours the engine found the feasible and marginal requests need."""
     hours_observable: float | None
     hours_offered: float | None
     needed_unknown: int = 0
-    """Requests whose goal cannot be reached at all (no hours needed stored); not in ``hours_needed``."""
+    """Feasible or marginal requests without hours needed stored; not in ``hours_needed``."""
+    not_counted: int = 0
+    """Infeasible or unchecked requests: counted in ``requests`` only."""
 
     @property
     def pressure(self) -> float | None:
-        """Hours requested over hours offered (the oversubscription), when both are known."""
+        """Feasible and marginal hours requested over hours offered (the oversubscription), when both are known."""
         if not self.hours_offered:
             return None
         return self.hours_requested / self.hours_offered
@@ -127,14 +132,16 @@ def semester_overview(session: Session, semester: str) -> Overview:
             counts[verdict] = int(number)
     proposals = int(session.scalar(select(func.count()).select_from(ProposalRecord).where(ProposalRecord.semester == semester)) or 0)
 
+    counted = RequestOutcome.verdict.in_(COUNTED_VERDICTS)
     per_instrument = session.execute(
         select(
             RequestOutcome.instrument,
             func.count(),
-            func.sum(RequestOutcome.hours_requested),
-            func.sum(RequestOutcome.hours_needed),
-            func.sum(RequestOutcome.hours_observable),
-            func.sum(case((RequestOutcome.hours_needed.is_(None), 1), else_=0)),
+            func.sum(case((counted, RequestOutcome.hours_requested), else_=0.0)),
+            func.sum(case((counted, RequestOutcome.hours_needed), else_=None)),
+            func.sum(case((counted, RequestOutcome.hours_observable), else_=None)),
+            func.sum(case((counted & RequestOutcome.hours_needed.is_(None), 1), else_=0)),
+            func.sum(case((counted, 0), else_=1)),
         )
         .where(RequestOutcome.run_id.in_(select(in_semester.c.run_id)))
         .group_by(RequestOutcome.instrument)
@@ -169,8 +176,9 @@ def semester_overview(session: Session, semester: str) -> Overview:
             hours_observable=_maybe(observable),
             hours_offered=offered.get(name),
             needed_unknown=int(unknown or 0),
+            not_counted=int(not_counted or 0),
         )
-        for name, number, requested, needed, observable, unknown in per_instrument
+        for name, number, requested, needed, observable, unknown, not_counted in per_instrument
     ]
     seen = {line.instrument for line in lines}
     lines += [InstrumentLine(name, 0, 0.0, None, None, hours) for name, hours in sorted(offered.items()) if name not in seen]

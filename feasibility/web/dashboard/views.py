@@ -258,8 +258,10 @@ def _verdict_table(data: Any) -> list[list[Any]]:
 
 
 def _instrument_table(data: Any) -> list[list[Any]]:
-    head = ["instrument", "requests", "hours_requested", "hours_needed", "hours_offered", "requested_over_offered"]
-    return [head, *([row.instrument, row.requests, row.hours_requested, row.hours_needed, row.hours_offered, row.pressure] for row in data.instruments)]
+    head = ["instrument", "requests", "requests_not_counted", "hours_requested_feasible_or_marginal", "hours_needed_feasible_or_marginal",
+            "hours_offered", "requested_over_offered"]
+    return [head, *([row.instrument, row.requests, row.not_counted, row.hours_requested, row.hours_needed, row.hours_offered, row.pressure]
+                    for row in data.instruments)]
 
 
 def _lunar_table(data: Any) -> list[list[Any]]:
