@@ -71,3 +71,17 @@ def test_a_proposal_page_shows_its_chance_to_reviewers_only(app: Flask) -> None:
     sign_in(proposer, "pablo")
     assert "Chance of completion" not in proposer.get("/proposals/SQ-2027A-005").get_data(as_text=True)
     assert proposer.get("/semesters/2027A").status_code == 403
+
+
+def test_an_infeasible_request_is_shown_as_not_simulated(app: Flask) -> None:
+    _semester(app)
+    store_checked(app, demo_doc("002"), "pablo")  # the demo's infeasible proposal (the engine's verdict, asserted below)
+    reviewer = app.test_client()
+    sign_in(reviewer, "rita")
+    result = _simulate(app)
+    rows = [row for row in result["requests"] if row["proposal_id"] == "SQ-2027A-002"]
+    assert rows and all(not row["dispatched"] and row["chance_of_completion"] == 0.0 for row in rows)
+    page = html.unescape(reviewer.get("/proposals/SQ-2027A-002").get_data(as_text=True))
+    assert "Not simulated: the engine found it infeasible" in page
+    overview = html.unescape(reviewer.get("/semesters/2027A").get_data(as_text=True))
+    assert f"{len(rows)} infeasible request{'' if len(rows) == 1 else 's'}, not simulated" in overview
