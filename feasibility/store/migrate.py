@@ -12,14 +12,17 @@ __all__ = ["alembic_config", "migrations_dir", "upgrade"]
 
 
 def migrations_dir() -> Path:
-    """The migrations folder: ``$FEASIBILITY_MIGRATIONS``, or ``migrations/`` beside the package (editable install)."""
+    """The migrations folder: ``$FEASIBILITY_MIGRATIONS``; else as installed (``pip install .`` puts the top-level
+    ``migrations/`` at ``feasibility/store/migrations``, see setup.py); else ``migrations/`` of the source tree
+    (an editable install)."""
     override = os.environ.get("FEASIBILITY_MIGRATIONS")
     if override:
         return Path(override)
-    here = Path(__file__).resolve().parents[2] / "migrations"
-    if not (here / "env.py").is_file():
-        raise FileNotFoundError(f"no Alembic migrations at {here}; install the project with `pip install -e .` or set FEASIBILITY_MIGRATIONS")
-    return here
+    here = Path(__file__).resolve()
+    for candidate in (here.parent / "migrations", here.parents[2] / "migrations"):
+        if (candidate / "env.py").is_file():
+            return candidate
+    raise FileNotFoundError(f"no Alembic migrations beside {here.parent}; reinstall the project or set FEASIBILITY_MIGRATIONS")
 
 
 def alembic_config(url: str) -> Config:

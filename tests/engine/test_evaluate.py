@@ -58,7 +58,7 @@ def test_result_carries_figures_series_and_versions(demo_observatory: Observator
     assert result.engine_version == feasibility.__version__
     assert result.schedule_version == demo_schedule.version and result.observatory_version == demo_observatory.version
     request = result.requests[0]
-    assert REQUIRED_FIGURES <= set(request.figures)  # reference: /work/interfaces.md, RequestResult.figures
+    assert REQUIRED_FIGURES <= set(request.figures)  # the key figures the store copies into RequestOutcome and the pages read (feasibility/store/models.py, service/runs.py)
     checks = {f.check for f in request.findings}
     assert {"visibility", "moon", "schedule", "sun-safety", "sensitivity"} <= checks
     assert all(f.method for f in request.findings if f.check in {"visibility", "moon", "schedule", "sun-safety"})
