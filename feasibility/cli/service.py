@@ -37,16 +37,17 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
     """
     from werkzeug.serving import make_server
 
-    from feasibility.store.db import default_database_url
+    from feasibility.settings import load_settings
     from feasibility.store.migrate import upgrade
     from feasibility.web import create_app
 
-    url = default_database_url()
+    settings = load_settings()
+    url = settings.store_url()
     upgrade(url)
-    settings: dict[str, object] = {"EMBEDDED_WORKERS": workers}
-    if demo and _loopback(host) and not _cookie_security_set():
-        settings["SESSION_COOKIE_SECURE"] = False  # the demo on this machine is plain http; nobody else can reach it
-    app = create_app(settings)
+    overrides: dict[str, object] = {"EMBEDDED_WORKERS": workers}
+    if demo and _loopback(host) and settings.session_cookie_secure is None:
+        overrides["SESSION_COOKIE_SECURE"] = False  # the demo on this machine is plain http; nobody else can reach it
+    app = create_app(overrides, settings=settings)
     with app.app_context():
         _first_admin_token()
         if demo:
@@ -83,15 +84,15 @@ def db_group() -> None:
 @click.option("--no-demo", is_flag=True, help="Do not load the demo observatory into an empty store.")
 def db_upgrade(revision: str, no_demo: bool) -> None:
     """Create or upgrade the tables of the store at DATABASE_URL (default: SQLite in ./instance)."""
-    from feasibility.cli.command_app import command_app
-    from feasibility.store.db import default_database_url
+    from feasibility.cli.command_app import command_runtime
+    from feasibility.settings import load_settings
     from feasibility.store.migrate import upgrade
 
-    url = default_database_url()
+    url = load_settings().store_url()
     upgrade(url, revision)
     if not no_demo:
-        with command_app(SEED_DEMO=True):
-            pass  # loading the demo observatory is part of making the app
+        with command_runtime(seed_demo=True):
+            pass  # loading the demo observatory is part of starting the runtime
     click.echo(f"Store at {_safe(url)} is at revision {revision}.")
 
 
@@ -106,12 +107,12 @@ def token_group() -> None:
 @click.option("--label", default=None, help="A note on what the token is for.")
 def token_create(user_name: str, role: str | None, label: str | None) -> None:
     """Make an API token and print it once; only its hash is stored."""
-    from feasibility.cli.command_app import command_app
+    from feasibility.cli.command_app import command_runtime
     from feasibility.store.db import session_scope
     from feasibility.store.models import User
-    from feasibility.web.auth import create_token, create_user
+    from feasibility.service.accounts import create_token, create_user
 
-    with command_app(), session_scope() as session:
+    with command_runtime(), session_scope() as session:
         user = session.scalar(select(User).where(User.name == user_name))
         if user is None:
             if role is None:
@@ -135,14 +136,14 @@ def user_group() -> None:
 @click.option("--password", is_flag=True, help="Ask for a password (for signing in to the dashboard).")
 def user_create(name: str, role: str, email: str | None, password: bool) -> None:
     """Create a user; with --password, ask for a password (stored as a salted hash)."""
-    from feasibility.cli.command_app import command_app
+    from feasibility.cli.command_app import command_runtime
     from feasibility.store.db import session_scope
-    from feasibility.web.auth import create_user, password_problem
+    from feasibility.service.accounts import create_user, password_problem
 
     secret = click.prompt("Password", hide_input=True, confirmation_prompt=True) if password else None
     if secret is not None and (problem := password_problem(secret)) is not None:
         _fail(f"password: {problem}")
-    with command_app(), session_scope() as session:
+    with command_runtime(), session_scope() as session:
         try:
             create_user(session, name, role, password=secret, email=email)
         except ValueError as exc:
@@ -153,7 +154,7 @@ def user_create(name: str, role: str, email: str | None, password: bool) -> None
 def _first_admin_token() -> None:
     from feasibility.store.db import session_scope
     from feasibility.store.models import User
-    from feasibility.web.auth import create_token, create_user
+    from feasibility.service.accounts import create_token, create_user
 
     with session_scope() as session:
         if session.scalar(select(func.count()).select_from(User)):
@@ -173,13 +174,6 @@ def _loopback(host: str) -> bool:
         return ipaddress.ip_address(host.strip("[]")).is_loopback
     except ValueError:
         return False
-
-
-def _cookie_security_set() -> bool:
-    """Whether the environment sets the cookie's Secure flag itself (then ``serve --demo`` leaves it alone)."""
-    import os
-
-    return "SESSION_COOKIE_SECURE" in os.environ or "FEASIBILITY_SESSION_COOKIE_SECURE" in os.environ
 
 
 def _safe(url: str) -> str:
