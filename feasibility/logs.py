@@ -49,13 +49,13 @@ class RunIdFilter(logging.Filter):
         return True
 
 
-class StderrHandler(logging.StreamHandler):  # type: ignore[type-arg]
+class StderrHandler(logging.StreamHandler):
     """Writes to whatever ``sys.stderr`` is at the time of each line (a command run under a test runner swaps it)."""
 
     def __init__(self) -> None:
         super().__init__(sys.stderr)
 
-    @property  # type: ignore[override]
+    @property
     def stream(self) -> Any:
         return sys.stderr
 

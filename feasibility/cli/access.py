@@ -54,9 +54,9 @@ def token_list(user_name: str | None) -> None:
 @click.option("--user", "user_name", default=None, help="Revoke every token of this user.")
 def token_revoke(token_id: int | None, user_name: str | None) -> None:
     """Revoke one API token by its id, or every token of a user; print what was revoked."""
+    from feasibility.service.accounts import revoke_tokens
     from feasibility.store.db import session_scope
     from feasibility.store.models import ApiToken
-    from feasibility.service.accounts import revoke_tokens
 
     if (token_id is None) == (user_name is None):
         _fail("give --id or --user (one of them)")
@@ -85,8 +85,8 @@ def token_revoke(token_id: int | None, user_name: str | None) -> None:
 @click.option("--from-stdin", is_flag=True, help="Read the new password from the first line of standard input (for scripts).")
 def user_set_password(name: str, from_stdin: bool) -> None:
     """Give a user a new password (asked twice, or read from standard input) and end their dashboard sessions."""
-    from feasibility.store.db import session_scope
     from feasibility.service.accounts import password_problem, set_password
+    from feasibility.store.db import session_scope
 
     with command_runtime(seed_demo=False):
         with session_scope(read_only=True) as session:

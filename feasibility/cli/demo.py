@@ -93,9 +93,9 @@ def make_demo_people() -> dict[str, str]:
 
     The demo proposer becomes the owner of :data:`DEMO_PROPOSER_OWNS` when nobody owns it.
     """
+    from feasibility.service.accounts import create_user
     from feasibility.store.db import session_scope
     from feasibility.store.models import ProposalRecord, User
-    from feasibility.service.accounts import create_user
 
     passwords: dict[str, str] = {}
     with session_scope() as session:

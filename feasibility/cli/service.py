@@ -108,9 +108,9 @@ def token_group() -> None:
 def token_create(user_name: str, role: str | None, label: str | None) -> None:
     """Make an API token and print it once; only its hash is stored."""
     from feasibility.cli.command_app import command_runtime
+    from feasibility.service.accounts import create_token, create_user
     from feasibility.store.db import session_scope
     from feasibility.store.models import User
-    from feasibility.service.accounts import create_token, create_user
 
     with command_runtime(), session_scope() as session:
         user = session.scalar(select(User).where(User.name == user_name))
@@ -137,8 +137,8 @@ def user_group() -> None:
 def user_create(name: str, role: str, email: str | None, password: bool) -> None:
     """Create a user; with --password, ask for a password (stored as a salted hash)."""
     from feasibility.cli.command_app import command_runtime
-    from feasibility.store.db import session_scope
     from feasibility.service.accounts import create_user, password_problem
+    from feasibility.store.db import session_scope
 
     secret = click.prompt("Password", hide_input=True, confirmation_prompt=True) if password else None
     if secret is not None and (problem := password_problem(secret)) is not None:
@@ -152,9 +152,9 @@ def user_create(name: str, role: str, email: str | None, password: bool) -> None
 
 
 def _first_admin_token() -> None:
+    from feasibility.service.accounts import create_token, create_user
     from feasibility.store.db import session_scope
     from feasibility.store.models import User
-    from feasibility.service.accounts import create_token, create_user
 
     with session_scope() as session:
         if session.scalar(select(func.count()).select_from(User)):

@@ -33,10 +33,10 @@ from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import make_transient_to_detached
 
 from feasibility.documents import InstrumentSchedule, Observatory, Proposal, parse_document
+from feasibility.logs import run_context
 from feasibility.results import ProposalResult
 from feasibility.service.current import cached_document
 from feasibility.service.faults import is_lasting, is_passing
-from feasibility.logs import run_context
 from feasibility.service.leases import Heartbeat, aware, holder_is_gone, lease_length, owner_id, working_on
 from feasibility.service.runtime import current_settings
 from feasibility.store.db import JSONText, session_scope

@@ -12,14 +12,14 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from contextlib import contextmanager
-from contextvars import ContextVar
+from contextvars import ContextVar, Token
 from dataclasses import dataclass, field
 from typing import Any
 
 from feasibility.settings import Settings, load_settings
-from feasibility.store.db import Store, bind_store, set_default_store
+from feasibility.store.db import Store, bind_store, set_default_store, unbind_store
 
-__all__ = ["Runtime", "current_runtime", "current_settings", "set_process_runtime"]
+__all__ = ["Runtime", "current_runtime", "current_settings", "set_process_runtime", "unbind"]
 
 _current: ContextVar[Runtime | None] = ContextVar("feasibility_runtime", default=None)
 _process: dict[str, Runtime] = {}
@@ -39,12 +39,15 @@ class Runtime:
     @contextmanager
     def bound(self) -> Iterator[Runtime]:
         """Use this runtime (and its store) for the service calls made inside the block, in this thread or task."""
-        token = _current.set(self)
+        tokens = self.bind()
         try:
-            with bind_store(self.store):
-                yield self
+            yield self
         finally:
-            _current.reset(token)
+            unbind(tokens)
+
+    def bind(self) -> tuple[Token[Runtime | None], Token[Store | None]]:
+        """Bind this runtime in the current context until :func:`unbind` is given what this returns (for app contexts)."""
+        return _current.set(self), bind_store(self.store)
 
     def close(self) -> None:
         """Stop the embedded workers (if any) and close the store's pooled connections."""
@@ -52,6 +55,13 @@ class Runtime:
             if hasattr(helper, "shutdown"):
                 helper.shutdown()
         self.store.dispose()
+
+
+def unbind(tokens: tuple[Token[Runtime | None], Token[Store | None]]) -> None:
+    """Undo a :meth:`Runtime.bind` (in the same context it was made in)."""
+    runtime_token, store_token = tokens
+    unbind_store(store_token)
+    _current.reset(runtime_token)
 
 
 def set_process_runtime(runtime: Runtime) -> None:

@@ -26,7 +26,7 @@ import json
 import weakref
 from collections.abc import Iterator
 from contextlib import contextmanager
-from contextvars import ContextVar
+from contextvars import ContextVar, Token
 from pathlib import Path
 from typing import Any
 
@@ -49,6 +49,7 @@ __all__ = [
     "live_engines",
     "make_engine",
     "open_store",
+    "unbind_store",
     "set_default_store",
     "session_factory",
     "session_scope",
@@ -118,14 +119,14 @@ def open_store(url: str) -> Store:
     return Store(make_engine(url))
 
 
-@contextmanager
-def bind_store(store: Store) -> Iterator[Store]:
-    """Use ``store`` for every session opened in this context (thread or task) inside the block."""
-    token = _bound.set(store)
-    try:
-        yield store
-    finally:
-        _bound.reset(token)
+def bind_store(store: Store) -> Token[Store | None]:
+    """Use ``store`` for every session opened in this context (thread or task) until :func:`unbind_store`."""
+    return _bound.set(store)
+
+
+def unbind_store(token: Token[Store | None]) -> None:
+    """Undo :func:`bind_store` (in the same context)."""
+    _bound.reset(token)
 
 
 def set_default_store(store: Store) -> None:

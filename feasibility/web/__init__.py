@@ -23,7 +23,7 @@ from werkzeug.exceptions import HTTPException
 from feasibility.documents.reading import MAX_DOCUMENT_BYTES
 from feasibility.logs import configure_logging
 from feasibility.service.dispatch import EXTENSION
-from feasibility.service.runtime import Runtime
+from feasibility.service.runtime import Runtime, unbind
 from feasibility.service.startup import start_runtime
 from feasibility.settings import Settings, load_settings
 from feasibility.web import unavailable
@@ -64,13 +64,11 @@ class _RuntimeAppContext(AppContext):
 
     def push(self) -> None:
         super().push()
-        bound = self.app.extensions[RUNTIME].bound()
-        bound.__enter__()
-        self._bindings.append(bound)
+        self._bindings.append(self.app.extensions[RUNTIME].bind())
 
     def pop(self, *args: Any, **kwargs: Any) -> None:
         try:
-            self._bindings.pop().__exit__(None, None, None)
+            unbind(self._bindings.pop())
         finally:
             super().pop(*args, **kwargs)
 
@@ -80,6 +78,12 @@ class WebApp(Flask):
 
     def app_context(self) -> AppContext:
         return _RuntimeAppContext(self)
+
+    def set_settings(self, **values: Any) -> None:
+        """Change settings of this running app (tests; a switch flipped live): its config and its runtime's together."""
+        runtime: Runtime = self.extensions[RUNTIME]
+        runtime.settings = runtime.settings.with_values(values)
+        self.config.update(values)
 
 
 def flask_config(settings: Settings) -> dict[str, Any]:
