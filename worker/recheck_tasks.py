@@ -7,6 +7,7 @@ from typing import Any
 
 from celery import shared_task
 
+from feasibility.service.recheck_answers import plan_answer
 from feasibility.service.rechecks import dispatch_plan, plan_rechecks
 from feasibility.service.runtime import current_settings
 from feasibility.service.webhooks import NOTICE_TASK, deliver_due
@@ -25,7 +26,7 @@ def nightly_recheck() -> dict[str, Any]:
     with session_scope() as session:
         plan = plan_rechecks(session, stale_after=timedelta(days=days))
     dispatch_plan(plan)  # after commit
-    return plan.as_dict()
+    return plan_answer(plan)
 
 
 @shared_task(name=WEBHOOK_TASK)

@@ -86,6 +86,8 @@ def observatory_upload(path: Path, as_json: bool, wait_s: float | None) -> None:
 def recheck(changed_since: str | None, stale_days: float | None, as_json: bool, wait_s: float | None) -> None:
     """Queue the re-checks that schedule or observatory changes, a new engine version or old results call for."""
     from feasibility.cli.command_app import command_runtime
+    from feasibility.cli.recheck_text import plan_text
+    from feasibility.service.recheck_answers import plan_answer
     from feasibility.service.rechecks import plan_rechecks
     from feasibility.store.db import session_scope
 
@@ -95,7 +97,7 @@ def recheck(changed_since: str | None, stale_days: float | None, as_json: bool, 
         with session_scope() as session:
             plan = plan_rechecks(session, changed_since=since, stale_after=timedelta(days=days))
         _dispatch(runtime, plan, wait_s)
-        click.echo(json.dumps(plan.as_dict(), indent=2) if as_json else plan.describe())
+        click.echo(json.dumps(plan_answer(plan), indent=2) if as_json else plan_text(plan))
 
 
 @click.group("notices")
@@ -119,8 +121,10 @@ def notices_send(as_json: bool) -> None:
 
 def _upload(action: Any, path: Path, document: str, as_json: bool, wait_s: float | None) -> None:
     from feasibility.cli.command_app import command_runtime
+    from feasibility.cli.recheck_text import upload_text
     from feasibility.documents.loading import DocumentError
     from feasibility.documents.reading import read_file
+    from feasibility.service.recheck_answers import upload_answer
     from feasibility.store.db import session_scope
 
     try:
@@ -131,7 +135,7 @@ def _upload(action: Any, path: Path, document: str, as_json: bool, wait_s: float
         try:
             with session_scope() as session:
                 outcome = action(session, data, None)
-                answer, text = outcome.as_dict(), outcome.describe()
+                answer, text = upload_answer(outcome), upload_text(outcome)
         except DocumentError as error:
             error.document = str(path)
             _bad(error)
