@@ -23,6 +23,7 @@ from typing import Any, cast
 from sqlalchemy import CursorResult, Table, update
 from sqlalchemy.exc import SQLAlchemyError
 
+from feasibility.logs import run_context
 from feasibility.service.runtime import Runtime, current_runtime, current_settings
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, utcnow
@@ -136,6 +137,10 @@ class Heartbeat:
         self._thread.join(1.0)  # a renewal stuck on an unreachable store need not hold the run up: it matches nothing later
 
     def _run(self) -> None:
+        with run_context(self.run_id):  # the heartbeat's thread logs as the run's too
+            self._beat()
+
+    def _beat(self) -> None:
         interval = max(self.lease.total_seconds() / 3, 0.05)
         while not self._stop.wait(interval):
             now = utcnow()
