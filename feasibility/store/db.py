@@ -45,7 +45,6 @@ __all__ = [
     "dispose_pools_after_fork",
     "default_database_url",
     "get_engine",
-    "instance_dir",
     "live_engines",
     "make_engine",
     "open_store",
@@ -98,13 +97,6 @@ class Store:
 _default: dict[str, Store] = {}
 _bound: ContextVar[Store | None] = ContextVar("feasibility_store", default=None)
 _engines: weakref.WeakSet[Engine] = weakref.WeakSet()
-
-
-def instance_dir() -> Path:
-    """Where the embedded database lives (the settings' ``home``, default ``./instance``)."""
-    from feasibility.settings import load_settings
-
-    return load_settings().instance_dir()
 
 
 def default_database_url() -> str:

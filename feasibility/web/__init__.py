@@ -90,7 +90,6 @@ def flask_config(settings: Settings) -> dict[str, Any]:
     """The Flask config made from ``settings``: every setting under its upper-case name, and Flask's fixed ones."""
     config = {name.upper(): getattr(settings, name) for name in Settings.model_fields}
     config["DATABASE_URL"] = settings.store_url()
-    config["HOME"] = str(settings.instance_dir())
     config.update(_FLASK_FIXED)
     return config
 
