@@ -164,3 +164,26 @@ def test_the_check_finds_a_planted_import(tmp_path: Path, where: str, text: str,
 def test_the_cycle_search_finds_a_cycle() -> None:
     assert cycle_in({"a": {"b"}, "b": {"c"}, "c": {"a"}}) == ["a", "b", "c", "a"]
     assert cycle_in({"a": {"b"}, "b": {"c"}}) is None
+
+
+@pytest.mark.parametrize(
+    "code",
+    [
+        "import worker.celery_app",  # a Celery worker process starting
+        "from click.testing import CliRunner\nfrom feasibility.cli import main\n"
+        "for args in (['db', 'upgrade'], ['token', 'create', '--user', 'ada', '--role', 'admin'], ['recheck']):\n"
+        "    result = CliRunner().invoke(main, args)\n    assert result.exit_code == 0, result.output",
+    ],
+    ids=["worker", "command"],
+)
+def test_workers_and_commands_start_without_the_web_app(code: str, tmp_path: Path) -> None:
+    """Run for real in a fresh interpreter: neither Flask nor any module of the web face is loaded."""
+    import os
+    import subprocess
+    import sys
+
+    env = {k: v for k, v in os.environ.items() if not k.startswith("FEASIBILITY_") and k not in ("DATABASE_URL", "BROKER_URL")}
+    env.update(FEASIBILITY_HOME=str(tmp_path), FEASIBILITY_SEED_DEMO="false")
+    check = code + "\nimport sys\nloaded = sorted(m for m in sys.modules if m == 'flask' or m.startswith('feasibility.web'))\nassert not loaded, loaded\n"
+    done = subprocess.run([sys.executable, "-c", check], env=env, cwd=ROOT, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr[-2000:]

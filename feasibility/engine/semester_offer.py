@@ -24,6 +24,7 @@ import hashlib
 import json
 import os
 import threading
+from collections.abc import Iterator
 from datetime import date
 from pathlib import Path
 from typing import Any
@@ -86,18 +87,9 @@ def instrument_hours_offered(offer: SemesterOffer, observatory: Observatory, sch
     Night ends at the twilight the instrument needs (its ``twilight`` setting).
     Without a schedule there is nothing to offer: an empty mapping.
     """
-    if schedule is None:
-        return {}
-    index = {night: i for i, night in enumerate(offer["nights"])}
     totals: dict[str, float] = {}
-    for entry in schedule.nights:
-        position = index.get(entry.night.isoformat())
-        if entry.status != "open" or entry.instrument is None or position is None:
-            continue
-        instrument = observatory.instrument_named(entry.instrument)
-        twilight = instrument.twilight if instrument is not None else "astronomical"
+    for name, twilight, position in _open_nights(offer, observatory, schedule):
         hours = offer["night_hours"][twilight][position] * offer["weather"][position]
-        name = instrument.name if instrument is not None else entry.instrument
         totals[name] = totals.get(name, 0.0) + hours
     return totals
 
@@ -109,17 +101,10 @@ def lunar_offer(offer: SemesterOffer, observatory: Observatory, schedule: Instru
     A time of night belongs to the first lunar time whose Moon it fits (dark, then grey, then bright), so the
     three add up to the instrument's night hours. Without a schedule: an empty mapping.
     """
-    if schedule is None or "lunar" not in offer:
+    if "lunar" not in offer:
         return {}
-    index = {night: i for i, night in enumerate(offer["nights"])}
     totals: dict[str, dict[str, dict[str, Any]]] = {}
-    for entry in schedule.nights:
-        position = index.get(entry.night.isoformat())
-        if entry.status != "open" or entry.instrument is None or position is None:
-            continue
-        instrument = observatory.instrument_named(entry.instrument)
-        twilight = instrument.twilight if instrument is not None else "astronomical"
-        name = instrument.name if instrument is not None else entry.instrument
+    for name, twilight, position in _open_nights(offer, observatory, schedule):
         weight = offer["weather"][position]
         mine = totals.setdefault(name, {time: {"hours": 0.0, "ra": [0.0] * 24} for time in LUNAR_TIMES})
         for time in LUNAR_TIMES:
@@ -127,6 +112,20 @@ def lunar_offer(offer: SemesterOffer, observatory: Observatory, schedule: Instru
             mine[time]["ra"] = [a + b * weight for a, b in zip(mine[time]["ra"], row)]
             mine[time]["hours"] += sum(row) * weight
     return totals
+
+
+def _open_nights(offer: SemesterOffer, observatory: Observatory, schedule: InstrumentSchedule | None) -> Iterator[tuple[str, str, int]]:
+    """The open nights the schedule mounts an instrument on, within the offer: (instrument name, its twilight, night's position)."""
+    if schedule is None:
+        return
+    index = {night: i for i, night in enumerate(offer["nights"])}
+    for entry in schedule.nights:
+        position = index.get(entry.night.isoformat())
+        if entry.status != "open" or entry.instrument is None or position is None:
+            continue
+        instrument = observatory.instrument_named(entry.instrument)
+        twilight = instrument.twilight if instrument is not None else "astronomical"
+        yield (instrument.name if instrument is not None else entry.instrument), twilight, position
 
 
 def _lunar_split(grid: Any, radec_from_vector: Any) -> dict[str, dict[str, list[list[float]]]]:
