@@ -6,9 +6,10 @@ from datetime import timedelta
 from typing import Any
 
 from celery import shared_task
-from flask import current_app
 
-from feasibility.service.rechecks import DEFAULT_STALE_DAYS, dispatch_plan, plan_rechecks
+from feasibility.service.recheck_answers import plan_answer
+from feasibility.service.rechecks import dispatch_plan, plan_rechecks
+from feasibility.service.runtime import current_settings
 from feasibility.service.webhooks import NOTICE_TASK, deliver_due
 from feasibility.store.db import session_factory, session_scope
 
@@ -21,11 +22,11 @@ WEBHOOK_TASK = NOTICE_TASK
 @shared_task(name=RECHECK_TASK)
 def nightly_recheck() -> dict[str, Any]:
     """Queue what schedule or observatory changes, a new engine version or stale results call for; idempotent."""
-    days = float(current_app.config.get("STALE_DAYS", DEFAULT_STALE_DAYS))
+    days = float(current_settings().stale_days)
     with session_scope() as session:
         plan = plan_rechecks(session, stale_after=timedelta(days=days))
     dispatch_plan(plan)  # after commit
-    return plan.as_dict()
+    return plan_answer(plan)
 
 
 @shared_task(name=WEBHOOK_TASK)

@@ -8,12 +8,12 @@ from typing import Any
 
 from celery import shared_task
 from celery.signals import worker_init, worker_process_init
-from flask import current_app
 from sqlalchemy.exc import SQLAlchemyError
 
-from feasibility.service.dispatch import CHECK_TASK, EXTENSION
+from feasibility.service.dispatch import CHECK_TASK
 from feasibility.service.relay import relay
 from feasibility.service.runs import LeaseHeld, execute_run
+from feasibility.service.runtime import current_runtime
 from feasibility.store.db import dispose_pools_after_fork
 
 __all__ = ["RELAY_TASK", "check_run", "sweep_runs"]
@@ -59,7 +59,10 @@ def sweep_runs() -> int:
     not counted among the broker's unacknowledged messages.
     """
     try:
-        return relay(current_app.extensions[EXTENSION], current_app.config).sent
+        runtime = current_runtime()
+        if runtime is None or runtime.dispatcher is None:
+            raise RuntimeError("the relay needs the worker's runtime")
+        return relay(runtime.dispatcher, runtime.settings).sent
     except Exception as exc:  # noqa: BLE001 - the store or the broker away: the next pass, seconds later, does it
         log.warning("relay pass skipped: %s: %s", type(exc).__name__, str(exc).splitlines()[0] if str(exc) else "")
         return 0

@@ -15,7 +15,16 @@ __all__ = ["main"]
 @click.pass_context
 def main(ctx: click.Context) -> None:
     """Technical feasibility checks of telescope proposals over a whole semester."""
+    from feasibility.logs import configure_logging
+    from feasibility.settings import SettingsError, load_settings
     from feasibility.store import db
+
+    try:
+        settings = load_settings()
+    except SettingsError as exc:
+        click.echo(f"error: {exc}", err=True)
+        ctx.exit(2)
+    configure_logging(settings.log_level or "WARNING")
 
     # Close the store connections this command opened when it ends, rather than dropping
     # them (PostgreSQL logs a dropped connection; a host process, such as a test, keeps going).

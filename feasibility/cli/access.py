@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING, NoReturn
 import click
 from sqlalchemy import select
 
-from feasibility.cli.command_app import command_app
+from feasibility.cli.command_app import command_runtime
 
 if TYPE_CHECKING:
     from sqlalchemy.orm import Session
@@ -36,7 +36,7 @@ def token_list(user_name: str | None) -> None:
     from feasibility.store.db import session_scope
     from feasibility.store.models import ApiToken, User
 
-    with command_app(SEED_DEMO=False), session_scope(read_only=True) as session:
+    with command_runtime(seed_demo=False), session_scope(read_only=True) as session:
         query = select(ApiToken, User.name).join(User, User.id == ApiToken.user_id).order_by(ApiToken.id)
         if user_name is not None:
             _user_named(session, user_name, "--user")
@@ -54,13 +54,13 @@ def token_list(user_name: str | None) -> None:
 @click.option("--user", "user_name", default=None, help="Revoke every token of this user.")
 def token_revoke(token_id: int | None, user_name: str | None) -> None:
     """Revoke one API token by its id, or every token of a user; print what was revoked."""
+    from feasibility.service.accounts import revoke_tokens
     from feasibility.store.db import session_scope
     from feasibility.store.models import ApiToken
-    from feasibility.web.auth import revoke_tokens
 
     if (token_id is None) == (user_name is None):
         _fail("give --id or --user (one of them)")
-    with command_app(SEED_DEMO=False), session_scope() as session:
+    with command_runtime(seed_demo=False), session_scope() as session:
         if token_id is not None:
             token = session.get(ApiToken, token_id)
             if token is None:
@@ -85,10 +85,10 @@ def token_revoke(token_id: int | None, user_name: str | None) -> None:
 @click.option("--from-stdin", is_flag=True, help="Read the new password from the first line of standard input (for scripts).")
 def user_set_password(name: str, from_stdin: bool) -> None:
     """Give a user a new password (asked twice, or read from standard input) and end their dashboard sessions."""
+    from feasibility.service.accounts import password_problem, set_password
     from feasibility.store.db import session_scope
-    from feasibility.web.auth import password_problem, set_password
 
-    with command_app(SEED_DEMO=False):
+    with command_runtime(seed_demo=False):
         with session_scope(read_only=True) as session:
             _user_named(session, name, "NAME")  # before asking for a password
         if from_stdin:

@@ -1,4 +1,8 @@
-"""The web app as a short command uses it: on the configured store, in an app context, its connections closed after."""
+"""The service as a short command uses it: a runtime on the configured store, bound, its connections closed after.
+
+No web app is built: a command reads the settings once, starts the service's
+runtime (store, Celery client, dispatcher) and binds it while it works.
+"""
 
 from __future__ import annotations
 
@@ -6,24 +10,24 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
-__all__ = ["command_app"]
+from feasibility.service.runtime import Runtime
+from feasibility.service.startup import start_runtime
+from feasibility.settings import load_settings
+
+__all__ = ["command_runtime"]
 
 
 @contextmanager
-def command_app(**settings: Any) -> Iterator[Any]:
-    """``create_app(settings)`` inside its app context; afterwards its workers stopped and its pooled connections closed.
+def command_runtime(**settings: Any) -> Iterator[Runtime]:
+    """The runtime on the environment's settings (``settings`` replace some, by name), bound; afterwards its
+    workers stopped and its pooled connections closed.
 
     A command that left its connections to the garbage collector would leave PostgreSQL
     sessions open until the process ends (and warnings in tests that run many commands).
     """
-    from feasibility.web import create_app
-
-    app = create_app(settings or None)
+    runtime = start_runtime(load_settings().with_values(settings))
     try:
-        with app.app_context():
-            yield app
+        with runtime.bound():
+            yield runtime
     finally:
-        dispatcher = app.extensions.get("feasibility.dispatch")
-        if dispatcher is not None and hasattr(dispatcher, "shutdown"):
-            dispatcher.shutdown()
-        app.extensions["feasibility.db"]["engine"].dispose()
+        runtime.close()

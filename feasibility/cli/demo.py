@@ -45,7 +45,7 @@ _POLL_S, _WAIT_AT_MOST_S = 2.0, 3600.0
 
 
 def seed_demo_store() -> None:
-    """Submit the demo proposals and make the demo people (in the app context), printing what was made."""
+    """Submit the demo proposals and make the demo people (with the service's runtime bound), printing what was made."""
     from feasibility.service.dispatch import enqueue
 
     created = submit_demo_proposals()
@@ -93,9 +93,9 @@ def make_demo_people() -> dict[str, str]:
 
     The demo proposer becomes the owner of :data:`DEMO_PROPOSER_OWNS` when nobody owns it.
     """
+    from feasibility.service.accounts import create_user
     from feasibility.store.db import session_scope
     from feasibility.store.models import ProposalRecord, User
-    from feasibility.web.auth import create_user
 
     passwords: dict[str, str] = {}
     with session_scope() as session:
@@ -120,9 +120,8 @@ def ask_demo_simulation(realisations: int = DEMO_REALISATIONS) -> int | None:
     store until no run is queued or running (at most an hour), then sends it as the API does.
     Returns the simulation's id, or None when none was asked for.
     """
-    from flask import current_app
-
     from feasibility.demo_semester import DEMO_SEMESTER
+    from feasibility.service.runtime import current_runtime
     from feasibility.service.simulations import SimulationSettings, ask_for_simulation, send_simulation
     from feasibility.store.db import session_scope
     from feasibility.store.models import Simulation
@@ -132,10 +131,12 @@ def ask_demo_simulation(realisations: int = DEMO_REALISATIONS) -> int | None:
         if finished is not None:
             return None
         simulation_id = ask_for_simulation(session, DEMO_SEMESTER, SimulationSettings(realisations=realisations), None).id
-    app = current_app._get_current_object()  # type: ignore[attr-defined]
+    runtime = current_runtime()
+    if runtime is None:
+        raise RuntimeError("the demo's simulation needs the service's runtime bound")
 
     def send_when_runs_are_done() -> None:
-        with app.app_context():
+        with runtime.bound():
             wait_for_check_runs()
             send_simulation(simulation_id)
 

@@ -85,17 +85,19 @@ def observatory_upload(path: Path, as_json: bool, wait_s: float | None) -> None:
 @_WAIT
 def recheck(changed_since: str | None, stale_days: float | None, as_json: bool, wait_s: float | None) -> None:
     """Queue the re-checks that schedule or observatory changes, a new engine version or old results call for."""
-    from feasibility.service.rechecks import DEFAULT_STALE_DAYS, plan_rechecks
+    from feasibility.cli.command_app import command_runtime
+    from feasibility.cli.recheck_text import plan_text
+    from feasibility.service.recheck_answers import plan_answer
+    from feasibility.service.rechecks import plan_rechecks
     from feasibility.store.db import session_scope
 
     since = _parse_time(changed_since, "--changed-since") if changed_since else None
-    app = _app()
-    with app.app_context():
-        days = stale_days if stale_days is not None else float(app.config.get("STALE_DAYS", DEFAULT_STALE_DAYS))
+    with command_runtime() as runtime:
+        days = stale_days if stale_days is not None else float(runtime.settings.stale_days)
         with session_scope() as session:
             plan = plan_rechecks(session, changed_since=since, stale_after=timedelta(days=days))
-        _dispatch(app, plan, wait_s)
-        click.echo(json.dumps(plan.as_dict(), indent=2) if as_json else plan.describe())
+        _dispatch(runtime, plan, wait_s)
+        click.echo(json.dumps(plan_answer(plan), indent=2) if as_json else plan_text(plan))
 
 
 @click.group("notices")
@@ -107,52 +109,47 @@ def notices_group() -> None:
 @_JSON
 def notices_send(as_json: bool) -> None:
     """Send the notices that are due (failed ones are retried later with growing delays); for cron."""
+    from feasibility.cli.command_app import command_runtime
     from feasibility.service.webhooks import deliver_due
     from feasibility.store.db import session_factory
 
-    with _app().app_context():
+    with command_runtime():
         report = deliver_due(session_factory)
     refused = f", refused (not a public address) {report.refused}" if report.refused else ""
     click.echo(json.dumps(report.as_dict()) if as_json else f"sent {report.sent}, to retry {report.retrying}, given up {report.failed}{refused}")
 
 
 def _upload(action: Any, path: Path, document: str, as_json: bool, wait_s: float | None) -> None:
+    from feasibility.cli.command_app import command_runtime
+    from feasibility.cli.recheck_text import upload_text
     from feasibility.documents.loading import DocumentError
     from feasibility.documents.reading import read_file
+    from feasibility.service.recheck_answers import upload_answer
     from feasibility.store.db import session_scope
 
     try:
         data = read_file(path)  # at most the size limit: /dev/zero is refused, not read
     except DocumentError as error:
         _bad(error)
-    app = _app()
-    with app.app_context():
+    with command_runtime() as runtime:
         try:
             with session_scope() as session:
                 outcome = action(session, data, None)
-                answer, text = outcome.as_dict(), outcome.describe()
+                answer, text = upload_answer(outcome), upload_text(outcome)
         except DocumentError as error:
             error.document = str(path)
             _bad(error)
-        _dispatch(app, outcome.plan, wait_s)
+        _dispatch(runtime, outcome.plan, wait_s)
     click.echo(json.dumps(answer, indent=2) if as_json else text)
 
 
-def _app() -> Any:
-    """The app on the configured store (made by ``feasibility db upgrade`` or ``serve``)."""
-    from feasibility.web import create_app
-
-    return create_app()
-
-
-def _dispatch(app: Any, plan: Any, wait_s: float | None) -> None:
+def _dispatch(runtime: Any, plan: Any, wait_s: float | None) -> None:
     """Hand the plan to the workers; on the embedded store only when asked to wait (this process is short-lived)."""
-    from feasibility.service.dispatch import EXTENSION
     from feasibility.service.rechecks import dispatch_plan
 
     if not plan.run_ids:
         return
-    dispatcher = app.extensions[EXTENSION]
+    dispatcher = runtime.dispatcher
     if dispatcher.mode == "embedded" and wait_s is None:
         click.echo(
             f"{len(plan.run_ids)} re-checks wait in the store; a running `feasibility serve` computes them, "

@@ -50,6 +50,7 @@ from numpy.typing import NDArray
 from feasibility.engine.moonsky import moon_term
 from feasibility.engine.positions import enu_matrix, illuminated_fraction, phase_angle_deg, radec_from_vector, rot3
 from feasibility.offline import configure_offline, log_astropy_warnings, note_beyond_iers_table
+from feasibility.settings import cache_dir as settings_cache_dir
 
 __all__ = [
     "DEFAULT_STEP_MINUTES",
@@ -293,14 +294,13 @@ def sky_grid(
         first_night,
         last_night,
         float(step_minutes),
-        os.environ.get("FEASIBILITY_CACHE_DIR"),
+        str(cache_dir()),
     )
 
 
 def cache_dir() -> Path:
-    """Where grids are cached on disk: ``$FEASIBILITY_CACHE_DIR`` or ``~/.cache/feasibility``."""
-    configured = os.environ.get("FEASIBILITY_CACHE_DIR")
-    return Path(configured).expanduser() if configured else Path.home() / ".cache" / "feasibility"
+    """Where grids are cached on disk: the settings' ``cache_dir`` (``$FEASIBILITY_CACHE_DIR``) or ``~/.cache/feasibility``."""
+    return settings_cache_dir()
 
 
 @functools.lru_cache(maxsize=8)  # a grid with its views takes roughly 10-20 MB
@@ -311,11 +311,11 @@ def _memory_cached(
     first_night: date,
     last_night: date,
     step_minutes: float,
-    configured_dir: str | None,
+    configured_dir: str,
 ) -> SkyGrid:
-    """The grid from disk or computed; ``configured_dir`` (the environment's setting) only keys this cache."""
+    """The grid from disk or computed, cached in ``configured_dir`` (which also keys this cache)."""
     args = (latitude_deg, longitude_deg, elevation_m, first_night, last_night, step_minutes)
-    path = cache_dir() / f"skygrid-v{GRID_VERSION}-{_cache_key(*args)}.npz"
+    path = Path(configured_dir) / f"skygrid-v{GRID_VERSION}-{_cache_key(*args)}.npz"
     grid = _read(path, args)
     if grid is None:
         grid = build_sky_grid(*args)

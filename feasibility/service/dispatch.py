@@ -1,6 +1,6 @@
 """Handing check runs to whatever computes them: Celery workers, or the embedded pool.
 
-With ``BROKER_URL`` set the app has a :class:`CeleryDispatcher`; without, an
+With ``BROKER_URL`` set the runtime has a :class:`CeleryDispatcher`; without, an
 :class:`~feasibility.service.pool.EmbeddedPool` of threads in this process.
 Either way the work is :func:`feasibility.service.runs.execute_run`, and either
 way :func:`enqueue` must be called only after the transaction that created the
@@ -18,7 +18,8 @@ import logging
 from collections.abc import Iterable
 from typing import Any, Protocol
 
-from flask import current_app, has_app_context
+from feasibility.service.runtime import current_runtime
+from feasibility.settings import Settings
 
 __all__ = ["BULK_PRIORITY", "CHECK_TASK", "SUBMISSION_PRIORITY", "CeleryDispatcher", "Dispatcher", "control_queue_name", "enqueue", "queue_names"]
 
@@ -29,6 +30,7 @@ BULK_PRIORITY = 6
 #: The registered name of the Celery task (sent by name so the web app need not import ``worker``).
 CHECK_TASK = "feasibility.check_run"
 
+#: Where the web app keeps its dispatcher (``app.extensions``), as tests and the commands that serve look it up.
 EXTENSION = "feasibility.dispatch"
 
 #: The marker key the relay keeps in the broker: gone means the broker lost its data (and its messages).
@@ -50,14 +52,15 @@ def enqueue(run_ids: Iterable[int], *, bulk: bool = False) -> bool:
 
     Call only after the transaction that created the runs has committed. Returns False
     when the broker could not take them: they stay unsent and the relay sends them
-    within seconds of the broker being back. Needs an app context (``with app.app_context():``).
+    within seconds of the broker being back. Needs a runtime bound (an application context, a worker, a command).
     """
     ids = [int(i) for i in run_ids]
     if not ids:
         return True
-    if not has_app_context():
-        raise RuntimeError("enqueue() needs an application context: use `with create_app().app_context():`")
-    dispatcher = current_app.extensions[EXTENSION]
+    runtime = current_runtime()
+    if runtime is None or runtime.dispatcher is None:
+        raise RuntimeError("enqueue() needs a runtime with a dispatcher: an application context (`with app.app_context():`), a worker or a command")
+    dispatcher = runtime.dispatcher
     try:
         dispatcher.enqueue(ids, bulk=bulk)
     except Exception as exc:  # noqa: BLE001 - whatever the broker's client raises, the runs are safe in the outbox
@@ -73,14 +76,14 @@ def enqueue(run_ids: Iterable[int], *, bulk: bool = False) -> bool:
     return True
 
 
-def queue_names(config: dict[str, Any]) -> str:
+def queue_names(settings: Settings) -> str:
     """The Celery queue of check runs (a prefix lets tests and deployments share one Redis)."""
-    return f"{config.get('QUEUE_PREFIX') or 'feasibility'}.checks"
+    return f"{settings.queue_prefix or 'feasibility'}.checks"
 
 
-def control_queue_name(config: dict[str, Any]) -> str:
+def control_queue_name(settings: Settings) -> str:
     """The Celery queue of the periodic tasks (relay, re-checks, notices), apart from the check runs."""
-    return f"{config.get('QUEUE_PREFIX') or 'feasibility'}.control"
+    return f"{settings.queue_prefix or 'feasibility'}.control"
 
 
 class CeleryDispatcher:

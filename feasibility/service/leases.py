@@ -20,10 +20,11 @@ from contextlib import contextmanager
 from datetime import UTC, datetime, timedelta
 from typing import Any, cast
 
-from flask import current_app, has_app_context
 from sqlalchemy import CursorResult, Table, update
 from sqlalchemy.exc import SQLAlchemyError
 
+from feasibility.logs import run_context
+from feasibility.service.runtime import Runtime, current_runtime, current_settings
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, utcnow
 
@@ -31,7 +32,7 @@ __all__ = ["DEFAULT_LEASE", "Heartbeat", "active_here", "holder_is_gone", "lease
 
 log = logging.getLogger(__name__)
 
-#: How long a claim lasts without renewal; the app's ``LEASE_S`` setting overrides it.
+#: How long a claim lasts without renewal by default; the settings' ``lease_s`` decides.
 DEFAULT_LEASE = timedelta(seconds=30)
 
 _RUNS: Table = CheckRun.__table__  # type: ignore[assignment]
@@ -47,9 +48,8 @@ def owner_id() -> str:
 
 
 def lease_length() -> timedelta:
-    if has_app_context() and current_app.config.get("LEASE_S"):
-        return timedelta(seconds=float(current_app.config["LEASE_S"]))
-    return DEFAULT_LEASE
+    """How long a claim lasts without renewal: the current settings' ``lease_s``."""
+    return timedelta(seconds=float(current_settings().lease_s))
 
 
 def active_here(run_id: int) -> bool:
@@ -125,7 +125,7 @@ class Heartbeat:
         self.deadline = utcnow() + max_running
         self.lost = False
         self._stop = threading.Event()
-        self._app: Any = current_app._get_current_object() if has_app_context() else None  # type: ignore[attr-defined]
+        self._runtime: Runtime | None = current_runtime()  # the heartbeat's thread starts with an empty context
         self._thread = threading.Thread(target=self._run, name=f"lease-{run_id}", daemon=True)
 
     def __enter__(self) -> Heartbeat:
@@ -137,6 +137,10 @@ class Heartbeat:
         self._thread.join(1.0)  # a renewal stuck on an unreachable store need not hold the run up: it matches nothing later
 
     def _run(self) -> None:
+        with run_context(self.run_id):  # the heartbeat's thread logs as the run's too
+            self._beat()
+
+    def _beat(self) -> None:
         interval = max(self.lease.total_seconds() / 3, 0.05)
         while not self._stop.wait(interval):
             now = utcnow()
@@ -152,9 +156,9 @@ class Heartbeat:
                 log.warning("check run %s: lease not renewed (%s)", self.run_id, exc.__class__.__name__)
 
     def _renew(self, until: datetime) -> bool:
-        if self._app is None:
+        if self._runtime is None:
             return self._renew_here(until)
-        with self._app.app_context():
+        with self._runtime.bound():
             return self._renew_here(until)
 
     def _renew_here(self, until: datetime) -> bool:

@@ -17,13 +17,13 @@ import itertools
 import logging
 import queue
 import threading
-from typing import Any
 
 from sqlalchemy.exc import SQLAlchemyError
 
 from feasibility.service.dispatch import BULK_PRIORITY, SUBMISSION_PRIORITY
 from feasibility.service.relay import relay
 from feasibility.service.runs import LeaseHeld, execute_run
+from feasibility.service.runtime import Runtime
 
 __all__ = ["EmbeddedPool"]
 
@@ -37,8 +37,8 @@ class EmbeddedPool:
     #: Its queue is this process's memory: a run is sent again whenever it is queued in the store but not here.
     durable = False
 
-    def __init__(self, app: Any, workers: int = 2, sweep_interval_s: float = 30.0, max_retries: int = 5, retry_base_s: float = 0.5) -> None:
-        self.app = app
+    def __init__(self, runtime: Runtime, workers: int = 2, sweep_interval_s: float = 30.0, max_retries: int = 5, retry_base_s: float = 0.5) -> None:
+        self.runtime = runtime  # bound in each thread: threads start with an empty context
         self.workers = workers
         self.sweep_interval_s = sweep_interval_s
         self.max_retries = max_retries
@@ -90,10 +90,10 @@ class EmbeddedPool:
 
     def sweep(self) -> int:
         """One relay pass: take back runs of dead workers; queue runs that wait in the store but not here."""
-        with self.app.app_context():
+        with self.runtime.bound():
             with self._lock:
                 waiting = set(self._pending)
-            return relay(self, self.app.config, exclude=waiting).sent
+            return relay(self, self.runtime.settings, exclude=waiting).sent
 
     def _work(self) -> None:
         while not self._stop.is_set():
@@ -104,7 +104,7 @@ class EmbeddedPool:
                 self._busy += 1
             retry = False
             try:
-                with self.app.app_context():
+                with self.runtime.bound():
                     execute_run(run_id)
             except LeaseHeld as held:  # computed elsewhere: look again when its lease would lapse
                 retry = True

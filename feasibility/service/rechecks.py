@@ -93,28 +93,6 @@ class RecheckPlan:
     def queued(self) -> int:
         return len(self.run_ids)
 
-    def as_dict(self) -> dict[str, Any]:
-        """The JSON form of the API answer and the command's ``--json`` output."""
-        return {
-            "queued": self.queued,
-            "already_queued": self.already_queued,
-            "by_reason": dict(sorted(self.by_reason.items())),
-            "by_instrument": dict(sorted(self.by_instrument.items())),
-            "proposals": sorted(self.proposals),
-            "run_ids": list(self.run_ids),
-        }
-
-    def describe(self) -> str:
-        """One line for the command line."""
-        if not self.queued:
-            extra = f" ({self.already_queued} already queued)" if self.already_queued else ""
-            return f"queued no re-checks{extra}"
-        reasons = ", ".join(f"{n} {reason}" for reason, n in sorted(self.by_reason.items()))
-        line = f"queued {self.queued} re-check{'s' if self.queued != 1 else ''} ({reasons})"
-        if self.by_instrument:
-            line += "; re-checked proposals per changed instrument: " + ", ".join(f"{k} {v}" for k, v in sorted(self.by_instrument.items()))
-        return line
-
 
 @dataclass
 class Upload:
@@ -126,33 +104,6 @@ class Upload:
     previous: ScheduleVersion | ObservatoryVersion | None
     diff: ScheduleDiff | None
     plan: RecheckPlan
-
-    def as_dict(self) -> dict[str, Any]:
-        version = self.version
-        return {
-            "kind": self.kind,
-            "created": self.created,
-            "version": version_dict(version),
-            "previous": version_dict(self.previous) if self.previous is not None else None,
-            "diff": self.diff.as_dict() if self.diff is not None else None,
-            "rechecks": self.plan.as_dict(),
-        }
-
-    def describe(self) -> str:
-        """A few lines for the command line."""
-        semester = f" {self.version.semester}" if isinstance(self.version, ScheduleVersion) else ""
-        label = f"{self.kind}{semester} version {self.version.version_label!r}"
-        if not self.created:
-            return f"{label} is already in force (same content): nothing stored, no re-checks"
-        lines = [f"stored {label} (id {self.version.id})"]
-        if self.diff is not None:
-            d = self.diff
-            lines.append(
-                f"changes: {len(d.nights_added)} nights added, {len(d.nights_removed)} removed, "
-                f"{len(d.instrument_changed)} instrument changed, {len(d.status_changed)} status changed"
-            )
-        lines.append(self.plan.describe())
-        return "\n".join(lines)
 
 
 def upload_schedule(session: Session, data: dict[str, Any] | str | bytes, uploaded_by: User | None = None) -> Upload:
@@ -306,22 +257,6 @@ def previous_schedule(session: Session, version: ScheduleVersion) -> ScheduleVer
         .limit(1)
     )
     return session.scalars(query).first()
-
-
-def version_dict(version: ScheduleVersion | ObservatoryVersion) -> dict[str, Any]:
-    """A stored version's identity (not its document)."""
-    data: dict[str, Any] = {
-        "id": version.id,
-        "version": version.version_label,
-        "content_hash": version.content_hash,
-        "uploaded_at": _aware(version.uploaded_at).isoformat() if version.uploaded_at else None,
-        "uploaded_by": version.uploaded_by,
-    }
-    if isinstance(version, ScheduleVersion):
-        data["semester"] = version.semester
-    else:
-        data["name"] = version.name
-    return data
 
 
 # --- helpers ---------------------------------------------------------------------------

@@ -37,6 +37,7 @@ from sqlalchemy import CursorResult, Table, and_, func, or_, select, update
 from sqlalchemy.orm import Session
 
 from feasibility.service.leases import holder_is_gone, owner_id
+from feasibility.settings import Settings
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, utcnow
 
@@ -62,15 +63,15 @@ class RelayPass:
         return len(self.fresh) + len(self.bulk)
 
 
-def relay(dispatcher: Any, config: Any, *, exclude: set[int] | None = None, limit: int = 1000) -> RelayPass:
-    """One pass of the relay (needs an app context); see the module's description."""
+def relay(dispatcher: Any, settings: Settings, *, exclude: set[int] | None = None, limit: int = 1000) -> RelayPass:
+    """One pass of the relay (on the bound store); see the module's description."""
     now = utcnow()
-    lease = timedelta(seconds=float(config.get("LEASE_S") or 30))
+    lease = timedelta(seconds=float(settings.lease_s))
     done = RelayPass(taken_back=take_back_lapsed(now, lease))
     durable = bool(getattr(dispatcher, "durable", False))
     with session_scope() as session:
         if durable:
-            resend_before, done.lost_messages = _resend_horizon(session, dispatcher, config, now)
+            resend_before, done.lost_messages = _resend_horizon(session, dispatcher, settings, now)
             rows = _to_send(session, now - _CREATOR_GRACE, resend_before, exclude or set(), limit)
         else:  # the pool's memory is its queue: every queued run not waiting there is unsent
             rows = _to_send(session, now, now, exclude or set(), limit)
@@ -118,11 +119,11 @@ def mark_sent(run_ids: Iterable[int]) -> None:
         )
 
 
-def _resend_horizon(session: Session, dispatcher: Any, config: Any, now: datetime) -> tuple[datetime, bool]:
+def _resend_horizon(session: Session, dispatcher: Any, settings: Settings, now: datetime) -> tuple[datetime, bool]:
     """Runs sent before the returned moment are sent again; True when messages were found lost."""
-    interval = float(config.get("SWEEP_INTERVAL_S") or 5)
+    interval = float(settings.sweep_interval_s or 5)
     grace = timedelta(seconds=max(2 * interval, 5.0))
-    backstop = now - timedelta(seconds=float(config.get("QUEUED_TIMEOUT_S") or 600))
+    backstop = now - timedelta(seconds=float(settings.queued_timeout_s))
     if hasattr(dispatcher, "broker_kept_data") and not dispatcher.broker_kept_data():
         log.warning("relay: the broker lost its messages (restarted without persistence); sending every queued run again")
         return now, True

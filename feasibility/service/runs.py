@@ -28,16 +28,17 @@ import traceback
 from datetime import datetime, timedelta
 from typing import Any
 
-from flask import current_app, has_app_context
 from sqlalchemy import Table, Update, and_, insert, or_, select, text, update
 from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import make_transient_to_detached
 
 from feasibility.documents import InstrumentSchedule, Observatory, Proposal, parse_document
+from feasibility.logs import run_context
 from feasibility.results import ProposalResult
 from feasibility.service.current import cached_document
 from feasibility.service.faults import is_lasting, is_passing
 from feasibility.service.leases import Heartbeat, aware, holder_is_gone, lease_length, owner_id, working_on
+from feasibility.service.runtime import current_settings
 from feasibility.store.db import JSONText, session_scope
 from feasibility.store.models import CheckRun, FindingRow, ObservatoryVersion, ProposalVersion, RequestOutcome, ScheduleVersion, utcnow
 
@@ -46,7 +47,7 @@ __all__ = ["RUN_TIMEOUT", "LeaseHeld", "check", "execute_run"]
 log = logging.getLogger(__name__)
 
 #: The longest a run may compute: its heartbeat stops renewing the lease after this, so a hung
-#: check is taken over. The app's ``RUN_TIMEOUT_S`` setting overrides it. Far longer than the longest check.
+#: check is taken over. The settings' ``run_timeout_s`` decides (this is its default). Far longer than the longest check.
 RUN_TIMEOUT = timedelta(minutes=15)
 
 #: Tries, and the pause before each next one, to give a claim back after a database fault.
@@ -77,7 +78,7 @@ def execute_run(run_id: int) -> str:
     :class:`LeaseHeld` when a live worker holds the run, and passing database faults
     (after giving the claim back) so the caller can retry with back-off.
     """
-    with working_on(run_id):
+    with run_context(run_id), working_on(run_id):
         return _execute(run_id)
 
 
@@ -304,9 +305,7 @@ def _release(run_id: int, attempt: int) -> None:
 
 
 def _run_timeout() -> timedelta:
-    if has_app_context() and "RUN_TIMEOUT_S" in current_app.config:
-        return timedelta(seconds=float(current_app.config["RUN_TIMEOUT_S"]))
-    return RUN_TIMEOUT
+    return timedelta(seconds=float(current_settings().run_timeout_s))
 
 
 def _number(value: Any) -> float | None:

@@ -19,14 +19,14 @@ import threading
 from collections.abc import Callable
 from typing import Any
 
-from flask import current_app
 from pydantic import Field
 from sqlalchemy import select
 
 from feasibility.documents import Proposal
 from feasibility.documents.base import DocumentModel
 from feasibility.service.current import cached_document, current_observatory, current_schedule, observatory_of, schedule_of
-from feasibility.service.dispatch import EXTENSION, queue_names
+from feasibility.service.dispatch import queue_names
+from feasibility.service.runtime import current_runtime
 from feasibility.store.db import session_scope
 from feasibility.store.models import ProposalRecord, ProposalVersion, Simulation, utcnow
 from feasibility.store.queries import latest_version
@@ -57,15 +57,17 @@ def ask_for_simulation(session: Any, semester: str, settings: SimulationSettings
 
 
 def send_simulation(simulation_id: int) -> None:
-    """Hand the simulation to the Celery workers, or to a thread of this process without a broker."""
-    dispatcher = current_app.extensions[EXTENSION]
+    """Hand the simulation to the Celery workers, or to a thread of this process without a broker (needs a runtime bound)."""
+    runtime = current_runtime()
+    if runtime is None:
+        raise RuntimeError("send_simulation() needs a runtime bound: an application context, a worker or a command")
+    dispatcher = runtime.dispatcher
     if getattr(dispatcher, "mode", "") == "celery":
-        dispatcher.celery.send_task(SIMULATE_TASK, args=[simulation_id], queue=queue_names(current_app.config))
+        dispatcher.celery.send_task(SIMULATE_TASK, args=[simulation_id], queue=queue_names(runtime.settings))
         return
-    app = current_app._get_current_object()  # type: ignore[attr-defined]
 
     def work() -> None:
-        with app.app_context():
+        with runtime.bound():
             execute_simulation(simulation_id)
 
     threading.Thread(target=work, name=f"feasibility-simulation-{simulation_id}", daemon=True).start()

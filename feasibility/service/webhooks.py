@@ -37,11 +37,11 @@ from datetime import UTC, datetime, timedelta
 from typing import Any, cast
 from urllib.parse import urlsplit
 
-from flask import current_app, has_app_context
 from sqlalchemy import CursorResult, event, func, select, update
 from sqlalchemy.orm import Session
 
 from feasibility.service.outbound import RefusedAddress, host_problem, opener
+from feasibility.service.runtime import Runtime, current_runtime, current_settings
 from feasibility.store.models import ProposalRecord, ProposalVersion, User, VerdictChange, WebhookDelivery, utcnow
 
 __all__ = [
@@ -164,11 +164,11 @@ def deliver_due(
         Most notices sent in one call.
     allow_private
         Send to loopback, private and other non-public addresses too (default: the
-        app's ``WEBHOOK_ALLOW_PRIVATE`` setting, False outside an app).
+        current settings' ``webhook_allow_private``).
     """
     now = now or utcnow()
     if allow_private is None:
-        allow_private = bool(has_app_context() and current_app.config.get("WEBHOOK_ALLOW_PRIVATE"))
+        allow_private = current_settings().webhook_allow_private
     report = DeliveryReport()
     for delivery_id, url, secret, body, attempts in _claim(sessions, now, limit):
         refused: str | None = None
@@ -254,26 +254,26 @@ def _claim(sessions: SessionMaker, now: datetime, limit: int) -> list[tuple[int,
 
 
 def _send_soon(session: Session) -> None:
-    """After the change is committed, have the notices sent: by a Celery task, or by this app's sender thread."""
-    if not has_app_context():
-        return  # a script or test without an app calls deliver_due itself
-    app = current_app._get_current_object()  # type: ignore[attr-defined]
+    """After the change is committed, have the notices sent: by a Celery task, or by this runtime's sender thread."""
+    runtime = current_runtime()
+    if runtime is None:
+        return  # a script or test without a runtime calls deliver_due itself
     try:
-        if app.config.get("BROKER_URL"):
+        if runtime.settings.broker_url and runtime.celery is not None:
             from feasibility.service.dispatch import queue_names
 
-            app.extensions["celery"].send_task(NOTICE_TASK, queue=queue_names(app.config))
+            runtime.celery.send_task(NOTICE_TASK, queue=queue_names(runtime.settings))
         else:
-            _sender_for(app).wake()
+            _sender_for(runtime).wake()
     except Exception:  # never let a notice disturb the check that caused it; the periodic task is the backstop
         log.exception("could not schedule the sending of verdict-change notices")
 
 
 class _Sender:
-    """One daemon thread per app (embedded mode) sending due notices until none is pending."""
+    """One daemon thread per runtime (embedded mode) sending due notices until none is pending."""
 
-    def __init__(self, app: Any) -> None:
-        self.app = app
+    def __init__(self, runtime: Runtime) -> None:
+        self.runtime = runtime
         self.woken = threading.Event()
         self.lock = threading.Lock()
         self.thread: threading.Thread | None = None
@@ -289,7 +289,7 @@ class _Sender:
         while True:
             self.woken.clear()
             try:
-                with self.app.app_context():
+                with self.runtime.bound():
                     from feasibility.store.db import session_factory
 
                     deliver_due(session_factory)
@@ -304,15 +304,14 @@ class _Sender:
             self.woken.wait(min(wait if wait is not None else 0.0, SENDER_IDLE_S))
 
 
-_senders: dict[int, _Sender] = {}
 _senders_lock = threading.Lock()
 
 
-def _sender_for(app: Any) -> _Sender:
+def _sender_for(runtime: Runtime) -> _Sender:
     with _senders_lock:
-        sender = _senders.get(id(app))
-        if sender is None or sender.app is not app:
-            sender = _senders[id(app)] = _Sender(app)
+        sender = runtime.extras.get("notice-sender")
+        if sender is None:
+            sender = runtime.extras["notice-sender"] = _Sender(runtime)
         return sender
 
 

@@ -1,8 +1,10 @@
 """The database engine and sessions.
 
-One engine per Flask application (kept in ``app.extensions``), so tests and
-several apps in one process never share a connection pool; outside an app
-context the process-wide default from :func:`configure` is used.
+A :class:`Store` is one engine with its session factories. Each face makes its
+own from the settings and binds it (:func:`bind_store`) while it works: the web
+app for each app context, a worker or a command for its whole run. So tests and
+several apps in one process never share a connection pool; where none is bound
+the process-wide default from :func:`configure` is used.
 
 SQLite (the embedded default) runs in WAL mode with a busy timeout, so the web
 threads and the in-process workers can read while one of them writes. Sessions
@@ -21,29 +23,33 @@ write in them fails at once there too.
 from __future__ import annotations
 
 import json
-import os
 import weakref
 from collections.abc import Iterator
 from contextlib import contextmanager
+from contextvars import ContextVar, Token
 from pathlib import Path
 from typing import Any
 
-from flask import current_app, has_app_context
 from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.orm import Session, sessionmaker
 
 __all__ = [
     "JSONText",
     "READ_ONLY",
+    "Store",
+    "bind_store",
+    "bound_store",
     "configure",
     "dispose_engines",
     "all_engines",
     "dispose_pools_after_fork",
     "default_database_url",
     "get_engine",
-    "instance_dir",
     "live_engines",
     "make_engine",
+    "open_store",
+    "unbind_store",
+    "set_default_store",
     "session_factory",
     "session_scope",
 ]
@@ -54,8 +60,6 @@ SQLITE_BUSY_TIMEOUT_MS = 30_000
 #: Execution option marking an engine (and its sessions) as read-only; see :func:`session_factory`.
 READ_ONLY = "feasibility_read_only"
 
-_EXTENSION = "feasibility.db"
-
 
 class JSONText(str):
     """A value for a JSON column that is JSON text already (say from pydantic's ``model_dump_json``): stored as it is.
@@ -63,21 +67,68 @@ class JSONText(str):
     pydantic writes a large result's JSON several times faster than :func:`json.dumps`
     re-encodes the equivalent dict; any other value is encoded as usual.
     """
-_default: dict[str, Any] = {}
+class Store:
+    """One engine and its two session factories (read-write and read-only); ``store["engine"]`` is the engine."""
+
+    def __init__(self, engine: Engine) -> None:
+        self.engine = engine
+        read_options: dict[str, Any] = {READ_ONLY: True}
+        if engine.dialect.name == "postgresql":
+            # BEGIN READ ONLY: a real transaction (server-side cursors need one), in which a write fails.
+            # SQLAlchemy sets this per connection and resets it when the connection goes back to the pool.
+            read_options["postgresql_readonly"] = True
+        self.sessions = sessionmaker(bind=engine, expire_on_commit=False)
+        # Shares the engine's pool and events; only the execution options differ.
+        self.read_sessions = sessionmaker(bind=engine.execution_options(**read_options), expire_on_commit=False)
+
+    def __getitem__(self, name: str) -> Any:
+        """``store["engine"]``: kept for code that reads the store as the mapping it once was."""
+        return getattr(self, name)
+
+    def session(self, *, read_only: bool = False) -> Session:
+        """A new session (the caller closes it); see :func:`session_factory` for ``read_only``."""
+        return (self.read_sessions if read_only else self.sessions)()
+
+    def dispose(self) -> None:
+        """Close the pooled connections."""
+        self.engine.dispose()
+
+
+_default: dict[str, Store] = {}
+_bound: ContextVar[Store | None] = ContextVar("feasibility_store", default=None)
 _engines: weakref.WeakSet[Engine] = weakref.WeakSet()
 
 
-def instance_dir() -> Path:
-    """Where the embedded database lives: ``$FEASIBILITY_HOME`` or ``./instance``."""
-    return Path(os.environ.get("FEASIBILITY_HOME") or Path.cwd() / "instance")
-
-
 def default_database_url() -> str:
-    """``$DATABASE_URL``, or an SQLite file in :func:`instance_dir`."""
-    url = os.environ.get("DATABASE_URL")
-    if url:
-        return url
-    return f"sqlite:///{instance_dir() / 'feasibility.sqlite'}"
+    """The settings' store URL: ``DATABASE_URL``, or an SQLite file in :func:`instance_dir`."""
+    from feasibility.settings import load_settings
+
+    return load_settings().store_url()
+
+
+def open_store(url: str) -> Store:
+    """A new :class:`Store` on ``url``."""
+    return Store(make_engine(url))
+
+
+def bind_store(store: Store) -> Token[Store | None]:
+    """Use ``store`` for every session opened in this context (thread or task) until :func:`unbind_store`."""
+    return _bound.set(store)
+
+
+def unbind_store(token: Token[Store | None]) -> None:
+    """Undo :func:`bind_store` (in the same context)."""
+    _bound.reset(token)
+
+
+def set_default_store(store: Store) -> None:
+    """Make ``store`` the process-wide default (a worker process: every task and thread uses it)."""
+    _default["store"] = store
+
+
+def bound_store() -> Store | None:
+    """The store bound in this context, if any."""
+    return _bound.get()
 
 
 def make_engine(url: str) -> Engine:
@@ -125,35 +176,27 @@ def dispose_engines(engines: set[Engine]) -> None:
 
 
 def configure(url: str) -> Engine:
-    """Set the process-wide default engine (used outside a Flask app context)."""
-    old = _default.get("engine")
+    """Set the process-wide default store (used where none is bound)."""
+    old = _default.get("store")
     if old is not None:
         old.dispose()
-    engine = make_engine(url)
-    _default.update(_sessions_of(engine))
-    return engine
-
-
-def init_app(app: Any) -> Engine:
-    """Give ``app`` its own engine from ``app.config['DATABASE_URL']``."""
-    engine = make_engine(app.config["DATABASE_URL"])
-    app.extensions[_EXTENSION] = _sessions_of(engine)
-    return engine
+    _default["store"] = store = open_store(url)
+    return store.engine
 
 
 def get_engine() -> Engine:
-    """The current app's engine, or the process default (configured from ``$DATABASE_URL`` on first use)."""
-    return _state()["engine"]
+    """The bound store's engine, or the process default's (configured from the settings on first use)."""
+    return _state().engine
 
 
 def session_factory(*, read_only: bool = False) -> Session:
-    """A new session on the current app's engine (the caller closes it).
+    """A new session on the bound store (the caller closes it).
 
     ``read_only=True`` is for sessions that never write (pages, polling): on SQLite
     they neither take nor wait for the write lock, and a write in them fails at
     once ("attempt to write a readonly database") rather than now and then.
     """
-    return _state()["read_sessions" if read_only else "sessions"]()
+    return _state().session(read_only=read_only)
 
 
 @contextmanager
@@ -177,28 +220,13 @@ def _json_text(value: Any) -> str:
     return value if isinstance(value, JSONText) else json.dumps(value)
 
 
-def _sessions_of(engine: Engine) -> dict[str, Any]:
-    read_options: dict[str, Any] = {READ_ONLY: True}
-    if engine.dialect.name == "postgresql":
-        # BEGIN READ ONLY: a real transaction (server-side cursors need one), in which a write fails.
-        # SQLAlchemy sets this per connection and resets it when the connection goes back to the pool.
-        read_options["postgresql_readonly"] = True
-    return {
-        "engine": engine,
-        "sessions": sessionmaker(bind=engine, expire_on_commit=False),
-        # Shares the engine's pool and events; only the execution options differ.
-        "read_sessions": sessionmaker(bind=engine.execution_options(**read_options), expire_on_commit=False),
-    }
-
-
-def _state() -> dict[str, Any]:
-    if has_app_context():
-        state = current_app.extensions.get(_EXTENSION)
-        if state is not None:
-            return state
-    if "engine" not in _default:
+def _state() -> Store:
+    store = _bound.get()
+    if store is not None:
+        return store
+    if "store" not in _default:
         configure(default_database_url())
-    return _default
+    return _default["store"]
 
 
 def _sqlite_on_connect(dbapi_connection: Any, connection_record: Any) -> None:

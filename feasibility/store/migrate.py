@@ -2,20 +2,21 @@
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 from alembic import command
 from alembic.config import Config
 
+from feasibility.settings import Settings, load_settings
+
 __all__ = ["alembic_config", "migrations_dir", "upgrade"]
 
 
-def migrations_dir() -> Path:
-    """The migrations folder: ``$FEASIBILITY_MIGRATIONS``; else as installed (``pip install .`` puts the top-level
-    ``migrations/`` at ``feasibility/store/migrations``, see setup.py); else ``migrations/`` of the source tree
-    (an editable install)."""
-    override = os.environ.get("FEASIBILITY_MIGRATIONS")
+def migrations_dir(settings: Settings | None = None) -> Path:
+    """The migrations folder: the settings' ``migrations`` (FEASIBILITY_MIGRATIONS); else as installed (``pip install .``
+    puts the top-level ``migrations/`` at ``feasibility/store/migrations``, see setup.py); else ``migrations/`` of the
+    source tree (an editable install)."""
+    override = (settings or load_settings()).migrations
     if override:
         return Path(override)
     here = Path(__file__).resolve()

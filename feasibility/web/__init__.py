@@ -1,8 +1,12 @@
-"""The web application: ``create_app`` builds it from defaults, the environment and test settings.
+"""The web application: ``create_app`` builds it from the settings (feasibility/settings.py) and test overrides.
 
-Every setting can come from the environment as ``FEASIBILITY_<NAME>``; the plain
-``DATABASE_URL`` and ``BROKER_URL`` are read too. Without ``BROKER_URL`` check
-runs are computed by an embedded pool of threads in this process.
+Every setting comes from the environment as ``FEASIBILITY_<NAME>`` (the plain
+``DATABASE_URL``, ``BROKER_URL`` and ``SESSION_COOKIE_SECURE`` are read too);
+the Flask config is made from the :class:`~feasibility.settings.Settings`. The
+store, the Celery client and the dispatcher are the service's
+:class:`~feasibility.service.runtime.Runtime`, bound for every app context (so
+every request, and every ``with app.app_context():``). Without ``BROKER_URL``
+check runs are computed by an embedded pool of threads in this process.
 """
 
 from __future__ import annotations
@@ -13,16 +17,23 @@ from importlib import import_module
 from typing import Any
 
 from flask import Flask, request
-from sqlalchemy.exc import OperationalError, ProgrammingError
+from flask.ctx import AppContext
 from werkzeug.exceptions import HTTPException
 
 from feasibility.documents.reading import MAX_DOCUMENT_BYTES
-from feasibility.store import db
+from feasibility.logs import configure_logging
+from feasibility.service.dispatch import EXTENSION
+from feasibility.service.runtime import Runtime, unbind
+from feasibility.service.startup import start_runtime
+from feasibility.settings import Settings, load_settings
 from feasibility.web import unavailable
 
-__all__ = ["create_app"]
+__all__ = ["RUNTIME", "WebApp", "create_app", "flask_config"]
 
 log = logging.getLogger(__name__)
+
+#: Where the app keeps its runtime (``app.extensions``).
+RUNTIME = "feasibility.runtime"
 
 # One line per blueprint: "module:attribute".
 _BLUEPRINTS: list[str] = [
@@ -35,67 +46,76 @@ _BLUEPRINTS: list[str] = [
     "feasibility.web.dashboard:bp",
 ]
 
+#: Flask's own settings that are not the service's: fixed here.
+_FLASK_FIXED: dict[str, Any] = {
+    "MAX_CONTENT_LENGTH": MAX_DOCUMENT_BYTES,  # the documents' own limit: the API, the pages and the CLI agree
+    # The dashboard's session cookie (RFC 6265). It carries only a random session id; who is signed in is kept in the store.
+    "SESSION_COOKIE_HTTPONLY": True,  # never readable by scripts in the page
+    "SESSION_COOKIE_SAMESITE": "Lax",  # not sent with cross-site posts
+}
 
-def create_app(test_config: dict[str, Any] | None = None) -> Flask:
-    """Create and configure the app: store, seeded demo observatory, Celery, dispatcher, blueprints."""
-    app = Flask(__name__, instance_path=str(db.instance_dir().resolve()))
-    app.config.from_mapping(
-        SECRET_KEY=None,  # FEASIBILITY_SECRET_KEY; else a random key kept in the instance folder
-        DATABASE_URL=db.default_database_url(),
-        BROKER_URL=os.environ.get("BROKER_URL") or None,
-        QUEUE_PREFIX="feasibility",
-        EMBEDDED_WORKERS=2,
-        # How often the relay runs (Celery beat, or the embedded pool's timer; 0: never): it sends
-        # runs stored but not yet sent, and takes back runs whose worker is gone (service/relay.py).
-        SWEEP_INTERVAL_S=5,
-        # A worker's claim on a run lasts this long unless its heartbeat (every third of it) renews
-        # it; a dead worker's runs are taken over after at most this long (service/leases.py).
-        LEASE_S=30,
-        # The longest a run may compute; then its heartbeat stops and another worker takes it over.
-        RUN_TIMEOUT_S=900,
-        # Backstop: a queued run whose message was sent this long ago is sent again even when
-        # the broker seems to hold it (lost messages are usually found within a relay pass).
-        QUEUED_TIMEOUT_S=600,
-        MAX_CONTENT_LENGTH=MAX_DOCUMENT_BYTES,  # the documents' own limit: the API, the pages and the CLI agree
-        MAX_BULK=500,
-        MAX_WAIT_S=30,
-        RETRY_AFTER_S=5,  # the Retry-After of a 503 while the store cannot be reached
-        SEED_DEMO=True,
-        CREATE_TABLES=False,
-        # The dashboard's session cookie (RFC 6265). It carries only a random session id; who is signed in is kept in the store.
-        # Secure: sent over https only. None means True, except when TESTING; `serve --demo` on a loopback address sets False.
-        # FEASIBILITY_SESSION_COOKIE_SECURE=false (or the plain SESSION_COOKIE_SECURE=false) allows plain http anywhere.
-        SESSION_COOKIE_SECURE=None,
-        SESSION_COOKIE_HTTPONLY=True,  # never readable by scripts in the page
-        SESSION_COOKIE_SAMESITE="Lax",  # not sent with cross-site posts
-        SESSION_LIFETIME_H=12,  # a dashboard session ends this many hours after sign-in (or at sign-out, or a password change)
-        # The sign-in throttle (web/sign_in_limits.py), kept in the store so it holds across every web process.
-        SIGN_IN_FAILURES_PER_ACCOUNT=5,  # failures of one account name within the window before it must wait
-        SIGN_IN_FAILURES_PER_ADDRESS=20,  # failures from one client address within the window before it must wait
-        SIGN_IN_WINDOW_S=3600,  # how long a failure counts, in seconds
-        SIGN_IN_FIRST_DELAY_S=30,  # the first wait after reaching a limit; doubles with each further failure
-        SIGN_IN_MAX_DELAY_S=900,  # the longest wait
-        TRUSTED_PROXIES=0,  # reverse proxies in front of the app whose X-Forwarded-For/-Proto are believed (client address)
-        WEBHOOK_ALLOW_PRIVATE=False,  # allow webhook addresses on loopback, private, link-local... networks (tests, closed sites)
-        PUBLIC_URL=None,  # the service's public address (https://host); makes the published schemas' $id absolute
-        # Whether proposers (and their portals) see the technical reviewers' notes beside the verdict that stands.
-        REVIEW_NOTES_TO_PROPOSERS=False,
-    )
-    app.config.from_prefixed_env("FEASIBILITY")
-    if test_config is not None:
-        app.config.from_mapping(test_config)
+
+class _RuntimeAppContext(AppContext):
+    """An app context that binds the app's runtime (store, settings, dispatcher) while it is pushed."""
+
+    def __init__(self, app: Flask) -> None:
+        super().__init__(app)
+        self._bindings: list[Any] = []  # one per push: an app context may be pushed more than once
+
+    def push(self) -> None:
+        super().push()
+        self._bindings.append(self.app.extensions[RUNTIME].bind())
+
+    def pop(self, *args: Any, **kwargs: Any) -> None:
+        try:
+            unbind(self._bindings.pop())
+        finally:
+            super().pop(*args, **kwargs)
+
+
+class WebApp(Flask):
+    """The Flask app whose app contexts (and so requests) bind its runtime."""
+
+    def app_context(self) -> AppContext:
+        return _RuntimeAppContext(self)
+
+    def set_settings(self, **values: Any) -> None:
+        """Change settings of this running app (tests; a switch flipped live): its config and its runtime's together."""
+        runtime: Runtime = self.extensions[RUNTIME]
+        runtime.settings = runtime.settings.with_values(values)
+        self.config.update(values)
+
+
+def flask_config(settings: Settings) -> dict[str, Any]:
+    """The Flask config made from ``settings``: every setting under its upper-case name, and Flask's fixed ones."""
+    config = {name.upper(): getattr(settings, name) for name in Settings.model_fields}
+    config["DATABASE_URL"] = settings.store_url()
+    config.update(_FLASK_FIXED)
+    return config
+
+
+def create_app(test_config: dict[str, Any] | None = None, *, settings: Settings | None = None) -> Flask:
+    """Create and configure the app: runtime (store, seeded demo observatory, Celery, dispatcher), blueprints.
+
+    ``settings``: default, read from the environment now. ``test_config``: values that
+    replace settings of the same name (``LEASE_S``), and any other Flask config (``TESTING``).
+    Called bare (a server such as gunicorn), it also sets up logging for the process.
+    """
+    settings = settings or load_settings()
+    overrides = dict(test_config or {})
+    names = Settings.names()
+    settings = settings.with_values({name: value for name, value in overrides.items() if name in names})
+    if test_config is None:
+        configure_logging(settings.log_level or "INFO", root_level="WARNING")
+    app = WebApp(__name__, instance_path=str(settings.instance_dir().resolve()))
+    app.config.from_mapping(flask_config(settings))
+    app.config.from_mapping({name: value for name, value in overrides.items() if name not in names})
     _cookie_security(app)
 
     if not app.config["SECRET_KEY"]:
         app.config["SECRET_KEY"] = _instance_secret_key(app)
-    engine = db.init_app(app)
-    if app.config["CREATE_TABLES"]:
-        from feasibility.store.models import Base
-
-        Base.metadata.create_all(engine)
-    if app.config["SEED_DEMO"]:
-        _seed(app)
-    _init_dispatch(app)
+    runtime = start_runtime(settings)
+    _keep(app, runtime)
     for target in _BLUEPRINTS:
         module, _, attribute = target.partition(":")
         app.register_blueprint(getattr(import_module(module), attribute))
@@ -104,16 +124,21 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
     return app
 
 
+def _keep(app: Flask, runtime: Runtime) -> None:
+    """Keep the runtime, and its parts under the names the pages, the commands that serve and the tests look up."""
+    app.extensions[RUNTIME] = runtime
+    app.extensions["feasibility.db"] = runtime.store  # store["engine"] is its engine
+    app.extensions[EXTENSION] = runtime.dispatcher
+    app.extensions["celery"] = runtime.celery
+
+
 def _cookie_security(app: Flask) -> None:
-    """Settle ``SESSION_COOKIE_SECURE``: the plain environment variable wins, else the setting, else True unless TESTING.
+    """Settle ``SESSION_COOKIE_SECURE``: the setting (the plain variable wins there), else True unless TESTING.
 
     Also believe ``TRUSTED_PROXIES`` reverse proxies' forwarded headers, so the sign-in
     throttle counts per real client address and ``Secure`` cookies work behind TLS proxies.
     """
-    plain = os.environ.get("SESSION_COOKIE_SECURE")
-    if plain is not None:
-        app.config["SESSION_COOKIE_SECURE"] = plain.strip().lower() in {"1", "true", "yes", "on"}
-    elif app.config.get("SESSION_COOKIE_SECURE") is None:
+    if app.config.get("SESSION_COOKIE_SECURE") is None:
         app.config["SESSION_COOKIE_SECURE"] = not app.config.get("TESTING", False)
     else:
         app.config["SESSION_COOKIE_SECURE"] = bool(app.config["SESSION_COOKIE_SECURE"])
@@ -149,31 +174,6 @@ def _instance_secret_key(app: Flask) -> str:
         finally:
             os.unlink(handle.name)
     return path.read_text().strip()
-
-
-def _seed(app: Flask) -> None:
-    from feasibility.service.current import seed_demo
-
-    with app.app_context():
-        try:
-            with db.session_scope() as session:
-                seed_demo(session)
-        except (OperationalError, ProgrammingError) as exc:  # tables missing: the store was not upgraded yet
-            log.warning("demo observatory not loaded (run `feasibility db upgrade`): %s", exc.orig)
-
-
-def _init_dispatch(app: Flask) -> None:
-    from feasibility.service.dispatch import EXTENSION, CeleryDispatcher, queue_names
-    from feasibility.service.pool import EmbeddedPool
-    from worker import celery_init_app
-
-    celery_app = celery_init_app(app)
-    if app.config["BROKER_URL"]:
-        app.extensions[EXTENSION] = CeleryDispatcher(celery_app, queue_names(app.config))
-    else:
-        app.extensions[EXTENSION] = EmbeddedPool(
-            app, workers=int(app.config["EMBEDDED_WORKERS"]), sweep_interval_s=float(app.config["SWEEP_INTERVAL_S"])
-        )
 
 
 def _api_error(error: HTTPException) -> Any:

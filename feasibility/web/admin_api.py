@@ -19,6 +19,7 @@ from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, DocumentTooLarge, Problem
 from feasibility.service.current import current_observatory, current_schedule, schedule_of
+from feasibility.service.recheck_answers import plan_answer, upload_answer, version_answer
 from feasibility.service.rechecks import (
     DEFAULT_STALE_DAYS,
     dispatch_plan,
@@ -26,7 +27,6 @@ from feasibility.service.rechecks import (
     previous_schedule,
     upload_observatory,
     upload_schedule,
-    version_dict,
 )
 from feasibility.service.schedule_diff import schedule_diff
 from feasibility.service.webhooks import webhook_url_problem
@@ -71,8 +71,8 @@ def get_schedule(semester: str) -> dict[str, Any]:
         current = schedule_of(version)
         assert current is not None
         return {
-            "version": version_dict(version),
-            "previous": version_dict(previous) if previous is not None else None,
+            "version": version_answer(version),
+            "previous": version_answer(previous) if previous is not None else None,
             "changes": schedule_diff(schedule_of(previous), current).as_dict(),
             "document": version.document,
         }
@@ -86,7 +86,7 @@ def list_schedule_versions(semester: str) -> dict[str, Any]:
         rows = session.scalars(select(ScheduleVersion).where(ScheduleVersion.semester == semester).order_by(ScheduleVersion.id.desc())).all()
         if not rows:
             abort(404, description=f"no instrument schedule for semester {semester!r}")
-        return {"semester": semester, "items": [version_dict(v) for v in rows]}
+        return {"semester": semester, "items": [version_answer(v) for v in rows]}
 
 
 @bp.get("/schedules/<semester>/changes")
@@ -101,8 +101,8 @@ def compare_schedule_versions(semester: str) -> dict[str, Any]:
         current = schedule_of(after)
         assert current is not None
         return {
-            "from": version_dict(before) if before is not None else None,
-            "to": version_dict(after),
+            "from": version_answer(before) if before is not None else None,
+            "to": version_answer(after),
             "changes": schedule_diff(schedule_of(before), current).as_dict(),
         }
 
@@ -122,7 +122,7 @@ def get_observatory() -> dict[str, Any]:
         version = current_observatory(session)
         if version is None:
             abort(404, description="no observatory description stored yet")
-        return {"version": version_dict(version), "document": version.document}
+        return {"version": version_answer(version), "document": version.document}
 
 
 @bp.post("/rechecks")
@@ -142,7 +142,7 @@ def post_rechecks() -> dict[str, Any]:
     with session_scope() as session:
         plan = plan_rechecks(session, changed_since=since, stale_after=timedelta(days=float(stale_days)))
     dispatch_plan(plan)
-    return plan.as_dict()
+    return plan_answer(plan)
 
 
 @bp.get("/changes")
@@ -234,7 +234,7 @@ def _upload(action: Any, document: str) -> tuple[dict[str, Any], int]:
     user = current_user()
     with session_scope() as session:
         outcome = action(session, data, session.merge(user, load=False) if user is not None else None)
-        answer = outcome.as_dict()
+        answer = upload_answer(outcome)
     dispatch_plan(outcome.plan)  # only now: the runs are committed
     return answer, 201 if outcome.created else 200
 

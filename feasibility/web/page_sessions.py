@@ -19,6 +19,7 @@ from typing import Any, cast
 from sqlalchemy import CursorResult, delete, or_, select, update
 from sqlalchemy.orm import Session
 
+from feasibility.service.accounts import revoke_user_sessions
 from feasibility.store.models import PageSession, User, utcnow
 
 __all__ = [
@@ -93,17 +94,6 @@ def end_session(db: Session, raw_id: str) -> bool:
         .execution_options(synchronize_session=False)
     ))
     return bool(result.rowcount)
-
-
-def revoke_user_sessions(db: Session, user_id: int) -> int:
-    """Revoke every live session of the user (after a password change); how many were live."""
-    result = cast(CursorResult[Any], db.execute(
-        update(PageSession)
-        .where(PageSession.user_id == user_id, PageSession.revoked_at.is_(None), PageSession.expires_at > utcnow())
-        .values(revoked_at=utcnow())
-        .execution_options(synchronize_session=False)
-    ))
-    return int(result.rowcount or 0)
 
 
 def purge_old_sessions(db: Session, *, now: datetime | None = None, keep: timedelta = timedelta(days=1)) -> None:

@@ -77,7 +77,7 @@ def test_schedule_upload_rechecks_affected_and_notifies(
     demo_schedule: dict[str, Any], proposal: Any,
 ) -> None:
     admin, portal, reviewer = make_token("admin"), make_token("portal", "portal-a"), make_token("reviewer")
-    app.config["WEBHOOK_ALLOW_PRIVATE"] = True  # the receiver listens on 127.0.0.1
+    app.set_settings(WEBHOOK_ALLOW_PRIVATE=True)  # the receiver listens on 127.0.0.1
     receiver = Receiver()
     try:
         assert client.put("/api/v1/users/portal-a/webhook", json={"url": receiver.url, "secret": SECRET},

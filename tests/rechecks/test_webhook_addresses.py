@@ -76,7 +76,7 @@ def test_setting_a_loopback_webhook_is_a_field_error_unless_allowed(app: Flask, 
     assert answer.status_code == 422
     (problem,) = answer.get_json()["problems"]
     assert problem["field"] == "url" and "loopback" in problem["problem"]
-    app.config["WEBHOOK_ALLOW_PRIVATE"] = True  # the administrator allows it (a closed site network, tests)
+    app.set_settings(WEBHOOK_ALLOW_PRIVATE=True)  # the administrator allows it (a closed site network, tests)
     assert client.put("/api/v1/users/portal-a/webhook", json={"url": "http://127.0.0.1:9000/hook", "secret": SECRET},
                       headers=admin).status_code == 200
 

@@ -21,7 +21,8 @@ def _runs(app: Flask, ids: list[str]) -> list[int]:
 
 
 def test_fresh_submissions_run_before_bulk_rechecks(app: Flask, fake_engine: FakeEngine) -> None:
-    app.extensions["feasibility.dispatch"] = pool = EmbeddedPool(app, workers=1, sweep_interval_s=0)
+    runtime = app.extensions["feasibility.runtime"]
+    runtime.dispatcher = app.extensions["feasibility.dispatch"] = pool = EmbeddedPool(runtime, workers=1, sweep_interval_s=0)
     blocker, *bulk = _runs(app, ["Q-0", "Q-1", "Q-2", "Q-3"])
     (fresh,) = _runs(app, ["Q-9"])
     fake_engine.gate = threading.Event()

@@ -81,7 +81,7 @@ def _messages(app: Flask) -> int:
 
 def _relay(app: Flask) -> Any:
     with app.app_context():
-        return relay(app.extensions["feasibility.dispatch"], app.config)
+        return relay(app.extensions["feasibility.dispatch"], app.extensions["feasibility.runtime"].settings)
 
 
 def _drop_keys(prefix: str, *, keep_marker: bool) -> None:

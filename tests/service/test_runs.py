@@ -137,7 +137,7 @@ def test_a_stale_claim_of_this_very_process_is_taken_over(ctx: Flask, fake_engin
 
 
 def test_the_heartbeat_renews_the_lease_while_the_run_computes(ctx: Flask, fake_engine: FakeEngine) -> None:
-    ctx.config["LEASE_S"] = 0.6  # renewed every 0.2 s
+    ctx.set_settings(LEASE_S=0.6)  # renewed every 0.2 s
     run_id = _new_run()
     fake_engine.gate = threading.Event()
     seen: list[object] = []

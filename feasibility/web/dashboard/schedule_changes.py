@@ -12,7 +12,8 @@ from typing import Any
 from flask import abort, render_template
 
 from feasibility.service.current import current_schedule, schedule_of
-from feasibility.service.rechecks import previous_schedule, version_dict
+from feasibility.service.recheck_answers import version_answer
+from feasibility.service.rechecks import previous_schedule
 from feasibility.service.schedule_diff import schedule_diff, schedule_summary
 from feasibility.web.admin_api import changes_since
 from feasibility.web.auth_pages import current_user, db, sign_in_required
@@ -43,10 +44,10 @@ def schedule_changes(semester: str) -> Any:
     return render_template(
         "dashboard/schedule_changes.html",
         semester=semester,
-        version=version_dict(version),
+        version=version_answer(version),
         uploaded_at=version.uploaded_at,
         summary=schedule_summary(current),
-        previous=version_dict(previous) if previous is not None else None,
+        previous=version_answer(previous) if previous is not None else None,
         diff=diff,
         changes=changes,
     )

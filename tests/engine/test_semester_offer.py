@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from feasibility.documents import Observatory, load_document
-from feasibility.web.dashboard import offer
+from feasibility.engine import semester_offer as offer
 
 DATA = Path(__file__).resolve().parents[2] / "feasibility" / "data"
 FIRST, LAST = date(2027, 6, 18), date(2027, 6, 21)
