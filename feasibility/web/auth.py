@@ -1,9 +1,7 @@
 """API access: users with roles, and bearer tokens stored only as hashes.
 
-Roles: ``reviewer`` reads everything; ``proposer`` submits and reads only their
-own proposals; ``portal`` submits on behalf of proposers and reads what it
-submitted; ``admin`` manages the observatory description and schedules and may
-do everything. A token is a high-entropy random string shown once; the store
+What each role may do is :mod:`feasibility.service.access`'s table; views say
+which of its actions they are with :func:`require`. A token is a high-entropy random string shown once; the store
 keeps its SHA-256, which is enough for a secret that is not guessable (unlike a
 password, it needs no slow hash). Tokens are revoked, never deleted
 (:func:`revoke_tokens`); a password change (:func:`set_password`) ends the
@@ -24,13 +22,12 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 from werkzeug.security import check_password_hash, generate_password_hash
 
+from feasibility.service import access
 from feasibility.store.db import session_scope
 from feasibility.store.models import ApiToken, User, utcnow
 from feasibility.web.page_sessions import COOKIE_KEY, revoke_user_sessions
 
 __all__ = [
-    "READ_ALL",
-    "ROLES",
     "authenticate",
     "check_password",
     "create_token",
@@ -39,17 +36,11 @@ __all__ = [
     "hash_password",
     "hash_token",
     "password_problem",
-    "require_role",
+    "require",
     "revoke_tokens",
     "set_password",
     "user_for_token",
 ]
-
-ROLES = ("reviewer", "proposer", "portal", "admin")
-#: Roles that read every proposal.
-READ_ALL = frozenset({"reviewer", "admin"})
-#: Roles that may submit proposals.
-SUBMITTERS = frozenset({"proposer", "portal", "admin"})
 
 #: Shortest password accepted (NIST SP 800-63B, 5.1.1.2: at least 8 characters; see docs/references.md).
 MIN_PASSWORD_LENGTH = 8
@@ -61,8 +52,8 @@ F = TypeVar("F", bound=Callable[..., Any])
 
 def create_user(session: Session, name: str, role: str, *, password: str | None = None, email: str | None = None) -> User:
     """Store a new user; the password, when given, is kept as a werkzeug salted hash."""
-    if role not in ROLES:
-        raise ValueError(f"unknown role {role!r} (known: {', '.join(ROLES)})")
+    if role not in access.ROLES:
+        raise ValueError(f"unknown role {role!r} (known: {', '.join(access.ROLES)})")
     if session.scalar(select(User).where(User.name == name)) is not None:
         raise ValueError(f"a user named {name!r} exists already")
     if password is not None and (problem := password_problem(password)) is not None:
@@ -166,12 +157,15 @@ def authenticate() -> User | None:
 
 
 def current_user() -> User | None:
-    """The authenticated user of this request (after :func:`require_role`)."""
+    """The authenticated user of this request (after :func:`require`)."""
     return g.get("api_user")
 
 
-def require_role(*roles: str) -> Callable[[F], F]:
-    """Decorate a view: 401 without valid credentials, 403 when the user's role is not in ``roles`` (any role if empty)."""
+def require(action: str | None = None) -> Callable[[F], F]:
+    """Decorate a view: 401 without valid credentials, 403 when the access table refuses ``action`` (any user if None).
+
+    The action is kept on the view (``access_action``) so the tests can walk every endpoint against the table.
+    """
 
     def decorate(view: F) -> F:
         @wraps(view)
@@ -179,10 +173,11 @@ def require_role(*roles: str) -> Callable[[F], F]:
             user = authenticate()
             if user is None:
                 abort(401, description="send a valid API token: 'Authorization: Bearer <token>'")
-            if roles and user.role not in roles:
-                abort(403, description=f"the role {user.role!r} may not do this")
+            if action is not None and not access.may(user, action):
+                abort(403, description=access.refusal(user, action))
             return view(*args, **kwargs)
 
+        wrapped.access_action = action  # type: ignore[attr-defined]
         return wrapped  # type: ignore[return-value]
 
     return decorate
