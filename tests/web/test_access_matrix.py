@@ -152,7 +152,8 @@ CASES: list[Case] = [
     _page("dashboard.ask_simulation", "post", "/semesters/2027A/simulations", A.ASK_SIMULATION, 422, body={"realisations": "0"}),
     _page("dashboard.schedule_upload", "get", "/admin/schedule", A.MANAGE_VERSIONS, 200),
     _page("dashboard.schedule_upload", "post", "/admin/schedule", A.MANAGE_VERSIONS, 400, body={}),  # no file chosen
-    _page("auth.sign_in", "post", "/sign-in", PUBLIC, 401, body={"name": "nobody", "password": "not it"}),
+    # A wrong password (a name of its own per caller, so the per-account throttle never answers instead).
+    _page("auth.sign_in", "post", "/sign-in", PUBLIC, 401, body={"name": "nobody-{caller}", "password": "not it"}),
     _page("auth.sign_out", "post", "/sign-out", PUBLIC, 302),  # last: it ends the caller's session
 ]
 
@@ -223,7 +224,7 @@ def _expected(case: Case, role: str | None, name: str | None, proposal: str | No
     if case.actions[0] == PUBLIC:
         return case.ok
     if not signed_in:
-        return 401 if not case.page or case.path.endswith(".json") else 302
+        return 401 if not case.page or case.path.partition("?")[0].endswith(".json") else 302
     if not all(_allowed(role, action) for action in case.actions):
         return 403
     if proposal is not None and not _sees(role, name, proposal):
@@ -314,6 +315,8 @@ def _walk(app: Flask, world: dict[str, Any], *, pages: bool) -> list[str]:
             if case.page != pages:
                 continue
             for proposal, path, body in _calls(case, world):
+                if isinstance(body, dict) and "name" in body:
+                    body = {**body, "name": body["name"].format(caller=caller)}
                 expected = _expected(case, role, name, proposal, signed_in=signed_in)
                 answer = _call(client, case, path, body, headers)
                 if answer.status_code != expected:
