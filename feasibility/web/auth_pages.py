@@ -46,7 +46,6 @@ __all__ = [
     "db",
     "init_app",
     "role_refusal",
-    "sees_all",
     "security_headers",
     "sign_in_required",
 ]
@@ -102,11 +101,6 @@ def current_user() -> User | None:
             user = candidate
     g.dashboard_user = user
     return user
-
-
-def sees_all(user: User | None) -> bool:
-    """Whether ``user`` sees every proposal rather than their own (the access table's rule)."""
-    return access.may(user, access.SEE_EVERY_PROPOSAL)
 
 
 def sign_in_required(action: str | None = None) -> Callable[[View], View]:
