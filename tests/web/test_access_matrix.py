@@ -68,6 +68,7 @@ class Case:
     hidden: int = 404
     body: Any = None  # JSON for the API, form fields for the pages
     page: bool = False
+    targets: tuple[str, ...] = tuple(PROPOSALS)  # the proposals a scoped case is walked on
 
 
 def _api(endpoint: str, method: str, path: str, action: str | None, ok: int, **more: Any) -> Case:
@@ -131,7 +132,9 @@ CASES: list[Case] = [
     _page("dashboard.proposal_page", "get", "/proposals/{proposal}", A.SEE_PROPOSAL, 200, scoped=True),
     _page("dashboard.request_plot", "get", "/proposals/{proposal}/runs/{run}/requests/0/night.svg", A.SEE_PROPOSAL, 200, scoped=True),
     _page("dashboard.proposal_report", "get", "/proposals/{proposal}/report", A.SEE_PROPOSAL, 200, scoped=True),
-    _page("dashboard.proposal_report_pdf", "get", "/proposals/{proposal}/report.pdf", A.SEE_PROPOSAL, 200, scoped=True),
+    # The PDFs draw every plot: walked on proposer A's proposal and a portal's only (one seen by A, one by neither proposer).
+    _page("dashboard.proposal_report_pdf", "get", "/proposals/{proposal}/report.pdf", A.SEE_PROPOSAL, 200, scoped=True,
+          targets=("A-1", "P1-1")),
     _page("dashboard.run_page", "get", "/runs/{run}", A.SEE_PROPOSAL, 200, scoped=True),
     _page("dashboard.run_status", "get", "/runs/{run}/status.json", A.SEE_PROPOSAL, 200, scoped=True),
     _page("dashboard.review_assign", "post", "/proposals/{proposal}/review/assignment", A.ASSIGN, 302, scoped=True,
@@ -148,7 +151,7 @@ CASES: list[Case] = [
     _page("dashboard.overview_plot", "get", "/semesters/2027A/verdicts.svg", A.SEE_SEMESTER, 200),
     _page("dashboard.overview_table", "get", "/semesters/2027A/verdicts.csv", A.SEE_SEMESTER, 200),
     _page("dashboard.schedule_calendar", "get", "/semesters/2027A/calendar", A.SEE_SEMESTER, 200),
-    _page("dashboard.semester_packet_pdf", "get", "/semesters/2027A/packet.pdf", A.SEE_SEMESTER, 200),
+    _page("dashboard.semester_packet_pdf", "get", "/semesters/2027A/packet.pdf?q=A-1", A.SEE_SEMESTER, 200),
     _page("dashboard.ask_simulation", "post", "/semesters/2027A/simulations", A.ASK_SIMULATION, 422, body={"realisations": "0"}),
     _page("dashboard.schedule_upload", "get", "/admin/schedule", A.MANAGE_VERSIONS, 200),
     _page("dashboard.schedule_upload", "post", "/admin/schedule", A.MANAGE_VERSIONS, 400, body={}),  # no file chosen
@@ -210,7 +213,7 @@ def world(app: Flask, engine: GatedEngine) -> dict[str, Any]:
 
 def _calls(case: Case, world: dict[str, Any]) -> list[tuple[str | None, str, Any]]:
     """The concrete calls of a case: (proposal or None, path, body)."""
-    targets = list(PROPOSALS) if case.scoped else [None]
+    targets: list[str | None] = list(case.targets) if case.scoped else [None]
     calls = []
     for proposal in targets:
         path = case.path.format(proposal=proposal, run=world["runs"].get(proposal or "", 0), simulation=world["simulation"],
