@@ -93,6 +93,7 @@ def make_demo_people() -> dict[str, str]:
 
     The demo proposer becomes the owner of :data:`DEMO_PROPOSER_OWNS` when nobody owns it.
     """
+    from feasibility.service import access
     from feasibility.service.accounts import create_user
     from feasibility.store.db import session_scope
     from feasibility.store.models import ProposalRecord, User
@@ -104,7 +105,7 @@ def make_demo_people() -> dict[str, str]:
             if user is None:
                 passwords[person.name] = secrets.token_urlsafe(9)
                 user = create_user(session, person.name, person.role, password=passwords[person.name])
-            if person.role == "proposer":
+            if access.may(person.role, access.OWN_PROPOSALS):
                 record = session.scalar(select(ProposalRecord).where(ProposalRecord.proposal_id == DEMO_PROPOSER_OWNS))
                 if record is not None and record.owner_id is None:
                     record.owner_id = user.id

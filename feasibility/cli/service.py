@@ -10,6 +10,8 @@ import sys
 import click
 from sqlalchemy import select
 
+from feasibility.service.access import ROLES
+
 __all__ = ["register", "safe_url"]
 
 
@@ -55,7 +57,7 @@ def token_group() -> None:
 
 @token_group.command("create")
 @click.option("--user", "user_name", required=True, help="The user the token belongs to (created if missing when --role is given).")
-@click.option("--role", type=click.Choice(["reviewer", "proposer", "portal", "admin"]), help="Role for a new user.")
+@click.option("--role", type=click.Choice(ROLES), help="Role for a new user.")
 @click.option("--label", default=None, help="A note on what the token is for.")
 def token_create(user_name: str, role: str | None, label: str | None) -> None:
     """Make an API token and print it once; only its hash is stored."""
@@ -83,7 +85,7 @@ def user_group() -> None:
 
 @user_group.command("create")
 @click.argument("name")
-@click.option("--role", type=click.Choice(["reviewer", "proposer", "portal", "admin"]), required=True)
+@click.option("--role", type=click.Choice(ROLES), required=True)
 @click.option("--email", default=None)
 @click.option("--password", is_flag=True, help="Ask for a password (for signing in to the dashboard).")
 def user_create(name: str, role: str, email: str | None, password: bool) -> None:

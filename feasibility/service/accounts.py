@@ -20,14 +20,12 @@ from sqlalchemy import CursorResult, select, update
 from sqlalchemy.orm import Session
 from werkzeug.security import check_password_hash, generate_password_hash
 
+from feasibility.service.access import ROLES
 from feasibility.store.models import ApiToken, PageSession, User, utcnow
 
 __all__ = [
     "MAX_PASSWORD_LENGTH",
     "MIN_PASSWORD_LENGTH",
-    "READ_ALL",
-    "ROLES",
-    "SUBMITTERS",
     "check_password",
     "create_token",
     "create_user",
@@ -39,12 +37,6 @@ __all__ = [
     "set_password",
     "user_for_token",
 ]
-
-ROLES = ("reviewer", "proposer", "portal", "admin")
-#: Roles that read every proposal.
-READ_ALL = frozenset({"reviewer", "admin"})
-#: Roles that may submit proposals.
-SUBMITTERS = frozenset({"proposer", "portal", "admin"})
 
 #: Shortest password accepted (NIST SP 800-63B, 5.1.1.2: at least 8 characters; see docs/references.md).
 MIN_PASSWORD_LENGTH = 8

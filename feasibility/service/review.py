@@ -15,7 +15,7 @@ The one place for the review's rules; the API and the pages both call it.
   append-only trail of who did what and when (enforced in the store, see
   :data:`feasibility.store.models.APPEND_ONLY`).
 
-Who may do what is decided by :data:`PERMISSIONS` alone.
+Who may do what is decided by :mod:`feasibility.service.access` alone (its table's review actions).
 """
 
 from __future__ import annotations
@@ -28,59 +28,27 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, Problem
+from feasibility.service import access
 from feasibility.store import queries
 from feasibility.store.models import ProposalRecord, ReviewAssignment, ReviewDecision, ReviewNote, User
 from feasibility.store.standing import standing_run
 
 __all__ = [
-    "ACTIONS",
     "LEVELS",
     "NOTE_MAX_CHARS",
-    "PERMISSIONS",
     "Review",
-    "ReviewNotAllowed",
     "TrailEntry",
     "add_note",
     "assign",
     "assign_by_instrument",
-    "check_allowed",
     "decide",
     "for_proposer",
-    "may",
     "review_of",
 ]
 
 LEVELS = ("feasible", "marginal", "unchecked", "infeasible")
 #: The longest note or reason kept, in characters.
 NOTE_MAX_CHARS = 5000
-
-#: Who may do what in the review: action -> the roles allowed. The one table of the review's access rules.
-PERMISSIONS: dict[str, frozenset[str]] = {
-    "assign": frozenset({"admin"}),  # name a proposal's technical reviewer
-    "write_note": frozenset({"reviewer", "admin"}),  # add a note to a proposal or an observation request
-    "decide": frozenset({"reviewer", "admin"}),  # confirm or override the engine's verdict
-    "read_review": frozenset({"reviewer", "admin"}),  # the whole review: decision, notes, trail
-    "read_final": frozenset({"reviewer", "admin", "proposer", "portal"}),  # the verdict that stands (proposals they may read)
-}
-ACTIONS = tuple(PERMISSIONS)
-#: Roles that may be assigned as a proposal's technical reviewer.
-REVIEWER_ROLES = frozenset({"reviewer", "admin"})
-
-
-class ReviewNotAllowed(PermissionError):
-    """The user's role may not take this review action."""
-
-
-def may(role: str | None, action: str) -> bool:
-    """Whether ``role`` may take ``action`` (see :data:`PERMISSIONS`)."""
-    return role is not None and role in PERMISSIONS[action]
-
-
-def check_allowed(user: User | None, action: str) -> None:
-    """Raise :class:`ReviewNotAllowed` unless ``user`` may take ``action``."""
-    if not may(user.role if user is not None else None, action):
-        role = user.role if user is not None else "nobody"
-        raise ReviewNotAllowed(f"the role {role!r} may not {action.replace('_', ' ')} in a technical review")
 
 
 @dataclass
@@ -155,7 +123,7 @@ def review_of(session: Session, record: ProposalRecord) -> Review:
 
 def assign(session: Session, actor: User, record: ProposalRecord, reviewer_name: Any) -> ReviewAssignment:
     """Make ``reviewer_name`` the proposal's technical reviewer (a new row; the earlier ones stay)."""
-    check_allowed(actor, "assign")
+    access.check(actor, access.ASSIGN)
     reviewer = _reviewer(session, reviewer_name)
     row = ReviewAssignment(proposal_ref=record.id, reviewer_id=reviewer.id, assigned_by=actor.id)
     session.add(row)
@@ -165,7 +133,7 @@ def assign(session: Session, actor: User, record: ProposalRecord, reviewer_name:
 
 def assign_by_instrument(session: Session, actor: User, semester: Any, instrument: Any, reviewer_name: Any) -> list[ProposalRecord]:
     """Assign ``reviewer_name`` to every proposal of ``semester`` whose latest version uses ``instrument``; those proposals."""
-    check_allowed(actor, "assign")
+    access.check(actor, access.ASSIGN)
     problems = []
     if not isinstance(semester, str) or not semester.strip():
         problems.append(Problem("semester", "is required (text, e.g. 2027A)"))
@@ -193,7 +161,7 @@ def assign_by_instrument(session: Session, actor: User, semester: Any, instrumen
 
 def add_note(session: Session, actor: User, record: ProposalRecord, text: Any, request_label: Any = None) -> ReviewNote:
     """Add a note to the proposal, or to its observation request ``request_label`` (a label of its latest version)."""
-    check_allowed(actor, "write_note")
+    access.check(actor, access.WRITE_NOTE)
     problems: list[Problem] = []
     clean = _text(text, "text", problems, required=True)
     label = None
@@ -213,7 +181,7 @@ def add_note(session: Session, actor: User, record: ProposalRecord, text: Any, r
 
 def decide(session: Session, actor: User, record: ProposalRecord, decision: Any, verdict: Any = None, reason: Any = None) -> ReviewDecision:
     """Confirm the engine's verdict (``decision="confirm"``) or override it (``"override"`` with a verdict and a reason)."""
-    check_allowed(actor, "decide")
+    access.check(actor, access.DECIDE)
     problems: list[Problem] = []
     run = standing_run(session, record)
     if run is None or run.verdict is None:
@@ -273,8 +241,8 @@ def _find_reviewer(session: Session, name: Any) -> tuple[User | None, Problem | 
     user = session.scalar(select(User).where(User.name == name.strip()))
     if user is None:
         return None, Problem("reviewer", f"no user named {name.strip()!r}")
-    if user.role not in REVIEWER_ROLES:
-        return None, Problem("reviewer", f"{user.name!r} is a {user.role}; only a reviewer or an admin can review")
+    if not access.may(user, access.BE_REVIEWER):
+        return None, Problem("reviewer", f"{user.name!r} is a {user.role}; only {access.roles_text(access.BE_REVIEWER)} can review")
     return user, None
 
 

@@ -16,13 +16,15 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
-from sqlalchemy import exists, insert, or_, select
+from sqlalchemy import insert, select
 from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.orm import Session
 
 from feasibility.documents import Proposal, parse_document
 from feasibility.documents.loading import DocumentError, Problem
 from feasibility.documents.proposal_problems import read_proposal
+from feasibility.service import access
+from feasibility.service.access import NotAllowed
 from feasibility.service.current import current_observatory, current_schedule, observatory_of
 from feasibility.service.engine_version import engine_version
 from feasibility.store.hashing import document_hash
@@ -34,10 +36,6 @@ __all__ = ["NotAllowed", "Submission", "ensure_run", "submit", "submit_proposal"
 SUBMISSION_PRIORITY = 0
 
 Row = TypeVar("Row")
-
-
-class NotAllowed(PermissionError):
-    """The user may not submit this proposal (it belongs to someone else)."""
 
 
 @dataclass
@@ -75,20 +73,19 @@ def submit(
     Raises :class:`DocumentError` for bad input and :class:`NotAllowed` when the
     proposal id belongs to another user.
     """
-    if submitted_by is not None and submitted_by.role not in ("proposer", "portal", "admin"):
-        raise NotAllowed(f"the role {submitted_by.role!r} may not submit proposals")
+    if submitted_by is not None:
+        access.check(submitted_by, access.SUBMIT)
     observatory_row = current_observatory(session)
     if observatory_row is None:
         parse_document(Proposal, document, "proposal")  # a bad document is named first
         raise DocumentError([Problem("", "the service has no observatory description yet")], "proposal")
     # Schema and observatory problems in one answer (documents.problems).
     proposal = read_proposal(document, observatory_of(observatory_row), "proposal")
-    if owner is None and submitted_by is not None and submitted_by.role == "proposer":
-        owner = submitted_by
+    owner = access.takes_ownership(submitted_by, owner)
 
     record, new_record = _proposal_record(session, proposal, owner)
     if not new_record:
-        _check_allowed(session, record, submitted_by, owner)
+        access.check_new_version(session, record, submitted_by, owner)
     if record.semester != proposal.semester:
         record.semester = proposal.semester
     # A row that references a row created in this transaction cannot exist yet: no need to look.
@@ -141,24 +138,6 @@ def _proposal_record(session: Session, proposal: Proposal, owner: User | None) -
         {"proposal_id": proposal.id},
         {"semester": proposal.semester, "owner_id": owner.id if owner is not None else None},
     )
-
-
-def _check_allowed(session: Session, record: ProposalRecord, user: User | None, owner: User | None) -> None:
-    """A proposer may only add versions to their own proposals, a portal only to those it submitted."""
-    if user is None or user.role == "admin":
-        return
-    if user.role == "proposer":
-        if record.owner_id != user.id:
-            raise NotAllowed(f"proposal {record.proposal_id!r} belongs to another user")
-    elif user.role == "portal":
-        by_others = or_(ProposalVersion.submitted_by.is_(None), ProposalVersion.submitted_by != user.id)
-        if session.scalar(select(exists().where(ProposalVersion.proposal_ref == record.id, by_others))):
-            raise NotAllowed(f"proposal {record.proposal_id!r} was submitted by another user")
-        if owner is not None:
-            if record.owner_id is None:
-                record.owner_id = owner.id
-            elif record.owner_id != owner.id:
-                raise NotAllowed(f"proposal {record.proposal_id!r} belongs to another proposer")
 
 
 def _proposal_version(session: Session, record: ProposalRecord, proposal: Proposal, user: User | None, *, new: bool) -> tuple[ProposalVersion, bool]:

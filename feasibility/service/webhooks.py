@@ -40,9 +40,10 @@ from urllib.parse import urlsplit
 from sqlalchemy import CursorResult, event, func, select, update
 from sqlalchemy.orm import Session
 
+from feasibility.service import access
 from feasibility.service.outbound import RefusedAddress, host_problem, opener
 from feasibility.service.runtime import Runtime, current_runtime, current_settings
-from feasibility.store.models import ProposalRecord, ProposalVersion, User, VerdictChange, WebhookDelivery, utcnow
+from feasibility.store.models import ProposalRecord, User, VerdictChange, WebhookDelivery, utcnow
 
 __all__ = [
     "DELIVERY_HEADER",
@@ -85,16 +86,12 @@ def sign(body: bytes, secret: str) -> str:
 
 
 def queue_notices(session: Session, change: VerdictChange) -> list[WebhookDelivery]:
-    """Queue a notice of ``change`` for every user with a webhook who owns or submitted the proposal.
+    """Queue a notice of ``change`` for every user with a webhook who is told of it (:func:`feasibility.service.access.notice_recipients`).
 
     Runs inside the caller's transaction; nothing is sent here.
     """
-    submitters = select(ProposalVersion.submitted_by).where(ProposalVersion.proposal_ref == change.proposal_ref)
-    owner = select(ProposalRecord.owner_id).where(ProposalRecord.id == change.proposal_ref)
     users = session.scalars(
-        select(User)
-        .where(User.webhook_url.is_not(None), (User.id.in_(submitters) | User.id.in_(owner)))
-        .order_by(User.id)
+        select(User).where(User.webhook_url.is_not(None), access.notice_recipients(change.proposal_ref)).order_by(User.id)
     ).all()
     record = session.get(ProposalRecord, change.proposal_ref)
     body = notice_body(change, record)

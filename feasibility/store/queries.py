@@ -8,10 +8,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from sqlalchemy import ColumnElement, Select, Subquery, exists, func, select, true
-from sqlalchemy.orm import Session, aliased
+from sqlalchemy import ColumnElement, Select, Subquery, exists, func, select
+from sqlalchemy.orm import Session
 
-from feasibility.store.models import CheckRun, FindingRow, ProposalRecord, ProposalVersion, RequestOutcome, User
+from feasibility.store.models import CheckRun, FindingRow, ProposalRecord, ProposalVersion, RequestOutcome
 from feasibility.store.standing import standing_run_id
 
 __all__ = [
@@ -20,11 +20,7 @@ __all__ = [
     "latest_version",
     "list_proposals",
     "runs_of",
-    "visible_to",
 ]
-
-#: Roles that see every proposal.
-_READ_ALL = ("reviewer", "admin")
 
 
 @dataclass
@@ -36,22 +32,10 @@ class ProposalRow:
     run: CheckRun | None
 
 
-def visible_to(user: User | None) -> ColumnElement[bool]:
-    """Which proposals ``user`` may read: all for reviewers and admins, own for proposers, submitted for portals."""
-    if user is None or user.role in _READ_ALL:
-        return true()
-    if user.role == "portal":
-        # An alias of its own: a list that selects ProposalVersion too would otherwise correlate
-        # it away and leave the EXISTS with no FROM at all.
-        submitted = aliased(ProposalVersion, name="submitted_version")
-        return exists().where(submitted.proposal_ref == ProposalRecord.id, submitted.submitted_by == user.id).correlate(ProposalRecord)
-    return ProposalRecord.owner_id == user.id
-
-
 def list_proposals(
     session: Session,
     *,
-    user: User | None = None,
+    visible: ColumnElement[bool] | None = None,
     semester: str | None = None,
     verdict: str | None = None,
     instrument: str | None = None,
@@ -63,6 +47,8 @@ def list_proposals(
 
     ``failed_check`` keeps proposals whose standing verdict has a finding of that
     check worse than feasible; ``instrument`` those whose latest version uses it.
+    ``visible`` is who-sees-what's condition (:func:`feasibility.service.access.visible_to`);
+    without it every proposal is listed (the service's own use).
     """
     newest = _latest_versions()
     query: Select = (
@@ -70,8 +56,9 @@ def list_proposals(
         .join(newest, newest.c.proposal_ref == ProposalRecord.id)
         .join(ProposalVersion, ProposalVersion.id == newest.c.version_id)
         .outerjoin(CheckRun, CheckRun.id == standing_run_id())
-        .where(visible_to(user))
     )
+    if visible is not None:
+        query = query.where(visible)
     if semester:
         query = query.where(ProposalRecord.semester == semester)
     if verdict:

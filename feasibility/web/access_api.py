@@ -16,9 +16,10 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, Problem
+from feasibility.service import access
 from feasibility.store.db import session_scope
 from feasibility.store.models import ApiToken, User
-from feasibility.web.auth import password_problem, require_role, revoke_tokens, set_password
+from feasibility.web.auth import password_problem, require, revoke_tokens, set_password
 
 __all__ = ["OPENAPI_PATHS", "bp", "token_json"]
 
@@ -31,7 +32,7 @@ def _invalid(error: DocumentError) -> tuple[dict[str, Any], int]:
 
 
 @bp.get("/users/<name>/tokens")
-@require_role("admin")
+@require(access.MANAGE_ACCESS)
 def list_tokens(name: str) -> dict[str, Any]:
     """The user's API tokens, live and revoked (never the tokens themselves)."""
     with session_scope(read_only=True) as session:
@@ -41,7 +42,7 @@ def list_tokens(name: str) -> dict[str, Any]:
 
 
 @bp.post("/tokens/<int:token_id>/revoke")
-@require_role("admin")
+@require(access.MANAGE_ACCESS)
 def revoke_token(token_id: int) -> dict[str, Any]:
     """Revoke one token by its id; revoking a revoked token changes nothing and says when it was revoked."""
     with session_scope() as session:
@@ -53,7 +54,7 @@ def revoke_token(token_id: int) -> dict[str, Any]:
 
 
 @bp.post("/users/<name>/tokens/revoke")
-@require_role("admin")
+@require(access.MANAGE_ACCESS)
 def revoke_user_tokens(name: str) -> dict[str, Any]:
     """Revoke every live token of the user; the ones revoked now."""
     with session_scope() as session:
@@ -63,7 +64,7 @@ def revoke_user_tokens(name: str) -> dict[str, Any]:
 
 
 @bp.put("/users/<name>/password")
-@require_role("admin")
+@require(access.MANAGE_ACCESS)
 def put_password(name: str) -> dict[str, Any]:
     """Set the user's password (``{"password": ...}``) and end their dashboard sessions."""
     body = request.get_json(silent=True)

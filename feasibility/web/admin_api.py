@@ -18,6 +18,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, DocumentTooLarge, Problem
+from feasibility.service import access
 from feasibility.service.current import current_observatory, current_schedule, schedule_of
 from feasibility.service.recheck_answers import plan_answer, upload_answer, version_answer
 from feasibility.service.rechecks import (
@@ -30,10 +31,9 @@ from feasibility.service.rechecks import (
 )
 from feasibility.service.schedule_diff import schedule_diff
 from feasibility.service.webhooks import webhook_url_problem
-from feasibility.store import queries
 from feasibility.store.db import session_scope
 from feasibility.store.models import ProposalRecord, ScheduleVersion, User, VerdictChange
-from feasibility.web.auth import current_user, require_role
+from feasibility.web.auth import current_user, require
 from feasibility.web.bodies import read_request_data, request_body
 
 __all__ = ["OPENAPI_PATHS", "bp", "change_json", "changes_since"]
@@ -53,14 +53,14 @@ def _invalid(error: DocumentError) -> tuple[dict[str, Any], int]:
 
 
 @bp.post("/schedules")
-@require_role("admin")
+@require(access.MANAGE_VERSIONS)
 def post_schedule() -> tuple[dict[str, Any], int]:
     """Upload an instrument schedule (JSON or YAML). 201 with the new version, its changes and the re-checks queued."""
     return _upload(upload_schedule, "schedule")
 
 
 @bp.get("/schedules/<semester>")
-@require_role()
+@require(access.READ_SCHEDULES)
 def get_schedule(semester: str) -> dict[str, Any]:
     """The schedule in force for ``semester``, and what changed from the version before it."""
     with session_scope(read_only=True) as session:
@@ -79,7 +79,7 @@ def get_schedule(semester: str) -> dict[str, Any]:
 
 
 @bp.get("/schedules/<semester>/versions")
-@require_role()
+@require(access.READ_SCHEDULES)
 def list_schedule_versions(semester: str) -> dict[str, Any]:
     """Every stored version of the semester's schedule, newest first."""
     with session_scope(read_only=True) as session:
@@ -90,7 +90,7 @@ def list_schedule_versions(semester: str) -> dict[str, Any]:
 
 
 @bp.get("/schedules/<semester>/changes")
-@require_role()
+@require(access.READ_SCHEDULES)
 def compare_schedule_versions(semester: str) -> dict[str, Any]:
     """The night-by-night differences between two stored versions (``?from=ID&to=ID``; default: the last two)."""
     with session_scope(read_only=True) as session:
@@ -108,14 +108,14 @@ def compare_schedule_versions(semester: str) -> dict[str, Any]:
 
 
 @bp.post("/observatory")
-@require_role("admin")
+@require(access.MANAGE_VERSIONS)
 def post_observatory() -> tuple[dict[str, Any], int]:
     """Upload an observatory description. 201 with the new version and the re-checks of every proposal queued."""
     return _upload(upload_observatory, "observatory")
 
 
 @bp.get("/observatory")
-@require_role()
+@require(access.READ_SCHEDULES)
 def get_observatory() -> dict[str, Any]:
     """The observatory description in force."""
     with session_scope(read_only=True) as session:
@@ -126,7 +126,7 @@ def get_observatory() -> dict[str, Any]:
 
 
 @bp.post("/rechecks")
-@require_role("admin")
+@require(access.RECHECK)
 def post_rechecks() -> dict[str, Any]:
     """Queue what the schedules, the observatory, the engine version and old results call for (the nightly re-check, now).
 
@@ -146,7 +146,7 @@ def post_rechecks() -> dict[str, Any]:
 
 
 @bp.get("/changes")
-@require_role()
+@require(access.SEE_CHANGES)
 def list_changes() -> dict[str, Any]:
     """Verdict and key-figure changes recorded since ``?since=ISO time`` (oldest first), for proposals the caller may read."""
     since = _parse_time(request.args.get("since"), "since")
@@ -159,7 +159,7 @@ def list_changes() -> dict[str, Any]:
 
 
 @bp.put("/users/<name>/webhook")
-@require_role("admin")
+@require(access.MANAGE_WEBHOOKS)
 def put_webhook(name: str) -> dict[str, Any]:
     """Set a portal user's webhook address and shared secret: ``{"url": ..., "secret": ...}``."""
     body = _small_json()
@@ -181,7 +181,7 @@ def put_webhook(name: str) -> dict[str, Any]:
 
 
 @bp.delete("/users/<name>/webhook")
-@require_role("admin")
+@require(access.MANAGE_WEBHOOKS)
 def delete_webhook(name: str) -> dict[str, Any]:
     """Stop sending notices to a user."""
     with session_scope() as session:
@@ -197,7 +197,7 @@ def changes_since(
     query = (
         select(VerdictChange, ProposalRecord)
         .join(ProposalRecord, ProposalRecord.id == VerdictChange.proposal_ref)
-        .where(queries.visible_to(user))
+        .where(access.visible_to(user))
         .order_by(*((VerdictChange.recorded_at.desc(), VerdictChange.id.desc()) if newest_first else (VerdictChange.recorded_at, VerdictChange.id)))
         .limit(limit)
     )

@@ -17,6 +17,7 @@ from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, Problem
+from feasibility.service import access
 from feasibility.service.dispatch import enqueue
 from feasibility.service.faults import is_lasting, is_passing
 from feasibility.service.submissions import NotAllowed, Submission, submit
@@ -24,7 +25,7 @@ from feasibility.store import queries
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
 from feasibility.store.standing import standing_run
-from feasibility.web.auth import READ_ALL, SUBMITTERS, current_user, require_role
+from feasibility.web.auth import current_user, require
 from feasibility.web.bodies import problem_status, read_request_data, request_body
 
 __all__ = ["bp", "proposal_json", "run_json"]
@@ -68,7 +69,7 @@ def health() -> dict[str, Any]:
 
 
 @bp.get("/me")
-@require_role()
+@require()
 def me() -> dict[str, Any]:
     """Who the token belongs to."""
     user = current_user()
@@ -77,7 +78,7 @@ def me() -> dict[str, Any]:
 
 
 @bp.post("/proposals")
-@require_role(*SUBMITTERS)
+@require(access.SUBMIT)
 def submit_one() -> tuple[dict[str, Any], int, dict[str, str]]:
     """Submit one proposal (JSON or YAML). 202 with a new run; 200 with the existing run for identical content.
 
@@ -116,7 +117,7 @@ def _wait_for(run_id: int, wait: float) -> dict[str, Any]:
 
 
 @bp.post("/proposals/bulk")
-@require_role(*SUBMITTERS)
+@require(access.SUBMIT)
 def submit_many() -> dict[str, Any]:
     """Submit many proposals at once: ``{"proposals": [...]}`` or a bare list. Each item is answered on its own."""
     user = current_user()
@@ -169,7 +170,7 @@ def _store_fault(exc: SQLAlchemyError) -> tuple[int, dict[str, Any]]:
 
 
 @bp.get("/runs/<int:run_id>")
-@require_role()
+@require(access.SEE_PROPOSAL)
 def get_run(run_id: int) -> dict[str, Any]:
     """A check run's state, and its result once done."""
     with session_scope(read_only=True) as session:
@@ -180,7 +181,7 @@ def get_run(run_id: int) -> dict[str, Any]:
 
 
 @bp.get("/proposals")
-@require_role()
+@require(access.SEE_PROPOSAL)
 def list_proposals() -> dict[str, Any]:
     """Proposals the caller may read, newest first; filter by semester, verdict, instrument, failed check."""
     page = _int_arg("page", 1, 1, 1_000_000)
@@ -191,7 +192,7 @@ def list_proposals() -> dict[str, Any]:
     with session_scope(read_only=True) as session:
         rows, total = queries.list_proposals(
             session,
-            user=current_user(),
+            visible=access.visible_to(current_user()),
             semester=request.args.get("semester") or None,
             verdict=verdict,
             instrument=request.args.get("instrument") or None,
@@ -204,7 +205,7 @@ def list_proposals() -> dict[str, Any]:
 
 
 @bp.get("/proposals/<proposal_id>")
-@require_role()
+@require(access.SEE_PROPOSAL)
 def get_proposal(proposal_id: str) -> dict[str, Any]:
     """A proposal: its latest version, its latest run, and the verdict that stands with findings and figures."""
     with session_scope(read_only=True) as session:
@@ -213,7 +214,7 @@ def get_proposal(proposal_id: str) -> dict[str, Any]:
 
 
 @bp.get("/proposals/<proposal_id>/runs")
-@require_role()
+@require(access.SEE_PROPOSAL)
 def proposal_runs(proposal_id: str) -> dict[str, Any]:
     """The history of a proposal's check runs, newest first (results left out; follow each run's link)."""
     page = _int_arg("page", 1, 1, 1_000_000)
@@ -311,11 +312,7 @@ def _readable_proposal(session: Session, proposal_id: str) -> ProposalRecord:
 
 
 def _may_read(session: Session, record: ProposalRecord) -> bool:
-    user = current_user()
-    if user is None or user.role in READ_ALL:
-        return True
-    query = select(ProposalRecord.id).where(ProposalRecord.id == record.id, queries.visible_to(user))
-    return session.scalar(query) is not None
+    return access.may_see(session, current_user(), record)
 
 
 def _on_behalf_of(user: User | None) -> User | None:
@@ -323,11 +320,11 @@ def _on_behalf_of(user: User | None) -> User | None:
     name = request.args.get("on_behalf_of")
     if not name:
         return None
-    if user is None or user.role not in ("portal", "admin"):
-        abort(403, description="only a portal submits on behalf of a proposer")
+    if not access.may(user, access.SUBMIT_ON_BEHALF):
+        abort(403, description=f"only {access.roles_text(access.SUBMIT_ON_BEHALF)} submits on behalf of a proposer")
     with session_scope(read_only=True) as session:
         owner = session.scalar(select(User).where(User.name == name))
-    if owner is None or owner.role != "proposer":
+    if owner is None or not access.may(owner, access.OWN_PROPOSALS):
         _bad_query("on_behalf_of", f"no proposer named {name!r}")
     return owner
 

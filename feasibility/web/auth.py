@@ -3,10 +3,8 @@
 The accounts themselves (users, passwords, tokens) are :mod:`feasibility.service.accounts`;
 their functions are named here too for the pages and the API.
 
-Roles: ``reviewer`` reads everything; ``proposer`` submits and reads only their
-own proposals; ``portal`` submits on behalf of proposers and reads what it
-submitted; ``admin`` manages the observatory description and schedules and may
-do everything. A token is a high-entropy random string shown once; the store
+What each role may do is :mod:`feasibility.service.access`'s table; views say
+which of its actions they are with :func:`require`. A token is a high-entropy random string shown once; the store
 keeps its SHA-256, which is enough for a secret that is not guessable (unlike a
 password, it needs no slow hash). Tokens are revoked, never deleted
 (:func:`revoke_tokens`); a password change (:func:`set_password`) ends the
@@ -21,10 +19,8 @@ from typing import Any, TypeVar
 
 from flask import abort, g, request, session
 
+from feasibility.service import access
 from feasibility.service.accounts import (
-    READ_ALL,
-    ROLES,
-    SUBMITTERS,
     check_password,
     create_token,
     create_user,
@@ -40,9 +36,6 @@ from feasibility.store.models import User
 from feasibility.web.page_sessions import COOKIE_KEY
 
 __all__ = [
-    "READ_ALL",
-    "ROLES",
-    "SUBMITTERS",
     "authenticate",
     "check_password",
     "create_token",
@@ -51,7 +44,7 @@ __all__ = [
     "hash_password",
     "hash_token",
     "password_problem",
-    "require_role",
+    "require",
     "revoke_tokens",
     "set_password",
     "user_for_token",
@@ -80,12 +73,15 @@ def authenticate() -> User | None:
 
 
 def current_user() -> User | None:
-    """The authenticated user of this request (after :func:`require_role`)."""
+    """The authenticated user of this request (after :func:`require`)."""
     return g.get("api_user")
 
 
-def require_role(*roles: str) -> Callable[[F], F]:
-    """Decorate a view: 401 without valid credentials, 403 when the user's role is not in ``roles`` (any role if empty)."""
+def require(action: str | None = None) -> Callable[[F], F]:
+    """Decorate a view: 401 without valid credentials, 403 when the access table refuses ``action`` (any user if None).
+
+    The action is kept on the view (``access_action``) so the tests can walk every endpoint against the table.
+    """
 
     def decorate(view: F) -> F:
         @wraps(view)
@@ -93,10 +89,11 @@ def require_role(*roles: str) -> Callable[[F], F]:
             user = authenticate()
             if user is None:
                 abort(401, description="send a valid API token: 'Authorization: Bearer <token>'")
-            if roles and user.role not in roles:
-                abort(403, description=f"the role {user.role!r} may not do this")
+            if action is not None and not access.may(user, action):
+                abort(403, description=access.refusal(user, action))
             return view(*args, **kwargs)
 
+        wrapped.access_action = action  # type: ignore[attr-defined]
         return wrapped  # type: ignore[return-value]
 
     return decorate

@@ -32,12 +32,12 @@ from flask import Blueprint, Flask, Response, abort, current_app, flash, g, redi
 from sqlalchemy import select
 from werkzeug.security import check_password_hash, generate_password_hash
 
+from feasibility.service import access
 from feasibility.store.db import session_factory, session_scope
 from feasibility.store.models import User
 from feasibility.web import page_sessions, sign_in_limits
 
 __all__ = [
-    "PAGE_ROLES",
     "bp",
     "check_csrf",
     "SESSION_ID_KEY",
@@ -52,11 +52,6 @@ __all__ = [
 
 bp = Blueprint("auth", __name__, template_folder="templates")
 
-#: Roles that may sign in to the pages; portals use API tokens only.
-PAGE_ROLES = ("reviewer", "proposer", "admin")
-#: Roles that see every proposal; proposers see their own only.
-ALL_PROPOSALS_ROLES = ("reviewer", "admin")
-
 _UNSAFE_METHODS = {"POST", "PUT", "PATCH", "DELETE"}
 SESSION_ID_KEY = page_sessions.COOKIE_KEY
 
@@ -67,6 +62,7 @@ def init_app(app: Flask) -> None:
     """Register the sign-in pages and the templates' helpers on ``app`` (the cookie's attributes are set by ``create_app``)."""
     app.jinja_env.globals["csrf_token"] = csrf_token
     app.jinja_env.globals["current_user"] = current_user
+    app.jinja_env.globals["may"] = lambda action: access.may(current_user(), action)  # the access table, for the templates
     app.teardown_appcontext(_close_db)
     app.register_blueprint(bp)
 
@@ -101,19 +97,17 @@ def current_user() -> User | None:
     raw_id = session.get(SESSION_ID_KEY)
     if isinstance(raw_id, str) and raw_id:
         candidate = page_sessions.user_for_session(db(), raw_id)
-        if candidate is not None and candidate.role in PAGE_ROLES:
+        if candidate is not None and access.may(candidate, access.USE_PAGES):
             user = candidate
     g.dashboard_user = user
     return user
 
 
-def sees_all(user: User) -> bool:
-    """Whether ``user`` sees every proposal (reviewers and admins) rather than their own."""
-    return user.role in ALL_PROPOSALS_ROLES
+def sign_in_required(action: str | None = None) -> Callable[[View], View]:
+    """Send anyone not signed in to the sign-in page; answer 403 when the access table refuses ``action`` (None: any page role).
 
-
-def sign_in_required(*roles: str) -> Callable[[View], View]:
-    """Send anyone not signed in to the sign-in page; answer 403 to a role not in ``roles`` (any page role when empty)."""
+    The action is kept on the view (``access_action``) so the tests can walk every page against the table.
+    """
 
     def decorate(view: View) -> View:
         @functools.wraps(view)
@@ -123,19 +117,21 @@ def sign_in_required(*roles: str) -> Callable[[View], View]:
                 if request.path.endswith(".json") or request.accept_mimetypes.best == "application/json":
                     abort(401)
                 return redirect(url_for("auth.sign_in", next=request.full_path if request.query_string else request.path))
-            if roles and user.role not in roles:
-                abort(403, description=role_refusal(user, roles))
+            if action is not None and not access.may(user, action):
+                abort(403, description=role_refusal(user, action))
             return view(*args, **kwargs)
 
+        wrapped.access_action = action  # type: ignore[attr-defined]
         return wrapped  # type: ignore[return-value]
 
     return decorate
 
 
-def role_refusal(user: User, roles: tuple[str, ...]) -> str:
+def role_refusal(user: User, action: str) -> str:
     """Why a page is refused to ``user``: the roles it needs, and whom to ask for one (the service's admins by name)."""
-    needed = " or ".join(f"a {role}" if role[0] not in "aeiou" else f"an {role}" for role in roles)
-    admins = list(db().scalars(select(User.name).where(User.role == "admin", User.name != user.name).order_by(User.name).limit(3)))
+    needed = access.roles_text(action)
+    granters = sorted(access.roles_for(access.MANAGE_ACCESS))
+    admins = list(db().scalars(select(User.name).where(User.role.in_(granters), User.name != user.name).order_by(User.name).limit(3)))
     who = f"an administrator of this service ({', '.join(admins)})" if admins else "the staff who run this service"
     return (f"This page is for {needed}; you are signed in as {user.name}, a {user.role}. "
             f"To use it, ask {who} to give you that role or an account that has it.")
@@ -185,7 +181,7 @@ def sign_in() -> Any:
     user = db().scalars(select(User).where(User.name == name)).first() if name else None
     stored = user.password_hash if user is not None and user.password_hash else _dummy_hash()
     valid = check_password_hash(stored, password) and user is not None and user.password_hash is not None
-    if not valid or user is None or user.role not in PAGE_ROLES:
+    if not valid or user is None or not access.may(user, access.USE_PAGES):
         with session_scope() as writer:
             sign_in_limits.record_failure(writer, name, address, limits)
         return render_template("dashboard/sign_in.html", next=target, name=name, failed=True), 401

@@ -1,6 +1,6 @@
 """The technical review's API (under /api/v1): assignments, notes, decisions and the audit trail.
 
-The rules and the table of who may do what live in :mod:`feasibility.service.review`;
+The rules live in :mod:`feasibility.service.review`, who may do what in :mod:`feasibility.service.access`;
 this module only reads requests and writes answers. Reviewers and admins see the
 whole review; a proposer (or a portal) who may read the proposal sees the verdict
 that stands and, when ``REVIEW_NOTES_TO_PROPOSERS`` is on, the reviewers' notes.
@@ -16,11 +16,11 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, Problem
-from feasibility.service import review
+from feasibility.service import access, review
 from feasibility.store.db import session_scope
 from feasibility.store.models import ProposalRecord, User
 from feasibility.web.api import _may_read, _readable_proposal
-from feasibility.web.auth import current_user, require_role
+from feasibility.web.auth import current_user, require
 from feasibility.web.bodies import problem_status
 
 __all__ = ["OPENAPI_PATHS", "bp", "review_json"]
@@ -33,65 +33,65 @@ def _invalid(error: DocumentError) -> tuple[dict[str, Any], int]:
     return error.as_dict(), problem_status(error)
 
 
-@bp.errorhandler(review.ReviewNotAllowed)
-def _forbidden(error: review.ReviewNotAllowed) -> tuple[dict[str, Any], int]:
+@bp.errorhandler(access.NotAllowed)
+def _forbidden(error: access.NotAllowed) -> tuple[dict[str, Any], int]:
     return {"error": "forbidden", "message": str(error)}, 403
 
 
 @bp.get("/proposals/<proposal_id>/review")
-@require_role()
+@require(access.READ_FINAL)
 def get_review(proposal_id: str) -> dict[str, Any]:
     """The review: everything for reviewers and admins; the verdict that stands for a proposer who may read the proposal."""
     user = current_user()
     with session_scope(read_only=True) as session:
         record = _readable_proposal(session, proposal_id)
         state = review.review_of(session, record)
-        if review.may(user.role if user else None, "read_review"):
+        if access.may(user, access.READ_REVIEW):
             return review_json(state)
-        review.check_allowed(user, "read_final")
-        return review.for_proposer(state, show_notes=bool(current_app.config.get("REVIEW_NOTES_TO_PROPOSERS")))
+        shown = access.shows_notes(user, observatory_shows=bool(current_app.config.get("REVIEW_NOTES_TO_PROPOSERS")))
+        return review.for_proposer(state, show_notes=shown)
 
 
 @bp.post("/proposals/<proposal_id>/review/assignment")
-@require_role()
+@require(access.ASSIGN)
 def post_assignment(proposal_id: str) -> dict[str, Any]:
     """Assign a technical reviewer: ``{"reviewer": NAME}`` (admin)."""
     body = _json_body("assignment")
     with session_scope() as session:
-        actor, record = _actor_and_record(session, proposal_id, "assign")
+        actor, record = _actor_and_record(session, proposal_id)
         review.assign(session, actor, record, body.get("reviewer"))
         return review_json(review.review_of(session, record))
 
 
 @bp.post("/reviews/assignments")
-@require_role()
+@require(access.ASSIGN)
 def post_bulk_assignment() -> dict[str, Any]:
     """Assign one reviewer to every proposal of a semester using an instrument: ``{"semester", "instrument", "reviewer"}`` (admin)."""
     body = _json_body("assignment")
     with session_scope() as session:
-        actor = _actor(session, "assign")
+        actor = _actor(session)
         records = review.assign_by_instrument(session, actor, body.get("semester"), body.get("instrument"), body.get("reviewer"))
         return {"reviewer": str(body.get("reviewer")).strip(), "assigned": sorted(r.proposal_id for r in records), "count": len(records)}
 
 
 @bp.post("/proposals/<proposal_id>/review/notes")
-@require_role()
+@require(access.WRITE_NOTE)
 def post_note(proposal_id: str) -> tuple[dict[str, Any], int]:
     """Add a note: ``{"text": ..., "request": LABEL}`` (``request`` optional; reviewers and admins)."""
     body = _json_body("note")
     with session_scope() as session:
-        actor, record = _actor_and_record(session, proposal_id, "write_note")
+        actor, record = _actor_and_record(session, proposal_id)
         review.add_note(session, actor, record, body.get("text"), body.get("request"))
         return review_json(review.review_of(session, record)), 201
 
 
 @bp.post("/proposals/<proposal_id>/review/decision")
-@require_role()
+@require(access.DECIDE)
 def post_decision(proposal_id: str) -> tuple[dict[str, Any], int]:
     """Confirm or override the engine's verdict: ``{"decision": "confirm"}`` or ``{"decision": "override", "verdict", "reason"}``."""
     body = _json_body("decision")
     with session_scope() as session:
-        actor, record = _actor_and_record(session, proposal_id, "decide")
+        actor, record = _actor_and_record(session, proposal_id)
         review.decide(session, actor, record, body.get("decision"), body.get("verdict"), body.get("reason"))
         return review_json(review.review_of(session, record)), 201
 
@@ -128,16 +128,15 @@ def _json_body(document: str) -> dict[str, Any]:
     return body
 
 
-def _actor(session: Session, action: str) -> User:
-    """The caller, loaded in ``session``, once the review's table says they may take ``action``."""
+def _actor(session: Session) -> User:
+    """The caller (allowed by the view's ``require``), loaded in ``session``; the service checks the action again."""
     user = current_user()
-    review.check_allowed(user, action)
     assert user is not None
     return session.get_one(User, user.id)
 
 
-def _actor_and_record(session: Session, proposal_id: str, action: str) -> tuple[User, ProposalRecord]:
-    actor = _actor(session, action)
+def _actor_and_record(session: Session, proposal_id: str) -> tuple[User, ProposalRecord]:
+    actor = _actor(session)
     record = session.scalar(select(ProposalRecord).where(ProposalRecord.proposal_id == proposal_id))
     if record is None or not _may_read(session, record):
         abort(404, description=f"no proposal {proposal_id!r}")

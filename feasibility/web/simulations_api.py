@@ -14,18 +14,18 @@ from flask import Blueprint, abort, url_for
 from sqlalchemy import select
 
 from feasibility.documents.loading import DocumentError, Problem, parse_document
+from feasibility.service import access
 from feasibility.service.current import current_observatory, observatory_of
 from feasibility.service.simulations import SimulationSettings, ask_for_simulation, send_simulation, simulation_json
 from feasibility.store.db import session_scope
 from feasibility.store.models import Simulation
-from feasibility.web.auth import current_user, require_role
+from feasibility.web.auth import current_user, require
 from feasibility.web.bodies import problem_status, read_request_data, request_body
 
 __all__ = ["bp"]
 
 bp = Blueprint("simulations_api", __name__, url_prefix="/api/v1")
 
-_READERS = ("reviewer", "admin")
 #: Most simulations listed by one request.
 _MAX_LISTED = 100
 
@@ -36,7 +36,7 @@ def _invalid(error: DocumentError) -> tuple[dict[str, Any], int]:
 
 
 @bp.post("/semesters/<semester>/simulations")
-@require_role(*_READERS)
+@require(access.ASK_SIMULATION)
 def post_simulation(semester: str) -> tuple[dict[str, Any], int]:
     """Ask for a simulation of ``semester``; optional JSON body ``{"realisations", "seed", "hours", "ranks"}``."""
     raw = request_body("simulation")
@@ -58,7 +58,7 @@ def post_simulation(semester: str) -> tuple[dict[str, Any], int]:
 
 
 @bp.get("/semesters/<semester>/simulations/<int:simulation_id>")
-@require_role(*_READERS)
+@require(access.SEE_SEMESTER)
 def get_simulation(semester: str, simulation_id: int) -> dict[str, Any]:
     """One simulation: its state, settings and, when done, its result."""
     with session_scope(read_only=True) as session:
@@ -69,7 +69,7 @@ def get_simulation(semester: str, simulation_id: int) -> dict[str, Any]:
 
 
 @bp.get("/semesters/<semester>/simulations")
-@require_role(*_READERS)
+@require(access.SEE_SEMESTER)
 def list_simulations(semester: str) -> dict[str, Any]:
     """The semester's simulations, newest first, without their results."""
     with session_scope(read_only=True) as session:

@@ -20,7 +20,7 @@ from flask import Flask
 from flask.testing import FlaskClient
 from sqlalchemy import delete, select, update
 
-from feasibility.service.review import ACTIONS, PERMISSIONS
+from feasibility.service.access import REVIEW_ACTIONS, TABLE
 from feasibility.store.db import session_scope
 from feasibility.store.models import AppendOnly, ReviewAssignment, ReviewDecision, ReviewNote
 
@@ -110,10 +110,10 @@ _CALLS: dict[str, tuple[str, str, dict[str, Any], int]] = {
 def test_every_role_against_every_action(client: FlaskClient, tokens: dict[str, str], role_name: str) -> None:
     roles = {"rita": "reviewer", "ada": "admin", "pablo": "proposer", "gate": "portal"}
     role = roles[role_name]
-    assert set(_CALLS) | {"read_final"} == set(ACTIONS)
+    assert set(_CALLS) | {"read_final"} == set(REVIEW_ACTIONS)
     for action, (method, path, body, ok) in _CALLS.items():
         answer = getattr(client, method)(path, headers=_auth(tokens[role_name]), **({"json": body} if method == "post" else {}))
-        allowed = role in PERMISSIONS[action]
+        allowed = role in TABLE[action]
         if action == "read_review" and not allowed:
             # Not the whole review: pablo owns 001 and reads the verdict that stands; the portal did not submit it: 404.
             if role == "proposer":

@@ -18,9 +18,10 @@ from typing import Any
 from flask import Flask
 from sqlalchemy import select
 
+from feasibility.service import access
 from feasibility.service.simulations import SimulationSettings
 from feasibility.store.models import Simulation
-from feasibility.web.auth_pages import current_user, db, sees_all
+from feasibility.web.auth_pages import current_user, db
 
 __all__ = ["chance_changes", "chance_overview", "init_app", "latest_simulation", "proposal_chance", "ranks_text"]
 
@@ -35,7 +36,7 @@ def init_app(app: Flask) -> None:
 
 def _may_see() -> bool:
     user = current_user()
-    return user is not None and sees_all(user)
+    return access.may(user, access.SEE_SEMESTER)
 
 
 def latest_simulation(semester: str) -> Simulation | None:

@@ -15,6 +15,7 @@ from flask import abort, flash, g, redirect, request, url_for
 from sqlalchemy import select
 
 from feasibility.documents.loading import DocumentError, Problem, parse_document
+from feasibility.service import access
 from feasibility.service.current import current_observatory, observatory_of
 from feasibility.service.simulations import SimulationSettings, ask_for_simulation, send_simulation
 from feasibility.store.db import session_scope
@@ -24,12 +25,10 @@ from feasibility.web.dashboard import bp
 
 __all__ = ["read_simulation_form"]
 
-#: Who may ask for a simulation: the API's rule (feasibility.web.simulations_api).
-_ASKERS = ("reviewer", "admin")
 
 
 @bp.post("/semesters/<semester>/simulations")
-@sign_in_required(*_ASKERS)
+@sign_in_required(access.ASK_SIMULATION)
 def ask_simulation(semester: str) -> Any:
     """Store a simulation of ``semester`` with the form's settings and hand it to the workers."""
     observatory = current_observatory(db())

@@ -16,7 +16,7 @@ from flask import Response, render_template, request
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from feasibility.service import review
+from feasibility.service import access, review
 from feasibility.store import queries as store_queries
 from feasibility.store.models import CheckRun, ProposalRecord, User
 from feasibility.store.standing import standing_run
@@ -33,7 +33,7 @@ __all__ = ["proposal_pdf", "semester_pdf"]
 
 
 @bp.get("/proposals/<proposal_id>/report")
-@sign_in_required()
+@sign_in_required(access.SEE_PROPOSAL)
 def proposal_report(proposal_id: str) -> Any:
     """The proposal's report as a page made for printing: everything expanded, no navigation."""
     record = _visible_record(proposal_id)
@@ -50,7 +50,7 @@ def proposal_report(proposal_id: str) -> Any:
 
 
 @bp.get("/proposals/<proposal_id>/report.pdf")
-@sign_in_required()
+@sign_in_required(access.SEE_PROPOSAL)
 def proposal_report_pdf(proposal_id: str) -> Response:
     """The proposal's report as a PDF."""
     record = _visible_record(proposal_id)
@@ -58,7 +58,7 @@ def proposal_report_pdf(proposal_id: str) -> Response:
 
 
 @bp.get("/semesters/<semester>/packet.pdf")
-@sign_in_required("reviewer", "admin")
+@sign_in_required(access.SEE_SEMESTER)
 def semester_packet_pdf(semester: str) -> Response:
     """The semester's packet: an overview page, then every proposal (or those the list's filters leave), one per page."""
     return _pdf(semester_pdf(db(), _user(), ListQuery.from_args(request.args, semester)), f"packet-{_safe(semester)}.pdf")
@@ -118,7 +118,7 @@ def _write_proposal(writer: PacketWriter, session: Session, record: ProposalReco
     writer.gap()
     writer.line(f"Engine's verdict: {state.engine_verdict or 'none'}" + (f" — {LEVEL_WORDS.get(state.engine_verdict, '')}" if state.engine_verdict else ""),
                 weight="bold")
-    if review.may(user.role, "read_review"):
+    if access.may(user, access.READ_REVIEW):
         decision = state.decision
         if decision is None:
             writer.line("Reviewer's decision: none yet")

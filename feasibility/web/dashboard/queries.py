@@ -15,6 +15,7 @@ from typing import Any
 from sqlalchemy import Select, and_, case, exists, func, literal, or_, select
 from sqlalchemy.orm import Session, aliased
 
+from feasibility.service.access import visible_to
 from feasibility.store.models import CheckRun, FindingRow, ProposalRecord, ProposalVersion, RequestOutcome, User
 from feasibility.store.standing import standing_run_id, unindexed
 
@@ -28,7 +29,6 @@ __all__ = [
     "iter_rows",
     "list_rows",
     "semesters",
-    "visible_proposals",
 ]
 
 #: Verdict levels, best to worst (feasibility.results.Level order).
@@ -150,13 +150,6 @@ class ProposalRow:
         }
 
 
-def visible_proposals(user: User) -> Any:
-    """The SQL condition on ``ProposalRecord`` for what ``user`` may see: all, or their own."""
-    if user.role in ("reviewer", "admin"):
-        return literal(True)
-    return ProposalRecord.owner_id == user.id
-
-
 def list_rows(session: Session, user: User, query: ListQuery) -> list[ProposalRow]:
     """One page of the list."""
     statement = _ordered(query).limit(query.per_page).offset((query.page - 1) * query.per_page)
@@ -183,7 +176,7 @@ def count_rows(session: Session, user: User, query: ListQuery) -> int:
 
 def semesters(session: Session, user: User) -> list[str]:
     """The semesters that have proposals ``user`` may see, newest name first."""
-    statement = select(ProposalRecord.semester).where(visible_proposals(user)).distinct()
+    statement = select(ProposalRecord.semester).where(visible_to(user)).distinct()
     return sorted(session.scalars(statement), reverse=True)
 
 
@@ -297,7 +290,7 @@ def _ordered(query: ListQuery) -> Select[Any]:
 
 
 def _filtered(user: User, query: ListQuery, statement: Select[Any]) -> Select[Any]:
-    statement = statement.where(visible_proposals(user), ProposalRecord.semester == query.semester)
+    statement = statement.where(visible_to(user), ProposalRecord.semester == query.semester)
     if query.verdict == "none":
         statement = statement.where(_standing.verdict.is_(None))
     elif query.verdict:

@@ -17,6 +17,7 @@ from typing import Any
 from flask import abort, flash, redirect, render_template, request, url_for
 
 from feasibility.documents.loading import DocumentError, Problem
+from feasibility.service import access
 from feasibility.service.current import current_schedule, schedule_of
 from feasibility.service.rechecks import dispatch_plan, upload_schedule
 from feasibility.store.db import session_factory, session_scope
@@ -24,14 +25,11 @@ from feasibility.store.models import User
 from feasibility.web.auth_pages import current_user, db, sign_in_required
 from feasibility.web.dashboard import bp
 
-__all__ = ["ADMIN_ROLES"]
-
-#: Who may upload a schedule from the pages.
-ADMIN_ROLES = ("admin",)
+__all__: list[str] = []
 
 
 @bp.route("/admin/schedule", methods=["GET", "POST"])
-@sign_in_required(*ADMIN_ROLES)
+@sign_in_required(access.MANAGE_VERSIONS)
 def schedule_upload() -> Any:
     """The upload form; a file gives a preview; the preview's button stores the document."""
     if request.method == "GET":
@@ -59,7 +57,7 @@ def schedule_upload() -> Any:
 
 
 @bp.get("/semesters/<semester>/calendar")
-@sign_in_required("reviewer", "admin")
+@sign_in_required(access.SEE_SEMESTER)
 def schedule_calendar(semester: str) -> Any:
     """The schedule in force as a calendar: each night's instrument and status, with its note; months as rows of weeks."""
     version = current_schedule(db(), semester)

@@ -11,6 +11,7 @@ from typing import Any
 
 from flask import abort, render_template
 
+from feasibility.service import access
 from feasibility.service.current import current_schedule, schedule_of
 from feasibility.service.recheck_answers import version_answer
 from feasibility.service.rechecks import previous_schedule
@@ -26,7 +27,7 @@ CHANGES_SHOWN = 50
 
 
 @bp.get("/semesters/<semester>/schedule")
-@sign_in_required()
+@sign_in_required(access.READ_SCHEDULES)
 def schedule_changes(semester: str) -> Any:
     """The schedule in force, its night-by-night changes from the version before, and the verdicts they moved."""
     session = db()

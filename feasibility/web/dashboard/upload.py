@@ -15,21 +15,19 @@ from flask import abort, current_app, redirect, render_template, request, url_fo
 from werkzeug.exceptions import RequestEntityTooLarge
 
 from feasibility.documents.loading import DocumentError, DocumentTooLarge, Problem
+from feasibility.service import access
 from feasibility.service.dispatch import enqueue
 from feasibility.service.submissions import NotAllowed, submit
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, User
-from feasibility.web.auth_pages import current_user, db, sees_all, sign_in_required
+from feasibility.web.auth_pages import current_user, db, sign_in_required
 from feasibility.web.dashboard import bp
 
-__all__ = ["UPLOAD_ROLES"]
-
-#: Who may upload a proposal from the pages.
-UPLOAD_ROLES = ("proposer", "admin")
+__all__: list[str] = []
 
 
 @bp.route("/upload", methods=["GET", "POST"])
-@sign_in_required(*UPLOAD_ROLES)
+@sign_in_required(access.SUBMIT)
 def upload() -> Any:
     """The upload form; a valid file becomes a check run and the browser goes to its page."""
     if request.method == "GET":
@@ -58,7 +56,7 @@ def upload() -> Any:
 
 
 @bp.get("/runs/<int:run_id>")
-@sign_in_required()
+@sign_in_required(access.SEE_PROPOSAL)
 def run_page(run_id: int) -> Any:
     """A check run's progress; its verdict when done."""
     run = _visible_run(run_id)
@@ -66,7 +64,7 @@ def run_page(run_id: int) -> Any:
 
 
 @bp.get("/runs/<int:run_id>/status.json")
-@sign_in_required()
+@sign_in_required(access.SEE_PROPOSAL)
 def run_status(run_id: int) -> dict[str, Any]:
     """The run's state for the polling script."""
     return _status(_visible_run(run_id))
@@ -85,7 +83,7 @@ def _visible_run(run_id: int) -> CheckRun:
     user = current_user()
     assert user is not None
     run = db().get(CheckRun, run_id)
-    if run is None or (not sees_all(user) and run.proposal_version.proposal.owner_id != user.id):
+    if run is None or not access.may_see(db(), user, run.proposal_version.proposal):
         abort(404, description="There is no check run with that number that you may see.")
     return run
 

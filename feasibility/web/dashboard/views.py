@@ -15,12 +15,13 @@ from flask import Response, abort, current_app, redirect, render_template, reque
 from sqlalchemy import select
 from werkzeug.exceptions import HTTPException
 
+from feasibility.service import access
 from feasibility.service.current import current_observatory, observatory_of
 from feasibility.store import standing
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
 from feasibility.web import auth_pages, plots
-from feasibility.web.auth_pages import check_csrf, current_user, db, security_headers, sees_all, sign_in_required
+from feasibility.web.auth_pages import check_csrf, current_user, db, security_headers, sign_in_required
 from feasibility.web.dashboard import bp
 from feasibility.web.dashboard.history import run_history
 from feasibility.web.dashboard.overview import semester_overview
@@ -65,7 +66,7 @@ def home() -> Any:
 
 
 @bp.get("/proposals")
-@sign_in_required()
+@sign_in_required(access.SEE_PROPOSAL)
 def proposal_list() -> Any:
     """A semester's proposals with their latest verdicts: filters, search, sort and pages."""
     user = _user()
@@ -93,7 +94,7 @@ def proposal_list() -> Any:
 
 
 @bp.get("/proposals.csv")
-@sign_in_required()
+@sign_in_required(access.SEE_PROPOSAL)
 def export_csv() -> Response:
     """The filtered list (every page) as CSV (RFC 4180), streamed."""
     user, query = _export_query()
@@ -120,7 +121,7 @@ def export_csv() -> Response:
 
 
 @bp.get("/proposals.json")
-@sign_in_required()
+@sign_in_required(access.SEE_PROPOSAL)
 def export_json() -> Response:
     """The filtered list (every page) as JSON: ``{"semester", "filters", "count", "proposals": [...]}``."""
     user, query = _export_query()
@@ -133,7 +134,7 @@ def export_json() -> Response:
 
 
 @bp.get("/proposals/<proposal_id>")
-@sign_in_required()
+@sign_in_required(access.SEE_PROPOSAL)
 def proposal_page(proposal_id: str) -> Any:
     """One proposal: its verdict, each request's findings and plots, and the run history."""
     session = db()
@@ -156,7 +157,7 @@ def proposal_page(proposal_id: str) -> Any:
 
 
 @bp.get("/proposals/<proposal_id>/runs/<int:run_id>/requests/<int:index>/<kind>.svg")
-@sign_in_required()
+@sign_in_required(access.SEE_PROPOSAL)
 def request_plot(proposal_id: str, run_id: int, index: int, kind: str) -> Response:
     """One plot of one request in one run, drawn from the stored series."""
     if kind not in PLOT_KINDS:
@@ -181,7 +182,7 @@ def request_plot(proposal_id: str, run_id: int, index: int, kind: str) -> Respon
 
 
 @bp.get("/overview")
-@sign_in_required("reviewer", "admin")
+@sign_in_required(access.SEE_SEMESTER)
 def overview_latest() -> Any:
     """The overview of the newest semester with proposals."""
     choices = semesters(db(), _user())
@@ -191,7 +192,7 @@ def overview_latest() -> Any:
 
 
 @bp.get("/semesters/<semester>")
-@sign_in_required("reviewer", "admin")
+@sign_in_required(access.SEE_SEMESTER)
 def overview(semester: str) -> Any:
     """The committee's view of a semester: verdict counts, hours per instrument, demand by right ascension."""
     session = db()
@@ -209,7 +210,7 @@ def overview(semester: str) -> Any:
 
 
 @bp.get("/semesters/<semester>/<kind>.svg")
-@sign_in_required("reviewer", "admin")
+@sign_in_required(access.SEE_SEMESTER)
 def overview_plot(semester: str, kind: str) -> Response:
     """The overview's plots."""
     data = semester_overview(db(), semester)
@@ -238,7 +239,7 @@ def overview_plot(semester: str, kind: str) -> Response:
 
 
 @bp.get("/semesters/<semester>/<table>.csv")
-@sign_in_required("reviewer", "admin")
+@sign_in_required(access.SEE_SEMESTER)
 def overview_table(semester: str, table: str) -> Response:
     """One table of the overview as CSV: verdicts, instruments, lunar (requested ÷ offered by lunar time) or ra."""
     data = semester_overview(db(), semester)
@@ -325,7 +326,7 @@ def _visible_record(proposal_id: str) -> ProposalRecord:
     """The proposal, when the user may see it; 404 otherwise (a proposer learns nothing of others' proposals)."""
     user = _user()
     record = db().scalars(select(ProposalRecord).where(ProposalRecord.proposal_id == proposal_id)).first()
-    if record is None or (not sees_all(user) and record.owner_id != user.id):
+    if record is None or not access.may_see(db(), user, record):
         abort(404, description="There is no proposal with that id that you may see.")
     return record
 
