@@ -1,0 +1,198 @@
+"""A moving target's track over a semester: computed once on a coarse grid of times, interpolated to any instant.
+
+The ephemeris (:mod:`~feasibility.engine.solar_system` for the planets and the Moon,
+:mod:`~feasibility.engine.orbits` for a body given by its elements, :mod:`~feasibility.engine.ephemeris_table`
+for a proposer's table) is evaluated at nodes every :data:`NODE_DAYS` (the Moon every :data:`MOON_NODE_DAYS`)
+from a day before the semester's first night to a day after its last, once per target and semester (kept, least
+recently used, per process). The sky checks then interpolate the geocentric position linearly to the grid's
+instants (a body's path bends by far under 0.01° over a quarter day; the Moon's over an hour) and subtract the
+site's position at each instant, from the grid's own rotation rows, for the topocentric direction: the Moon's
+parallax reaches about 1°, a near-Earth asteroid's can be larger. A table's positions are used as given.
+
+Instants outside an ephemeris table's span get the direction straight down (altitude −90°), so no stage counts them.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+
+from feasibility.documents.moving_targets import EphemerisTableTarget, MajorBodyTarget, OrbitalElementsTarget
+from feasibility.documents.proposal import AnyTarget
+from feasibility.engine import orbits
+from feasibility.engine.ephemeris_table import interpolate_table
+from feasibility.engine.positions import enu_matrix, separation_deg
+from feasibility.engine.skygrid import NightSamples, SkyGrid
+from feasibility.engine.small_body_brightness import comet_total_magnitude, hg_magnitude
+from feasibility.engine.solar_system import major_body_geocentric
+
+__all__ = ["MOON_NODE_DAYS", "NODE_DAYS", "Track", "track_for"]
+
+Array = NDArray[np.float64]
+
+#: Spacing of the track's nodes (days); the Moon's.
+NODE_DAYS = 0.25
+MOON_NODE_DAYS = 1.0 / 24.0
+_MJD_TO_JD = 2400000.5
+
+
+@dataclass
+class Track:
+    """A moving target's positions (and magnitudes) at the nodes, and what the checks need from them."""
+
+    kind: str
+    """``major_body``, ``orbital_elements`` or ``ephemeris_table``."""
+    mjd: Array
+    """The nodes' UTC modified Julian dates."""
+    position: Array
+    """(m, 3): geocentric positions in au (unit vectors for a table), ICRS/GCRS axes."""
+    covered: NDArray[np.bool_]
+    """Per node, whether the position is known (False outside an ephemeris table)."""
+    magnitude: Array | None
+    """Per node, the predicted magnitude, or None when the request's brightness holds all semester."""
+    magnitude_band: str | None
+    """The band of :attr:`magnitude` (V for the H, G and comet laws; None: the request's brightness band)."""
+    method: str
+    """How the positions and magnitudes were computed (for the findings)."""
+    sun_distance_au: Array | None = None
+    earth_distance_au: Array | None = None
+    site_offset: Array = field(default_factory=lambda: np.zeros(3))
+    """The site's position in its own (east, north, up) frame (au): subtracted for the topocentric direction."""
+    parallax: bool = True
+    _directions: dict[tuple[int, float, int, int], Array] = field(default_factory=dict, repr=False, compare=False)
+
+    def geocentric_directions(self, mjd: Array) -> Array:
+        """Geocentric unit vectors at UTC ``mjd`` (interpolated)."""
+        position = self._position_at(np.asarray(mjd, dtype=float))
+        return position / np.linalg.norm(position, axis=-1, keepdims=True)
+
+    def directions(self, view: NightSamples, start: int = 0, stop: int | None = None) -> Array:
+        """Topocentric unit vectors at ``view``'s instants ``start:stop``; straight down where the position is unknown."""
+        stop = view.size if stop is None else stop
+        key = (id(view), view.sun_limit_deg, start, stop)
+        cached = self._directions.get(key)
+        if cached is not None:
+            return cached
+        mjd = view.mjd[start:stop]
+        up = view.up[start:stop]
+        position = self._position_at(mjd)
+        if self.parallax:
+            east, north = view.east[start:stop], view.north[start:stop]
+            position = position - (self.site_offset[0] * east + self.site_offset[1] * north + self.site_offset[2] * up)
+        unit = position / np.linalg.norm(position, axis=-1, keepdims=True)
+        if not self.covered.all():
+            known = self._covered_at(mjd)
+            unit[~known] = -up[~known]
+        unit.setflags(write=False)
+        if len(self._directions) >= 8:
+            self._directions.clear()
+        self._directions[key] = unit
+        return unit
+
+    def known_at(self, mjd: Array) -> NDArray[np.bool_]:
+        """Whether the position is known at UTC ``mjd`` (always, but outside an ephemeris table)."""
+        return self._covered_at(np.asarray(mjd, dtype=float))
+
+    def magnitude_at(self, mjd: Array) -> Array | None:
+        """The predicted magnitude at UTC ``mjd`` (interpolated), or None."""
+        if self.magnitude is None:
+            return None
+        return np.interp(np.asarray(mjd, dtype=float), self.mjd, self.magnitude)
+
+    def rate_arcsec_per_hour(self, mjd: Array) -> Array:
+        """The geocentric motion on the sky at UTC ``mjd`` (arcseconds per hour), from the nodes on either side."""
+        unit = self.position / np.linalg.norm(self.position, axis=-1, keepdims=True)
+        step = separation_deg(unit[:-1], unit[1:]) * 3600.0 / (np.diff(self.mjd) * 24.0)
+        middle = (self.mjd[:-1] + self.mjd[1:]) / 2.0
+        return np.interp(np.asarray(mjd, dtype=float), middle, step)
+
+    def _position_at(self, mjd: Array) -> Array:
+        return np.stack([np.interp(mjd, self.mjd, self.position[:, axis]) for axis in range(3)], axis=-1)
+
+    def _covered_at(self, mjd: Array) -> NDArray[np.bool_]:
+        if self.covered.all():
+            return np.ones(mjd.shape, dtype=bool)
+        first, last = self.mjd[self.covered][[0, -1]]
+        return (mjd >= first) & (mjd <= last)
+
+
+def track_for(target: AnyTarget, grid: SkyGrid) -> Track | None:
+    """The track of a moving ``target`` over ``grid``'s semester (computed once per target and semester), or None for a fixed one."""
+    if target.kind == "fixed":
+        return None
+    return _cached_track(
+        target.model_dump_json(), type(target).__name__, float(grid.midnight_mjd[0]), float(grid.midnight_mjd[-1]),
+        grid.latitude_deg, grid.longitude_deg, grid.elevation_m,
+    )
+
+
+@functools.lru_cache(maxsize=256)
+def _cached_track(
+    document: str, model: str, first_midnight: float, last_midnight: float, latitude: float, longitude: float, elevation: float
+) -> Track:
+    import erfa
+
+    target = {"MajorBodyTarget": MajorBodyTarget, "OrbitalElementsTarget": OrbitalElementsTarget,
+              "EphemerisTableTarget": EphemerisTableTarget}[model].model_validate_json(document)
+    step = MOON_NODE_DAYS if isinstance(target, MajorBodyTarget) and target.body == "moon" else NODE_DAYS
+    count = int(math.ceil((last_midnight - first_midnight + 2.0) / step)) + 1
+    mjd = first_midnight - 1.0 + np.arange(count) * step
+    site = enu_matrix(latitude, longitude) @ (erfa.gd2gc(1, math.radians(longitude), math.radians(latitude), elevation) / erfa.DAU)
+    if isinstance(target, MajorBodyTarget):
+        return Track(
+            kind=target.kind, mjd=mjd, position=major_body_geocentric(target.body, mjd), covered=np.ones(count, dtype=bool),
+            magnitude=None, magnitude_band=None, site_offset=site,
+            method=f"{target.body.capitalize()} from astropy get_body with the built-in ephemeris (ERFA epv00, plan94, "
+            f"moon98; light-time corrected), every {step * 24:g} h, interpolated; topocentric with the site's position",
+        )
+    if isinstance(target, OrbitalElementsTarget):
+        return _elements_track(target, mjd, site, step)
+    table = interpolate_table(target, mjd)
+    return Track(
+        kind=target.kind, mjd=mjd, position=table.directions, covered=table.covered, magnitude=table.magnitude,
+        magnitude_band=None, parallax=False,
+        method=f"the proposer's ephemeris table ({len(target.ephemeris_table)} rows), interpolated linearly as unit "
+        "vectors and used as given (no parallax); outside its span the position is unknown and those instants do not count",
+    )
+
+
+def _elements_track(target: OrbitalElementsTarget, mjd: Array, site: Array, step: float) -> Track:
+    tt = mjd + _MJD_TO_JD + _tt_minus_utc_days(float(mjd[0]))
+    orbit = orbits.orbit_from_target(target)
+    seen = orbits.geocentric(orbit, tt, _earth(tt.tobytes()))
+    magnitude: Array | None = None
+    law = "no brightness law given: the request's brightness is used all semester"
+    if target.absolute_magnitude is not None:
+        magnitude = hg_magnitude(target.absolute_magnitude, target.slope, seen.sun_distance_au, seen.earth_distance_au, seen.phase_angle_deg)
+        law = f"V from the IAU H, G system (Bowell et al. 1989), H = {target.absolute_magnitude:g}, G = {target.slope:g}"
+    elif target.total_absolute_magnitude is not None and target.total_magnitude_slope is not None:
+        magnitude = comet_total_magnitude(target.total_absolute_magnitude, target.total_magnitude_slope, seen.sun_distance_au, seen.earth_distance_au)
+        law = (f"V from the comet total-magnitude law m = M1 + 5 log Δ + K1 log r, M1 = {target.total_absolute_magnitude:g}, "
+               f"K1 = {target.total_magnitude_slope:g}")
+    kind = "ellipse" if orbit.eccentricity < 1.0 else ("hyperbola" if orbit.eccentricity > 1.0 else "parabola")
+    return Track(
+        kind=target.kind, mjd=mjd, position=seen.geocentric, covered=np.ones(mjd.size, dtype=bool), magnitude=magnitude,
+        magnitude_band="V" if magnitude is not None else None, sun_distance_au=seen.sun_distance_au,
+        earth_distance_au=seen.earth_distance_au, site_offset=site,
+        method=f"two-body {kind} from the osculating elements (ecliptic J2000.0; Kepler's equation, Meeus ch. 33-34), "
+        f"the Earth from ERFA epv00, light-time corrected, every {step * 24:g} h, interpolated; topocentric with the "
+        f"site's position; {law}",
+    )
+
+
+@functools.lru_cache(maxsize=8)
+def _earth(tt: bytes) -> Array:
+    """The Earth's heliocentric positions at the nodes (shared by every body given by elements in a semester)."""
+    return orbits.earth_heliocentric(np.frombuffer(tt, dtype=float))
+
+
+def _tt_minus_utc_days(mjd: float) -> float:
+    """TT − UTC (days) at UTC ``mjd``: leap seconds (ERFA ``dat``) + 32.184 s; one value serves a semester."""
+    import erfa
+
+    year, month, day, fraction = erfa.jd2cal(_MJD_TO_JD, mjd)
+    return (float(erfa.dat(int(year), int(month), int(day), float(fraction))) + 32.184) / 86400.0
