@@ -44,7 +44,7 @@ def unit_vector(ra_deg: ArrayLike, dec_deg: ArrayLike) -> Array:
     return np.stack([cos_dec * np.cos(ra), cos_dec * np.sin(ra), np.sin(dec)], axis=-1)
 
 
-def along(rows: Array, direction: Array, index: ArrayLike | slice | None = None) -> Array:
+def along(rows: Array, direction: Array, index: NDArray[np.intp] | None = None) -> Array:
     """Per row, ``rows · direction``: ``direction`` is one unit vector (a fixed target, ``rows @ direction``) or one
     per instant (a moving target, ``(n, 3)``, of which ``index`` picks the rows' instants)."""
     if direction.ndim == 1:

@@ -38,6 +38,7 @@ from feasibility.engine.airmass import airmass_at, altitude_for_airmass, limit_a
 from feasibility.engine.conditions import Conditions, nearest_rank, nearest_rank_index
 from feasibility.engine.horizon import horizon_altitude
 from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, optical_path, sky_components_nl
+from feasibility.engine.moving import sun_remark
 from feasibility.engine.positions import along, target_vector
 from feasibility.engine.sky_findings import (
     MARGIN,
@@ -51,7 +52,6 @@ from feasibility.engine.sky_findings import (
 from feasibility.engine.sky_masks import in_windows, visible_mask, window_nights
 from feasibility.engine.skygrid import NightSamples, SkyGrid
 from feasibility.engine.spectral_curves import sky_setting
-from feasibility.engine.moving import sun_remark
 from feasibility.engine.tracks import Track, track_for
 from feasibility.engine.what_if import SkyProbe
 

@@ -23,7 +23,6 @@ import numpy as np
 from numpy.typing import NDArray
 
 from feasibility.documents.moving_targets import EphemerisTableTarget, MajorBodyTarget, OrbitalElementsTarget
-from feasibility.documents.proposal import AnyTarget
 from feasibility.engine import orbits
 from feasibility.engine.ephemeris_table import interpolate_table
 from feasibility.engine.positions import enu_matrix, separation_deg
@@ -153,27 +152,30 @@ def cubic_coefficients(values: Array) -> Array:
     )
 
 
-def track_for(target: AnyTarget, grid: SkyGrid) -> Track | None:
-    """The track of a moving ``target`` over ``grid``'s semester (computed once per target and semester), or None for a fixed one."""
-    if target.kind == "fixed":
-        return None
+def track_for(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget, grid: SkyGrid) -> Track:
+    """The track of a moving ``target`` over ``grid``'s semester (computed once per target and semester)."""
     return _cached_track(
-        target.model_dump_json(), type(target).__name__, float(grid.midnight_mjd[0]), float(grid.midnight_mjd[-1]),
+        target.model_dump_json(), target.kind, float(grid.midnight_mjd[0]), float(grid.midnight_mjd[-1]),
         grid.latitude_deg, grid.longitude_deg, grid.elevation_m,
     )
 
 
 @functools.lru_cache(maxsize=256)
 def _cached_track(
-    document: str, model: str, first_midnight: float, last_midnight: float, latitude: float, longitude: float, elevation: float
+    document: str, kind: str, first_midnight: float, last_midnight: float, latitude: float, longitude: float, elevation: float
 ) -> Track:
     import erfa
 
-    target = {"MajorBodyTarget": MajorBodyTarget, "OrbitalElementsTarget": OrbitalElementsTarget,
-              "EphemerisTableTarget": EphemerisTableTarget}[model].model_validate_json(document)
+    target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget
+    if kind == "major_body":
+        target = MajorBodyTarget.model_validate_json(document)
+    elif kind == "orbital_elements":
+        target = OrbitalElementsTarget.model_validate_json(document)
+    else:
+        target = EphemerisTableTarget.model_validate_json(document)
     step = NODE_DAYS
     count = int(math.ceil((last_midnight - first_midnight + 2.0) / step)) + 1
-    mjd = first_midnight - 1.0 + np.arange(count) * step
+    mjd: Array = first_midnight - 1.0 + np.arange(count, dtype=np.float64) * step
     site = enu_matrix(latitude, longitude) @ (erfa.gd2gc(1, math.radians(longitude), math.radians(latitude), elevation) / erfa.DAU)
     if isinstance(target, MajorBodyTarget):
         return Track(

@@ -147,7 +147,6 @@ def test_cubic_interpolation_is_exact_for_cubics() -> None:
 @pytest.mark.parametrize("body", ["jupiter", "mars", "venus", "moon"])
 def test_major_body_altitudes_against_astropy_get_body(body: str, grid_2027a, demo_site_location) -> None:
     # Reference: astropy get_body (built-in ephemeris) seen from the site, transformed to AltAz without refraction.
-    import astropy.units as u
     from astropy.coordinates import AltAz, get_body, solar_system_ephemeris
     from astropy.time import Time
 
