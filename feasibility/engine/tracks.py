@@ -30,7 +30,7 @@ from feasibility.engine.skygrid import NightSamples, SkyGrid
 from feasibility.engine.small_body_brightness import comet_total_magnitude, hg_magnitude
 from feasibility.engine.solar_system import major_body_geocentric
 
-__all__ = ["NODE_DAYS", "Track", "cubic_at", "cubic_coefficients", "track_for"]
+__all__ = ["NODE_DAYS", "Track", "cubic_at", "cubic_coefficients", "forget_tracks", "track_for"]
 
 Array = NDArray[np.float64]
 
@@ -158,6 +158,11 @@ def track_for(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTa
         target.model_dump_json(), target.kind, float(grid.midnight_mjd[0]), float(grid.midnight_mjd[-1]),
         grid.latitude_deg, grid.longitude_deg, grid.elevation_m,
     )
+
+
+def forget_tracks() -> None:
+    """Empty this process's cache of tracks (the benchmark's first-sight figure; tests)."""
+    _cached_track.cache_clear()
 
 
 @functools.lru_cache(maxsize=256)
