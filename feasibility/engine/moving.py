@@ -41,7 +41,6 @@ TRAIL_FRACTION = 0.5
 #: A body closer to the Sun than this (au) during the semester gets the plain near-Sun warning when it also stands
 #: near the telescope's Sun limit in the sky (comets near perihelion).
 NEAR_SUN_AU = 1.0
-_DEFER = "The observatory's own Sun-safety rules and its staff decide; follow them."
 
 
 @dataclass
@@ -70,7 +69,8 @@ def sun_remark(
     text += (
         f" {'WARNING: ' if warns else ''}it passes {float(r[closest]):.2f} au from the Sun this semester (closest at the "
         f"night of {night_names[closest]}), standing {w.degrees(elongation)} from the Sun in the sky then: a comet near "
-        "perihelion brightens and changes fast, and its glare and tail reach towards the Sun. " + _DEFER
+        "perihelion brightens and changes fast, and its glare and tail reach towards the Sun: ask the observatory's "
+        "staff before planning it."
     )
     return text, warns
 
