@@ -68,7 +68,7 @@ class Target(_Document):
 
 
 #: A target of any kind, told apart by its ``kind`` (none: fixed). The error path of a bad field is the field's own
-#: (``requests[0].target.eccentricity``): :func:`feasibility.documents.loading.field_path` leaves out the kind's tag.
+#: (``requests[0].target.eccentricity``): :func:`feasibility.documents.messages.without_tags` leaves out the kind's tag.
 AnyTarget = Annotated[
     Annotated[Target, Tag("fixed")]
     | Annotated[MajorBodyTarget, Tag("major_body")]

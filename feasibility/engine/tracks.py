@@ -17,6 +17,8 @@ from __future__ import annotations
 
 import functools
 import math
+import threading
+from collections import OrderedDict
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -36,6 +38,10 @@ Array = NDArray[np.float64]
 
 #: Spacing of the track's nodes (days).
 NODE_DAYS = 0.5
+#: The last directions worked out, by (track, view, slice): identity-checked, a few megabytes at most.
+_DIRECTIONS: OrderedDict[tuple[int, int, int, int], tuple[Track, NightSamples, Array]] = OrderedDict()
+_DIRECTIONS_SIZE = 8
+_DIRECTIONS_LOCK = threading.Lock()
 _MJD_TO_JD = 2400000.5
 
 
@@ -62,7 +68,6 @@ class Track:
     site_offset: Array = field(default_factory=lambda: np.zeros(3))
     """The site's position in its own (east, north, up) frame (au): subtracted for the topocentric direction."""
     parallax: bool = True
-    _directions: dict[tuple[int, float, int, int], Array] = field(default_factory=dict, repr=False, compare=False)
     _coefficients: Array | None = field(default=None, repr=False, compare=False)
 
     def geocentric_directions(self, mjd: Array) -> Array:
@@ -71,12 +76,17 @@ class Track:
         return position / np.linalg.norm(position, axis=-1, keepdims=True)
 
     def directions(self, view: NightSamples, start: int = 0, stop: int | None = None) -> Array:
-        """Topocentric unit vectors at ``view``'s instants ``start:stop``; straight down where the position is unknown."""
+        """Topocentric unit vectors at ``view``'s instants ``start:stop``; straight down where the position is unknown.
+
+        The last few are kept (:data:`_DIRECTIONS`), as the same target comes back for the night plot and the what-if
+        suggestions; each takes about 0.5 MB for a semester.
+        """
         stop = view.size if stop is None else stop
-        key = (id(view), view.sun_limit_deg, start, stop)
-        cached = self._directions.get(key)
-        if cached is not None:
-            return cached
+        key = (id(self), id(view), start, stop)
+        with _DIRECTIONS_LOCK:
+            cached = _DIRECTIONS.get(key)
+        if cached is not None and cached[0] is self and cached[1] is view:
+            return cached[2]
         mjd = view.mjd[start:stop]
         up = view.up[start:stop]
         position = self._position_at(mjd)
@@ -88,9 +98,10 @@ class Track:
             known = self._covered_at(mjd)
             unit[~known] = -up[~known]
         unit.setflags(write=False)
-        if len(self._directions) >= 8:
-            self._directions.clear()
-        self._directions[key] = unit
+        with _DIRECTIONS_LOCK:
+            _DIRECTIONS[key] = (self, view, unit)
+            while len(_DIRECTIONS) > _DIRECTIONS_SIZE:
+                _DIRECTIONS.popitem(last=False)
         return unit
 
     def known_at(self, mjd: Array) -> NDArray[np.bool_]:
@@ -161,11 +172,13 @@ def track_for(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTa
 
 
 def forget_tracks() -> None:
-    """Empty this process's cache of tracks (the benchmark's first-sight figure; tests)."""
+    """Empty this process's cache of tracks and their directions (the benchmark's first-sight figure; tests)."""
     _cached_track.cache_clear()
+    with _DIRECTIONS_LOCK:
+        _DIRECTIONS.clear()
 
 
-@functools.lru_cache(maxsize=256)
+@functools.lru_cache(maxsize=512)  # about 50 kB each
 def _cached_track(
     document: str, kind: str, first_midnight: float, last_midnight: float, latitude: float, longitude: float, elevation: float
 ) -> Track:
