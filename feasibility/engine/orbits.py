@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from datetime import datetime
 
 import numpy as np
 from numpy.typing import NDArray
@@ -77,8 +78,9 @@ class OrbitPositions:
     """The angle Sun–body–Earth."""
 
 
-def _jd(moment: object) -> float:
-    return float(moment.timestamp()) / 86400.0 + _JD_UNIX_EPOCH  # type: ignore[attr-defined]
+def _jd(moment: datetime) -> float:
+    """A document's date (read as TT) as a Julian date."""
+    return moment.timestamp() / 86400.0 + _JD_UNIX_EPOCH
 
 
 def orbit_from_target(target: OrbitalElementsTarget) -> Orbit:
