@@ -26,7 +26,7 @@ from numpy.typing import NDArray
 
 from feasibility.documents.moving_targets import EphemerisTableTarget, MajorBodyTarget, OrbitalElementsTarget
 from feasibility.engine import orbits
-from feasibility.engine.ephemeris_table import interpolate_table
+from feasibility.engine.ephemeris_table import interpolate_table, table_times_mjd
 from feasibility.engine.positions import enu_matrix, separation_deg
 from feasibility.engine.skygrid import NightSamples, SkyGrid
 from feasibility.engine.small_body_brightness import comet_total_magnitude, hg_magnitude
@@ -55,8 +55,8 @@ class Track:
     """The nodes' UTC modified Julian dates."""
     position: Array
     """(m, 3): geocentric positions in au (unit vectors for a table), ICRS/GCRS axes."""
-    covered: NDArray[np.bool_]
-    """Per node, whether the position is known (False outside an ephemeris table)."""
+    known_span: tuple[float, float] | None
+    """The UTC MJDs between which the position is known (an ephemeris table's first and last rows); None: always."""
     magnitude: Array | None
     """Per node, the predicted magnitude, or None when the request's brightness holds all semester."""
     magnitude_band: str | None
@@ -94,7 +94,7 @@ class Track:
             east, north = view.east[start:stop], view.north[start:stop]
             position = position - (self.site_offset[0] * east + self.site_offset[1] * north + self.site_offset[2] * up)
         unit = position / np.linalg.norm(position, axis=-1, keepdims=True)
-        if not self.covered.all():
+        if self.known_span is not None:
             known = self._covered_at(mjd)
             unit[~known] = -up[~known]
         unit.setflags(write=False)
@@ -127,9 +127,9 @@ class Track:
         return cubic_at(self.mjd, self.position, mjd, self._coefficients)
 
     def _covered_at(self, mjd: Array) -> NDArray[np.bool_]:
-        if self.covered.all():
+        if self.known_span is None:
             return np.ones(mjd.shape, dtype=bool)
-        first, last = self.mjd[self.covered][[0, -1]]
+        first, last = self.known_span
         return (mjd >= first) & (mjd <= last)
 
 
@@ -197,7 +197,7 @@ def _cached_track(
     site = enu_matrix(latitude, longitude) @ (erfa.gd2gc(1, math.radians(longitude), math.radians(latitude), elevation) / erfa.DAU)
     if isinstance(target, MajorBodyTarget):
         return Track(
-            kind=target.kind, mjd=mjd, position=major_body_geocentric(target.body, mjd), covered=np.ones(count, dtype=bool),
+            kind=target.kind, mjd=mjd, position=major_body_geocentric(target.body, mjd), known_span=None,
             magnitude=None, magnitude_band=None, site_offset=site,
             method=f"{target.body.capitalize()} from astropy get_body with the built-in ephemeris (ERFA epv00, plan94, "
             f"moon98; light-time corrected), every {step * 24:g} h, interpolated; topocentric with the site's position",
@@ -205,8 +205,9 @@ def _cached_track(
     if isinstance(target, OrbitalElementsTarget):
         return _elements_track(target, mjd, site, step)
     table = interpolate_table(target, mjd)
+    times = table_times_mjd(target)
     return Track(
-        kind=target.kind, mjd=mjd, position=table.directions, covered=table.covered, magnitude=table.magnitude,
+        kind=target.kind, mjd=mjd, position=table.directions, known_span=(float(times[0]), float(times[-1])), magnitude=table.magnitude,
         magnitude_band=None, parallax=False,
         method=f"the proposer's ephemeris table ({len(target.ephemeris_table)} rows), interpolated linearly as unit "
         "vectors and used as given (no parallax); outside its span the position is unknown and those instants do not count",
@@ -228,7 +229,7 @@ def _elements_track(target: OrbitalElementsTarget, mjd: Array, site: Array, step
                f"K1 = {target.total_magnitude_slope:g}")
     kind = "ellipse" if orbit.eccentricity < 1.0 else ("hyperbola" if orbit.eccentricity > 1.0 else "parabola")
     return Track(
-        kind=target.kind, mjd=mjd, position=seen.geocentric, covered=np.ones(mjd.size, dtype=bool), magnitude=magnitude,
+        kind=target.kind, mjd=mjd, position=seen.geocentric, known_span=None, magnitude=magnitude,
         magnitude_band="V" if magnitude is not None else None, sun_distance_au=seen.sun_distance_au,
         earth_distance_au=seen.earth_distance_au, site_offset=site,
         method=f"two-body {kind} from the osculating elements (ecliptic J2000.0; Kepler's equation, Meeus ch. 33-34), "

@@ -172,6 +172,15 @@ def test_table_outside_its_span_counts_nothing(demo_observatory: Observatory, gr
     assert _finding(table, "motion").figures["nights_outside_table"] > 100
 
 
+def test_a_table_wholly_outside_the_semester_is_refused_by_the_motion_finding(demo_observatory: Observatory) -> None:
+    rows = [{"time": "2020-01-01T00:00:00Z", "ra": 150.0, "dec": -30.0}, {"time": "2020-01-05T00:00:00Z", "ra": 151.0, "dec": -30.0}]
+    (table,) = _check(demo_observatory, {"kind": "ephemeris_table", "name": "old", "ephemeris_table": rows})
+    assert table.verdict is Level.INFEASIBLE
+    assert table.figures["hours_visible"] == 0.0
+    motion = _finding(table, "motion")
+    assert motion.level is Level.INFEASIBLE and motion.figures["nights_outside_table"] == len(table.series["nights"])
+
+
 def test_moving_target_parallax_is_applied_for_the_moon(grid_2027a: SkyGrid) -> None:
     # The Moon's topocentric direction differs from its geocentric one by up to its horizontal parallax,
     # about 0.95° (57′, a handbook value); at the zenith the difference vanishes.
