@@ -13,6 +13,11 @@ Prints, in one run on one core (BLAS threads pinned to 1), each the fastest of
 - the straightforward approach measured in the same run: an astropy
   ``SkyCoord.transform_to(AltAz)`` per target over the same instants, the speed
   ratio against it and the largest altitude difference;
+- moving targets (planets, bodies given by orbital elements, ephemeris tables) checked in full, against the
+  fixed targets' figure in the same run: with each target's track already computed (the engine computes a track
+  once per target and semester and keeps it), and on first sight (the tracks' cache emptied before each round;
+  the planets' positions and the Earth's, shared by every target of a semester, stay computed). Goal: a moving
+  target costs at most 5× a fixed one;
 - memory and size: this process's peak resident set (``resource.getrusage``; an
   engine worker holds the same grid and caches) and the bytes the store writes per
   proposal (the result's JSON, ``model_dump_json`` as in ``service/runs.py``), per
@@ -51,6 +56,7 @@ from feasibility.engine.positions import target_vector  # noqa: E402
 from feasibility.engine.sensitivity import assess_exposure  # noqa: E402
 from feasibility.engine.sky_checks import measure_sky, night_availability  # noqa: E402
 from feasibility.engine.skygrid import sky_grid  # noqa: E402
+from feasibility.engine.tracks import forget_tracks  # noqa: E402
 from feasibility.offline import log_astropy_warnings  # noqa: E402
 
 SEMESTER = "2027A"
@@ -63,6 +69,7 @@ def main() -> None:
     parser.add_argument("--baseline-targets", type=int, default=3, help="targets for the astropy baseline (default 3)")
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--rounds", type=int, default=5, help="timed rounds; the fastest is reported (default 5)")
+    parser.add_argument("--moving", type=int, default=400, help="moving-target request checks to time (default 400)")
     args = parser.parse_args()
 
     data = Path(str(resources.files("feasibility") / "data"))
@@ -128,8 +135,30 @@ def main() -> None:
         for vector in vectors:
             np.degrees(np.arcsin(view.up @ vector))
 
+    moving = [
+        parse_document(Proposal, {
+            "id": f"MOVE-{i // REQUESTS_PER_PROPOSAL:05d}", "semester": SEMESTER, "title": "benchmark, moving targets",
+            "pi": {"name": "Bench Mark", "email": "bench@example.org"},
+            "requests": [_moving_request(rng, k, requests[k % len(requests)]) for k in range(i, min(i + REQUESTS_PER_PROPOSAL, args.moving))],
+        })
+        for i in range(0, args.moving, REQUESTS_PER_PROPOSAL)
+    ]
+    moving_count = sum(len(p.requests) for p in moving)
+
+    def moving_checks() -> None:
+        for proposal in moving:
+            check_proposal(proposal, observatory, schedule)
+
+    def moving_first_sight() -> None:
+        forget_tracks()
+        moving_checks()
+
+    moving_checks()  # warm-up: the planets' and the Earth's positions for the semester
+
     load_before = os.getloadavg()[0]
     full, full_cpu = _best_of(full_checks, len(parsed), args.rounds)
+    moving_warm, moving_warm_cpu = _best_of(moving_checks, moving_count, args.rounds)
+    moving_cold, moving_cold_cpu = _best_of(moving_first_sight, moving_count, args.rounds)
     sky_only, sky_cpu = _best_of(sky_passes, len(parsed), args.rounds)
     exposure_only, exposure_cpu = _best_of(exposure_assessments, len(parsed), args.rounds)
     altitude_only, _ = _best_of(altitude_paths, len(parsed), args.rounds)
@@ -149,6 +178,11 @@ def main() -> None:
     print(f"speed-up of a full request check over astropy: {baseline / full:9.0f}x")
     print(f"max altitude difference vs astropy:            {worst_difference:10.4f} deg (goal <= 0.05 deg)")
     print(f"full request checks per second:                {1.0 / full:10.0f}    wall, {1.0 / full_cpu:.0f} CPU-time (goal >= 2000 on one core)")
+    print(f"\nmoving-target request checks ({moving_count}: planets, orbital elements, ephemeris tables):")
+    print(f"  track already computed: {moving_warm * 1e6:8.1f} us each (CPU {moving_warm_cpu * 1e6:.1f}), "
+          f"{moving_warm / full:.2f}x a fixed target (CPU {moving_warm_cpu / full_cpu:.2f}x)  (goal <= 5x)")
+    print(f"  first sight of each:    {moving_cold * 1e6:8.1f} us each (CPU {moving_cold_cpu * 1e6:.1f}), "
+          f"{moving_cold / full:.2f}x a fixed target (CPU {moving_cold_cpu / full_cpu:.2f}x)  (goal <= 5x)")
     print(f"load average (1 min) before and after the timed rounds: {load_before:.1f}, {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores "
           "(other work slows every figure)")
     per_proposal = stored_bytes / len(proposals)
@@ -185,6 +219,36 @@ def _astropy_baseline(requests: list[Any], view: Any, site: Any) -> tuple[float,
         ours = np.degrees(np.arcsin(view.up @ target_vector(request.target.ra_deg, request.target.dec_deg)))
         worst = max(worst, float(np.max(np.abs(ours - altitude))))
     return (time.perf_counter() - started) / max(1, len(requests)), worst
+
+
+def _moving_request(rng: random.Random, i: int, like: dict[str, Any]) -> dict[str, Any]:
+    """A moving-target request on ``like``'s setup: a quarter planets or the Moon, half invented bodies given by
+    orbital elements (asteroid-like with H, G, or comet-like with M1, K1), a quarter ephemeris tables."""
+    request = {**like, "label": f"m{i}", "windows": []}
+    kind = rng.random()
+    if kind < 0.25:
+        body = rng.choice(["mars", "jupiter", "saturn", "uranus", "neptune", "venus", "mercury", "moon"])
+        request["target"] = {"kind": "major_body", "name": body.capitalize(), "body": body}
+    elif kind < 0.75:
+        elements: dict[str, Any] = {
+            "kind": "orbital_elements", "name": f"invented body {i}", "epoch": "2027-06-01",
+            "inclination": rng.uniform(0.0, 30.0), "ascending_node_longitude": rng.uniform(0.0, 359.0),
+            "perihelion_argument": rng.uniform(0.0, 359.0),
+        }
+        if rng.random() < 0.7:
+            elements |= {"semi_major_axis": rng.uniform(1.5, 3.5), "eccentricity": rng.uniform(0.0, 0.3),
+                         "mean_anomaly": rng.uniform(0.0, 359.0), "absolute_magnitude": rng.uniform(10.0, 17.0)}
+        else:
+            elements |= {"perihelion_distance": rng.uniform(0.5, 2.5), "eccentricity": rng.uniform(0.9, 1.05),
+                         "perihelion_time": f"2027-0{rng.randint(4, 9)}-15", "total_absolute_magnitude": rng.uniform(6.0, 14.0),
+                         "total_magnitude_slope": 10.0}
+        request["target"] = elements
+    else:
+        ra, dec, drift = rng.uniform(0.0, 359.0), rng.uniform(-60.0, 20.0), rng.uniform(-0.5, 0.5)
+        rows = [{"time": f"2027-{month:02d}-{day:02d}T00:00:00Z", "ra": (ra + drift * (30 * (month - 3) + day)) % 360.0,
+                 "dec": dec, "magnitude": 17.0 + 0.1 * month} for month in range(3, 11) for day in (1, 11, 21)]
+        request["target"] = {"kind": "ephemeris_table", "name": f"table body {i}", "ephemeris_table": rows}
+    return request
 
 
 def _random_request(rng: random.Random, i: int) -> dict[str, Any]:

@@ -21,7 +21,7 @@ pressure views (requested ÷ offered) look like a real call. The drafts are chec
 once per process (the result is remembered per seed and semester).
 
 Everything here is invented: people, institutions, titles and target names. The
-seven hand-written examples in ``feasibility/data/proposals`` stay the documented ones.
+eight hand-written examples in ``feasibility/data/proposals`` stay the documented ones.
 """
 
 from __future__ import annotations

@@ -64,7 +64,7 @@ def seed_demo_store() -> None:
 
 
 def submit_demo_proposals() -> list[int]:
-    """Store the seven hand-written demo proposals and the generated semester; the ids of the new check runs."""
+    """Store the eight hand-written demo proposals and the generated semester; the ids of the new check runs."""
     from feasibility.demo_semester import demo_semester
     from feasibility.documents.loading import DocumentError
     from feasibility.service.submissions import submit

@@ -9,9 +9,20 @@ from __future__ import annotations
 
 import math
 import re
-from typing import Any
+from typing import Annotated, Any
 
-__all__ = ["DECLINATION_PATTERN", "DECLINATION_SCHEMA", "RIGHT_ASCENSION_PATTERN", "RIGHT_ASCENSION_SCHEMA", "parse_declination", "parse_right_ascension"]
+from pydantic import BeforeValidator, WithJsonSchema
+
+__all__ = [
+    "DECLINATION_PATTERN",
+    "DECLINATION_SCHEMA",
+    "RIGHT_ASCENSION_PATTERN",
+    "RIGHT_ASCENSION_SCHEMA",
+    "Declination",
+    "RightAscension",
+    "parse_declination",
+    "parse_right_ascension",
+]
 
 _FRACTION = r"(?:\.[0-9]+)?"
 _SEP = r"(?::| +)"
@@ -125,3 +136,9 @@ def _check_fields(text: str, default_unit: str) -> None:
     hours = default_unit == "hourangle" and "d" not in text.lower() and "°" not in text
     if hours and len(numbers) > 1 and numbers[0] == 24:
         raise ValueError(f"{text!r}: hours must be below 24")
+
+
+#: A right ascension field of a document: degrees in [0, 360), read as :func:`parse_right_ascension` reads it.
+RightAscension = Annotated[float, BeforeValidator(parse_right_ascension), WithJsonSchema(RIGHT_ASCENSION_SCHEMA, mode="validation")]
+#: A declination field of a document: degrees in [-90, +90], read as :func:`parse_declination` reads it.
+Declination = Annotated[float, BeforeValidator(parse_declination), WithJsonSchema(DECLINATION_SCHEMA, mode="validation")]

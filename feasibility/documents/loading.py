@@ -10,7 +10,7 @@ from typing import Any, TypeVar
 
 from pydantic import BaseModel, ValidationError
 
-from feasibility.documents.messages import plain_message
+from feasibility.documents.messages import plain_message, without_tags
 from feasibility.documents.problems import MAX_PROBLEMS, DocumentError, DocumentTooLarge, Problem, UnreadableDocument, printable
 from feasibility.documents.reading import MAX_DOCUMENT_BYTES, data_shape_problem, read_data, read_file
 
@@ -72,7 +72,7 @@ def parse_document(model: type[Model], data: dict[str, Any] | str | bytes, docum
         return model.model_validate(data)
     except ValidationError as exc:
         errors = exc.errors(include_url=False)  # with the input: messages quote it, cut short (messages._shown)
-        problems = [Problem(field_path(err["loc"]), plain_message(err, model)) for err in errors[: MAX_PROBLEMS + 1]]
+        problems = [Problem(field_path(without_tags(model, tuple(err["loc"]))), plain_message(err, model)) for err in errors[: MAX_PROBLEMS + 1]]
         raise DocumentError(problems, name, total=len(errors)) from None
     except (ArithmeticError, ValueError, TypeError, RecursionError) as exc:
         # A validator let an exception other than a validation error escape: a bug to fix, but

@@ -206,18 +206,59 @@ def _field_at(model: type[BaseModel] | None, location: tuple[int | str, ...]) ->
 
 
 def _model_at(model: type[BaseModel] | None, location: tuple[int | str, ...]) -> type[BaseModel] | None:
-    """The model a location (of a mapping inside the document) validates against, or None."""
+    """The model a location (of a mapping inside the document) validates against, or None.
+
+    A tagged union's tag in the location (pydantic puts it there, e.g. ``target.orbital_elements``) picks its model.
+    """
     current: Any = model
+    tags: dict[str, type[BaseModel]] = {}
     for part in location:
         if isinstance(part, int):
+            continue
+        if part in tags:
+            current, tags = tags[part], {}
             continue
         if not (isinstance(current, type) and issubclass(current, BaseModel)):
             return None
         field = _field_named(current, part)
         if field is None:
             return None
+        tags = _tagged_models(field.annotation)
         current = _inner_model(field.annotation)
     return current if isinstance(current, type) and issubclass(current, BaseModel) else None
+
+
+def _tagged_models(annotation: Any) -> dict[str, type[BaseModel]]:
+    """The models of a tagged union (``Annotated[X, Tag("x")] | ...``) by tag; empty for any other annotation."""
+    found: dict[str, type[BaseModel]] = {}
+    for argument in typing.get_args(annotation):
+        if typing.get_origin(argument) is typing.Annotated:
+            model, *metadata = typing.get_args(argument)
+            for item in metadata:
+                tag = getattr(item, "tag", None)
+                if isinstance(tag, str) and isinstance(model, type) and issubclass(model, BaseModel):
+                    found[tag] = model
+        found.update(_tagged_models(argument) if typing.get_origin(argument) in (typing.Union, types.UnionType, typing.Annotated) else {})
+    return found
+
+
+def without_tags(model: type[BaseModel] | None, location: tuple[int | str, ...]) -> tuple[int | str, ...]:
+    """``location`` without the tags of tagged unions, so a field path names fields only (``requests[0].target.eccentricity``)."""
+    kept: list[int | str] = []
+    current: Any = model
+    tags: dict[str, type[BaseModel]] = {}
+    for part in location:
+        if isinstance(part, int):
+            kept.append(part)
+            continue
+        if part in tags:
+            current, tags = tags[part], {}
+            continue
+        kept.append(part)
+        field = _field_named(current, part) if isinstance(current, type) and issubclass(current, BaseModel) else None
+        tags = _tagged_models(field.annotation) if field is not None else {}
+        current = _inner_model(field.annotation) if field is not None else None
+    return tuple(kept)
 
 
 def _field_named(model: type[BaseModel], key: str) -> FieldInfo | None:

@@ -93,6 +93,17 @@ class Telescope(_Part):
         default=45.0, ge=0, le=180,
         description="Closest approach to the Sun's direction allowed by the observatory's safety rules.",
     )
+    max_tracking_rate_arcsec_per_hour: float | None = Field(
+        default=None, gt=0, le=1e7,
+        description=(
+            "Fastest non-sidereal rate the mount can follow, in arcseconds per HOUR on the sky (the motion of a "
+            "solar-system body relative to the stars). Not given: not stated, and no rate is refused."
+        ),
+    )
+    sidereal_tracking_only: bool = Field(
+        default=False,
+        description="True when the mount follows the stars only: a moving body trails during each exposure.",
+    )
 
 
 class Band(_Part):

@@ -4,17 +4,11 @@ from __future__ import annotations
 
 from typing import Annotated, ClassVar, Literal
 
-from pydantic import (
-    BeforeValidator,
-    ConfigDict,
-    Field,
-    WithJsonSchema,
-    field_validator,
-    model_validator,
-)
+from pydantic import ConfigDict, Discriminator, Field, Tag, field_validator, model_validator
 
-from feasibility.documents.angles import DECLINATION_SCHEMA, RIGHT_ASCENSION_SCHEMA, parse_declination, parse_right_ascension
+from feasibility.documents.angles import Declination, RightAscension
 from feasibility.documents.base import DocumentModel
+from feasibility.documents.moving_targets import EphemerisTableTarget, MajorBodyTarget, OrbitalElementsTarget, target_kind
 from feasibility.documents.times import UtcDatetime
 
 __all__ = [
@@ -26,13 +20,10 @@ __all__ = [
     "Person",
     "Proposal",
     "Setup",
+    "AnyTarget",
     "Target",
     "TimeWindow",
 ]
-
-
-RightAscension = Annotated[float, BeforeValidator(parse_right_ascension), WithJsonSchema(RIGHT_ASCENSION_SCHEMA, mode="validation")]
-Declination = Annotated[float, BeforeValidator(parse_declination), WithJsonSchema(DECLINATION_SCHEMA, mode="validation")]
 
 
 class _Document(DocumentModel):
@@ -48,8 +39,13 @@ class Person(_Document):
 
 
 class Target(_Document):
-    """A sidereal target in ICRS. Right ascension in hours (sexagesimal) or degrees; declination in degrees."""
+    """A sidereal target in ICRS. Right ascension in hours (sexagesimal) or degrees; declination in degrees.
 
+    ``kind`` may be left out: a target without one is this kind (see :mod:`feasibility.documents.moving_targets`
+    for the solar-system kinds).
+    """
+
+    kind: Literal["fixed"] = Field(default="fixed", description="A fixed ICRS position (the default kind).")
     name: str = Field(min_length=1, max_length=200)
     ra_deg: RightAscension = Field(
         validation_alias="ra",
@@ -69,6 +65,21 @@ class Target(_Document):
     epoch: float = Field(default=2000.0, ge=1800, le=2200, description="Julian epoch of the position.")
 
     model_config = ConfigDict(extra="forbid", populate_by_name=True, str_strip_whitespace=True)
+
+
+#: A target of any kind, told apart by its ``kind`` (none: fixed). The error path of a bad field is the field's own
+#: (``requests[0].target.eccentricity``): :func:`feasibility.documents.messages.without_tags` leaves out the kind's tag.
+AnyTarget = Annotated[
+    Annotated[Target, Tag("fixed")]
+    | Annotated[MajorBodyTarget, Tag("major_body")]
+    | Annotated[OrbitalElementsTarget, Tag("orbital_elements")]
+    | Annotated[EphemerisTableTarget, Tag("ephemeris_table")],
+    Discriminator(
+        target_kind,
+        custom_error_type="target_kind",
+        custom_error_message="target kind must be one of fixed (the default), major_body, orbital_elements or ephemeris_table",
+    ),
+]
 
 
 class Setup(_Document):
@@ -142,7 +153,7 @@ class ObservationRequest(_Document):
     """One target with one instrument setup, a brightness, a goal, hours and constraints."""
 
     label: str = Field(min_length=1, max_length=80)
-    target: Target
+    target: AnyTarget
     instrument: str = Field(min_length=1)
     setup: Setup = Field(default_factory=Setup)
     brightness: Brightness

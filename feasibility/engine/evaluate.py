@@ -29,6 +29,7 @@ from feasibility.documents.consistency import proposal_problems
 from feasibility.documents.loading import Problem
 from feasibility.engine.causes import link_causes
 from feasibility.engine.explain import explain_conditions
+from feasibility.engine.moving import MotionOutcome, assess_motion
 from feasibility.engine.sensitivity import assess_exposure
 from feasibility.engine.sky_checks import (
     measure_sky,
@@ -151,7 +152,12 @@ def check_request(
             context.weather,
             context.schedule is not None,
         )
-        exposure = assess_exposure(request, observatory, instrument, sky.conditions)
+        motion: MotionOutcome | None = None
+        if sky.track is not None:  # a solar-system body: its magnitude on the usable nights, its rate, trailing
+            motion = assess_motion(request, observatory, instrument, sky)
+        exposure = assess_exposure(
+            motion.request if motion else request, observatory, motion.instrument if motion else instrument, sky.conditions
+        )
     except Exception as exc:  # one request's failure must not lose the others' results
         log.exception("request %r could not be evaluated", request.label)
         return _unchecked(request, [], f"could not be evaluated ({type(exc).__name__}: {exc})")
@@ -162,6 +168,7 @@ def check_request(
         moon_finding(sky),
         schedule_finding(sky, hours_needed, context.schedule),
         sun_safety_finding(sky),
+        *([motion.finding] if motion else []),
         *exposure.findings,
     ]
     explain_conditions(findings, sky.conditions.hours_usable)
@@ -198,6 +205,7 @@ def check_request(
         "moon_illumination": list(context.moon_illumination),
         "night_curve": sky.night_curve,
         **exposure.series,
+        **(motion.series if motion else {}),
     }
     return RequestResult(
         label=request.label,

@@ -20,6 +20,7 @@ from numpy.typing import ArrayLike, NDArray
 __all__ = [
     "MAS_PER_DEG",
     "altaz_from_enu",
+    "along",
     "enu_matrix",
     "illuminated_fraction",
     "phase_angle_deg",
@@ -41,6 +42,15 @@ def unit_vector(ra_deg: ArrayLike, dec_deg: ArrayLike) -> Array:
     dec = np.radians(np.asarray(dec_deg, dtype=float))
     cos_dec = np.cos(dec)
     return np.stack([cos_dec * np.cos(ra), cos_dec * np.sin(ra), np.sin(dec)], axis=-1)
+
+
+def along(rows: Array, direction: Array, index: NDArray[np.intp] | None = None) -> Array:
+    """Per row, ``rows · direction``: ``direction`` is one unit vector (a fixed target, ``rows @ direction``) or one
+    per instant (a moving target, ``(n, 3)``, of which ``index`` picks the rows' instants)."""
+    if direction.ndim == 1:
+        return rows @ direction
+    chosen = direction if index is None else direction[index]
+    return np.einsum("ij,ij->i", rows, chosen)
 
 
 def radec_from_vector(vector: ArrayLike) -> tuple[Array, Array]:

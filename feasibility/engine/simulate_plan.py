@@ -27,13 +27,14 @@ from numpy.typing import NDArray
 
 from feasibility.documents import Instrument, InstrumentSchedule, ObservationRequest, Observatory
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG
-from feasibility.documents.proposal import SKY_ILLUMINATION
+from feasibility.documents.proposal import SKY_ILLUMINATION, Target
 from feasibility.engine.airmass import limit_altitude
 from feasibility.engine.exposure_checks import diffraction_fwhm_arcsec, seeing_fwhm_arcsec
-from feasibility.engine.positions import target_vector
+from feasibility.engine.positions import along, target_vector
 from feasibility.engine.sky_checks import DARK_ILLUMINATION, GREY_ILLUMINATION, night_availability
 from feasibility.engine.sky_masks import in_windows, visible_mask
 from feasibility.engine.skygrid import NightSamples, SkyGrid
+from feasibility.engine.tracks import track_for
 
 __all__ = [
     "ANY_INSTRUMENT",
@@ -145,7 +146,7 @@ def build_plan(
         name = item.instrument.name
         if name not in available:
             available[name] = night_availability(grid, name, schedule)
-        mask = request_instants(item.request, observatory, item.instrument, view, available[name])
+        mask = request_instants(item.request, observatory, item.instrument, view, available[name], grid)
         if starts.size:
             inside = np.add.reduceat(mask.view(np.uint8), starts, dtype=np.int32)
             usable[:, k] = 2 * inside >= counts
@@ -170,8 +171,11 @@ def request_instants(
     instrument: Instrument,
     view: NightSamples,
     available: NDArray[np.bool_],
+    grid: SkyGrid | None = None,
 ) -> NDArray[np.bool_]:
     """The instants of ``view`` at which ``request`` is usable: the sky checks' third stage, instant by instant.
+
+    A moving target (a solar-system body) follows its track over ``grid``, which it then needs.
 
     The same rules as :func:`feasibility.engine.sky_checks.measure_sky` (which reduces
     them to hours per night): :func:`sky_masks.visible_mask` with the request's limits,
@@ -181,11 +185,16 @@ def request_instants(
     site, telescope, constraints = observatory.site, observatory.telescope, request.constraints
     grid_mid = float(view.mjd[view.size // 2]) if view.size else 51544.5
     target = request.target
-    vector = target_vector(
-        target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch,
-        2000.0 + (grid_mid - 51544.5) / 365.25,
-    )
-    sin_alt = view.up @ vector
+    if isinstance(target, Target):
+        vector = target_vector(
+            target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch,
+            2000.0 + (grid_mid - 51544.5) / 365.25,
+        )
+    elif grid is None:
+        raise ValueError(f"request {request.label!r}: a moving target needs the semester grid for its track")
+    else:
+        vector = track_for(target, grid).directions(view)
+    sin_alt = along(view.up, vector)
     min_alt = max(
         limit_altitude(constraints.max_airmass, observatory.airmass_limit_formula), site.min_altitude_deg, telescope.min_altitude_deg
     )
@@ -193,7 +202,7 @@ def request_instants(
     usable = visible_mask(view, vector, sin_alt, min_alt, telescope.max_altitude_deg, site, windows)
     usable &= view.sun_alt_deg < TWILIGHT_SUN_ALTITUDE_DEG[instrument.twilight]
     lit = np.flatnonzero(usable & view.moon_up)
-    cos_moon = np.take(view.moon, lit, axis=0) @ vector
+    cos_moon = along(np.take(view.moon, lit, axis=0), vector, lit)
     usable[lit[cos_moon > math.cos(math.radians(constraints.min_moon_separation_deg))]] = False
     limit = 1.0 if constraints.max_moon_illumination is None else constraints.max_moon_illumination
     if constraints.sky is not None:

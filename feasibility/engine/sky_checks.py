@@ -33,12 +33,13 @@ from numpy.typing import NDArray
 
 from feasibility.documents import Instrument, InstrumentSchedule, ObservationRequest, Observatory
 from feasibility.documents.observatory import TWILIGHT_SUN_ALTITUDE_DEG, Site
-from feasibility.documents.proposal import SKY_ILLUMINATION
+from feasibility.documents.proposal import SKY_ILLUMINATION, Target
 from feasibility.engine.airmass import airmass_at, altitude_for_airmass, limit_airmass, limit_altitude
 from feasibility.engine.conditions import Conditions, nearest_rank, nearest_rank_index
 from feasibility.engine.horizon import horizon_altitude
 from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts, optical_path, sky_components_nl
-from feasibility.engine.positions import target_vector
+from feasibility.engine.moving import sun_remark
+from feasibility.engine.positions import along, target_vector
 from feasibility.engine.sky_findings import (
     MARGIN,
     SUN_MARGIN_DEG,
@@ -51,6 +52,7 @@ from feasibility.engine.sky_findings import (
 from feasibility.engine.sky_masks import in_windows, visible_mask, window_nights
 from feasibility.engine.skygrid import NightSamples, SkyGrid
 from feasibility.engine.spectral_curves import sky_setting
+from feasibility.engine.tracks import Track, track_for
 from feasibility.engine.what_if import SkyProbe
 
 __all__ = [
@@ -126,6 +128,13 @@ class SkyMeasure:
     night_curve: dict[str, object] = field(default_factory=dict)
     probe: SkyProbe | None = field(default=None, repr=False, compare=False)
     """What the stages would give with other limits (for the findings' suggestions)."""
+    track: Track | None = field(default=None, repr=False, compare=False)
+    """A moving target's track (None for a fixed target)."""
+    midnight_mjd: NDArray[np.float64] | None = field(default=None, repr=False, compare=False)
+    """Each night's local midnight (UTC MJD), for a moving target's per-night figures."""
+    sun_note: str | None = None
+    """A moving target's remark for the sun-safety finding (a comet near perihelion warns plainly)."""
+    sun_note_warns: bool = False
 
     total_visible: float = field(init=False, default=0.0)
     total_observable: float = field(init=False, default=0.0)
@@ -184,13 +193,18 @@ def measure_sky(
     step_hours = grid.step_hours
 
     target = request.target
-    mid_jyear = 2000.0 + (float(grid.midnight_mjd[n_nights // 2]) - 51544.5) / 365.25
-    vector = target_vector(
-        target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch, mid_jyear
-    )
+    track: Track | None = None
+    if isinstance(target, Target):
+        mid_jyear = 2000.0 + (float(grid.midnight_mjd[n_nights // 2]) - 51544.5) / 365.25
+        vector = target_vector(
+            target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch, mid_jyear
+        )
+    else:  # a moving target: one topocentric direction per instant (feasibility.engine.tracks)
+        track = track_for(target, grid)
+        vector = track.directions(view)
 
     # Stage 1, visible: one product over all instants, then masks over the instants.
-    sin_alt = view.up @ vector
+    sin_alt = along(view.up, vector)
     formula = observatory.airmass_limit_formula
     min_alt = max(limit_altitude(constraints.max_airmass, formula), site.min_altitude_deg, telescope.min_altitude_deg)
     max_alt = telescope.max_altitude_deg
@@ -200,7 +214,7 @@ def measure_sky(
     # Stage 2, observable: the Moon constraints, while the Moon is up (its distance is needed only there).
     moon_limit = _moon_illumination_limit(request)
     lit = np.flatnonzero(visible & view.moon_up)
-    cos_moon = np.take(view.moon, lit, axis=0) @ vector
+    cos_moon = along(np.take(view.moon, lit, axis=0), vector, lit)
     observable = visible.copy()
     observable[lit[cos_moon > math.cos(math.radians(constraints.min_moon_separation_deg))]] = False
     if moon_limit < 1.0:
@@ -239,7 +253,7 @@ def measure_sky(
         step = -(-chosen.size // _SKY_SAMPLES)  # at most _SKY_SAMPLES, evenly spread in time
         sampled = chosen[::step]
         # (With the Moon down its term is zero, whatever the separation.)
-        separation = np.degrees(np.arccos(np.clip(np.take(view.moon, sampled, axis=0) @ vector, -1.0, 1.0)))
+        separation = np.degrees(np.arccos(np.clip(along(np.take(view.moon, sampled, axis=0), vector, sampled), -1.0, 1.0)))
         if sky_model.per_band:
             terms = view.moon_term(k)[sampled]
         else:  # a spectrum's own extinction: eq. 15's I* 10^(-0.4 k X(Z_moon)) from the cached k = 0 term, per sample
@@ -263,7 +277,15 @@ def measure_sky(
 
     moon_separation_min = math.degrees(math.acos(min(1.0, float(cos_moon.max())))) if cos_moon.size else None
 
-    cos_sun = grid.sun_vector_midnight @ vector
+    sun_note: tuple[str | None, bool] = (None, False)
+    if track is None:
+        cos_sun = grid.sun_vector_midnight @ vector
+    else:  # the body's own direction each midnight; nights an ephemeris table leaves out count as the farthest known
+        cos_sun = along(grid.sun_vector_midnight, track.geocentric_directions(grid.midnight_mjd))
+        known = track.known_at(grid.midnight_mjd)
+        if known.any() and not known.all():
+            cos_sun[~known] = float(cos_sun[known].min())
+        sun_note = sun_remark(track, grid.midnight_mjd, grid.night_names, cos_sun, telescope.min_sun_separation_deg)
     touched = window_nights(request.windows, grid.midnight_mjd) if request.windows else None
     sun_limit_cos = math.cos(math.radians(telescope.min_sun_separation_deg))
     if hours_visible.any():
@@ -330,7 +352,7 @@ def measure_sky(
             "sky": constraints.sky or "bright",
         },
         night_curve=_night_curve(
-            grid, vector, hours_usable, hours_observable, hours_visible,
+            grid, vector if track is None else track, hours_usable, hours_observable, hours_visible,
             _NightMarks(view=view, usable=usable, site=site, limit_alt=limit_altitude(constraints.max_airmass, formula),
                         floor_alt=max(site.min_altitude_deg, telescope.min_altitude_deg), airmass_limit=constraints.max_airmass,
                         formula=formula),
@@ -351,6 +373,10 @@ def measure_sky(
             weather=weather,
             step_hours=step_hours,
         ),
+        track=track,
+        midnight_mjd=grid.midnight_mjd if track is not None else None,
+        sun_note=sun_note[0],
+        sun_note_warns=sun_note[1],
     )
 
 
@@ -383,7 +409,7 @@ class _NightMarks:
 
 def _night_curve(
     grid: SkyGrid,
-    vector: NDArray[np.float64],
+    target: NDArray[np.float64] | Track,
     usable: NDArray[np.float64],
     observable: NDArray[np.float64],
     visible: NDArray[np.float64],
@@ -397,6 +423,7 @@ def _night_curve(
     observatory's limit formula), the lowest altitude the site and mount allow, the
     horizon profile along the target's path, the target's distance from the Moon,
     which instants were usable, and the site's longitude (for local mean solar time).
+    ``target`` is a fixed target's unit vector or a moving target's track.
     """
     for hours in (usable, observable, visible):
         if hours.any():
@@ -406,7 +433,8 @@ def _night_curve(
         night = grid.n_nights // 2
     view = grid.samples(0.0)
     lo, hi = view.night_starts[night], view.night_starts[night + 1]
-    up = view.up[lo:hi] @ vector
+    vector = target if isinstance(target, np.ndarray) else target.directions(view, int(lo), int(hi))
+    up = along(view.up[lo:hi], vector)
     shared = grid.night_sky_curve(night)
     curve: dict[str, object] = {
         "night": shared["night"],
@@ -415,7 +443,7 @@ def _night_curve(
     }
     if marks is None:
         return curve
-    moon_cos = np.clip(view.moon[lo:hi] @ vector, -1.0, 1.0)
+    moon_cos = np.clip(along(view.moon[lo:hi], vector), -1.0, 1.0)
     start, stop = marks.view.night_starts[night], marks.view.night_starts[night + 1]
     usable_mjd = marks.view.mjd[start:stop][marks.usable[start:stop]]
     curve.update(
@@ -430,7 +458,7 @@ def _night_curve(
         }
     )
     if marks.site.horizon:
-        azimuth = np.degrees(np.arctan2(view.east[lo:hi] @ vector, view.north[lo:hi] @ vector))
+        azimuth = np.degrees(np.arctan2(along(view.east[lo:hi], vector), along(view.north[lo:hi], vector)))
         curve["horizon_alt_deg"] = horizon_altitude(marks.site, azimuth).round(2).tolist()
     return curve
 

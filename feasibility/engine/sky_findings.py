@@ -532,6 +532,10 @@ def sun_safety_finding(sky: SkyMeasure) -> Finding:
         when = "while visible" if visible > 0.0 else f"{at_midnight} {span} (never visible)"
         message = f"Closest approach to the Sun {when}: {w.degrees(closest)} (limit {w.degrees(limit)})."
         suggestion = None
+    if sky.sun_note:  # a moving target: followed night by night; a comet near perihelion warns plainly
+        message += " " + sky.sun_note
+        if sky.sun_note_warns and level is Level.FEASIBLE:
+            level = Level.MARGINAL
     return Finding(
         check="sun-safety",
         level=level,

@@ -16,6 +16,7 @@ from numpy.typing import NDArray
 
 from feasibility.documents import Site, TimeWindow
 from feasibility.engine.horizon import horizon_altitude
+from feasibility.engine.positions import along
 from feasibility.engine.skygrid import NightSamples
 
 __all__ = ["in_windows", "to_mjd", "visible_mask", "window_nights"]
@@ -33,7 +34,9 @@ def visible_mask(
     windows: NDArray[np.bool_] | None,
 ) -> NDArray[np.bool_]:
     """The instants of ``view`` (true night) at which the target stands between ``min_alt`` and ``max_alt``,
-    above the site's horizon profile and inside the time windows (``windows``, a mask; None for none)."""
+    above the site's horizon profile and inside the time windows (``windows``, a mask; None for none).
+
+    ``vector`` is the target's unit vector, or for a moving target one per instant of ``view`` (``(n, 3)``)."""
     visible = sin_alt >= math.sin(math.radians(min_alt))
     if max_alt < 90.0:
         visible &= sin_alt <= math.sin(math.radians(max_alt))
@@ -63,7 +66,7 @@ def _clear_below_horizon_profile(
     low = np.flatnonzero(visible & (sin_alt < math.sin(math.radians(top))))
     if not low.size:
         return
-    azimuth = np.degrees(np.arctan2(np.take(view.east, low, axis=0) @ vector, np.take(view.north, low, axis=0) @ vector))
+    azimuth = np.degrees(np.arctan2(along(np.take(view.east, low, axis=0), vector, low), along(np.take(view.north, low, axis=0), vector, low)))
     floor = horizon_altitude(site, azimuth)
     visible[low[np.degrees(np.arcsin(sin_alt[low])) < floor]] = False
 

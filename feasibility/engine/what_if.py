@@ -17,6 +17,7 @@ from numpy.typing import NDArray
 
 from feasibility.documents import Site
 from feasibility.engine.airmass import limit_altitude
+from feasibility.engine.positions import along
 from feasibility.engine.sky_masks import visible_mask
 from feasibility.engine.skygrid import NightSamples
 
@@ -38,6 +39,7 @@ class SkyProbe:
 
     view: NightSamples
     vector: NDArray[np.float64]
+    """The target's unit vector, or one per instant of ``view`` for a moving target."""
     sin_alt: NDArray[np.float64]
     site: Site
     floor_alt: float
@@ -100,7 +102,7 @@ class SkyProbe:
         observable = visible.copy()
         lit = np.flatnonzero(visible & self.view.moon_up)
         if separation > 0.0 and lit.size:
-            cos_moon = np.take(self.view.moon, lit, axis=0) @ self.vector
+            cos_moon = along(np.take(self.view.moon, lit, axis=0), self.vector, lit)
             observable[lit[cos_moon > math.cos(math.radians(separation))]] = False
         if illumination < 1.0:
             observable &= self.view.moon_down_or_within(illumination)

@@ -60,6 +60,11 @@ def arcsec(value: float) -> str:
     return f"{value:.2f}\""
 
 
+def rate(value: float) -> str:
+    """A motion on the sky in arcseconds per hour, one decimal: "35.2″/h"."""
+    return f"{value:,.1f}″/h"
+
+
 def airmass(value: float) -> str:
     """Airmass, two decimals: "1.60"."""
     return f"{value:.2f}"

@@ -44,6 +44,7 @@ __all__ = [
     "ra_demand_svg",
     "semester_hours_svg",
     "snr_curve_svg",
+    "track_svg",
     "verdict_counts_svg",
 ]
 
@@ -278,6 +279,66 @@ def snr_curve_svg(series: Mapping[str, Any], figures: Mapping[str, Any] | None =
         ax.set_ylabel("Signal-to-noise ratio")
         ax.set_title("Signal-to-noise against exposure time")
         _legend_below(fig, ax, max_cols=2)
+        return _svg(fig)
+
+
+def track_svg(series: Mapping[str, Any]) -> str | None:
+    """A moving target's track: its path on the sky night by night (right ascension growing to the left, as on
+    the sky) and its magnitude across the semester (or, without one, its motion in arcseconds per hour).
+
+    ``series["track"]`` holds per night at local midnight the right ascension and declination (None where an
+    ephemeris table leaves the night out), the rate and the magnitude; None for a fixed target.
+    """
+    track = series.get("track")
+    nights = _dates(series.get("nights"))
+    if not isinstance(track, Mapping) or not nights:
+        return None
+    ra = track.get("ra_deg")
+    dec = track.get("dec_deg")
+    if not isinstance(ra, list) or not isinstance(dec, list) or len(ra) != len(nights) or len(dec) != len(nights):
+        return None
+    known = [i for i, (a, d) in enumerate(zip(ra, dec)) if isinstance(a, (int, float)) and isinstance(d, (int, float))]
+    if not known:
+        return None
+    ra_known = [float(ra[i]) for i in known]
+    # Unwrap across 0h so a path over the equinox stays one line.
+    unwrapped = [ra_known[0]]
+    for value in ra_known[1:]:
+        step = (value - unwrapped[-1] + 180.0) % 360.0 - 180.0
+        unwrapped.append(unwrapped[-1] + step)
+    usable = _aligned(series.get("hours_usable"), nights)
+    magnitude = track.get("magnitude")
+    values, label = (magnitude, f"Magnitude ({track.get('magnitude_band') or 'request band'})") if isinstance(magnitude, list) else (
+        track.get("rate_arcsec_per_hour"), "Motion on the sky (″/h)")
+    other = _aligned(values, nights)
+
+    with _LOCK:
+        fig = Figure(figsize=(7.6, 3.9), dpi=96, layout="constrained")
+        sky, along = fig.subplots(1, 2)
+        for ax in (sky, along):
+            ax.grid(True, color="#d9d9d9", linewidth=0.6)
+            ax.set_axisbelow(True)
+        sky.plot([value / 15.0 for value in unwrapped], [float(dec[i]) for i in known], color=INK["target"], linewidth=1.6,
+                 label="Path, one point a night", gid="track")
+        chosen = [k for k, i in enumerate(known) if usable and usable[i] > 0]
+        if chosen:
+            sky.plot([unwrapped[k] / 15.0 for k in chosen], [float(dec[known[k]]) for k in chosen], linestyle="none", marker="o",
+                     markersize=2.5, color=INK["usable"], label="Nights with usable hours", gid="track-usable")
+        sky.annotate(nights[known[0]].isoformat(), (unwrapped[0] / 15.0, float(dec[known[0]])), fontsize=7)
+        sky.annotate(nights[known[-1]].isoformat(), (unwrapped[-1] / 15.0, float(dec[known[-1]])), fontsize=7)
+        sky.invert_xaxis()
+        sky.set_xlabel("Right ascension (hours)")
+        sky.set_ylabel("Declination (degrees)")
+        sky.set_title("Path on the sky (geocentric)", fontsize=10)
+        if other:
+            along.plot(nights, other, color=INK["target"], linewidth=1.6, gid="track-value")
+            if isinstance(magnitude, list):
+                along.invert_yaxis()  # brighter up
+            along.xaxis.set_major_locator(mdates.MonthLocator())
+            along.xaxis.set_major_formatter(mdates.DateFormatter("%b"))
+        along.set_ylabel(label)
+        along.set_title("Across the semester", fontsize=10)
+        _legend_below(fig, sky, max_cols=2)
         return _svg(fig)
 
 

@@ -184,7 +184,7 @@ def test_demo_proposals_are_valid_documents() -> None:
     data = files("feasibility") / "data"
     observatory = parse_document(Observatory, (data / "observatory.yaml").read_bytes())
     names = [item.name for item in (data / "proposals").iterdir() if item.name.endswith(".yaml")]
-    assert 5 <= len(names) <= 7
+    assert 5 <= len(names) <= 8
     for name in names:
         with_path = Path(str(data / "proposals" / name))
         proposal = load_document(Proposal, with_path)

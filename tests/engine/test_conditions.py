@@ -117,6 +117,10 @@ def test_design_snr_of_demo_imaging_matches_the_ccd_equation(
         if instrument is None or instrument.kind != "imager" or request.goal.snr is None or result.verdict is Level.UNCHECKED:
             continue
         figures = _finding(result, "sensitivity").figures
+        motion = next((f.figures for f in result.findings if f.check == "motion"), {})
+        if motion.get("magnitude_used") is not None:  # a moving body: the magnitude its ephemeris gives on the usable nights
+            brightness = request.brightness.model_copy(update={"magnitude": motion["magnitude_used"], "band": motion["magnitude_band"]})
+            request = request.model_copy(update={"brightness": brightness})
         expected = _ccd_snr_by_hand(demo_observatory, instrument, request, figures)
         # Merline & Howell (1995) / Howell, Handbook of CCD Astronomy: the CCD equation at the same conditions.
         assert figures["snr_expected"] == pytest.approx(expected, rel=0.02), request.label

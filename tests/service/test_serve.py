@@ -80,10 +80,10 @@ def test_serve_demo_signs_a_reviewer_in_to_the_checked_demo_proposals(tmp_path: 
             timeout=10,
         )
         assert signed_in.status_code == 200 and "Sign out" in signed_in.text
-        # The seven demo proposals and the generated semester are checked by the embedded workers; each gets its stored verdict.
+        # The eight demo proposals and the generated semester are checked by the embedded workers; each gets its stored verdict.
         from feasibility.demo_semester import demo_semester
 
-        expected = 7 + len(demo_semester())
+        expected = 8 + len(demo_semester())
         deadline = time.monotonic() + 90
         while time.monotonic() < deadline:
             listed = browser.get(f"{base_url}/proposals.json", params={"semester": "2027A"}, timeout=10).json()

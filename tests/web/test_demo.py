@@ -106,7 +106,7 @@ def test_demo_people_each_sign_in_and_see_their_part(app: Flask, client: FlaskCl
         created = submit_demo_proposals()
         passwords = make_demo_people()
         assert make_demo_people() == {}  # made once; a second start prints no password
-    assert len(created) == 7 + len(demo_semester())
+    assert len(created) == 8 + len(demo_semester())
     assert set(passwords) == {"demo-reviewer", "demo-proposer", "demo-admin"}
 
     sign_in(client, "demo-proposer", passwords["demo-proposer"])

@@ -201,3 +201,16 @@ def test_snr_plot_is_in_hours(real_series: dict[str, Any]) -> None:
     (legend,) = fig.legends
     # Below the data, covering none of it (display coordinates grow upwards).
     assert legend.get_window_extent().y1 <= fig.axes[0].get_window_extent().y0
+
+
+def test_track_plot_of_a_moving_target_and_none_for_a_fixed_one(real_series: dict[str, Any]) -> None:
+    # Demo 008's asteroid (orbital elements with H, G): the stored track has one point a night.
+    series = engine_result(demo_doc("008")).requests[1].series
+    assert len(series["track"]["ra_deg"]) == len(series["nights"])
+    root = _root(plots.track_svg(series))
+    ids = {element.get("id") for element in root.iter()}
+    assert {"track", "track-usable", "track-value"} <= ids
+    assert plots.track_svg(real_series) is None  # a fixed star stores no track
+    broken = copy.deepcopy(series)
+    broken["track"]["ra_deg"] = broken["track"]["ra_deg"][:-1]
+    assert plots.track_svg(broken) is None

@@ -138,3 +138,32 @@ def test_run_history_says_what_changed(app: Flask, client: FlaskClient, semester
     older = client.get(f"/proposals/SQ-2027A-001?run={first}").get_data(as_text=True)
     assert f"#{first} <span class=\"shown\">(shown)</span>" in older
     assert client.get("/proposals/SQ-2027A-001?run=999999").status_code == 404
+
+
+def test_moving_targets_show_their_path_and_magnitude(app: Flask, client: FlaskClient, people: dict[str, int], engine: Any) -> None:
+    # Demo 008 (its header: a planet, an asteroid and a comet by orbital elements, a table target); the engine's
+    # own result is the reference for what the page shows.
+    run_id = store_checked(app, demo_doc("008"), None)
+    result = engine_result(demo_doc("008"))
+    sign_in(client, "rita")
+    html = client.get("/proposals/SQ-2027A-008").get_data(as_text=True)
+    for index, request in enumerate(result.requests):
+        motion = next(f for f in request.findings if f.check == "motion")
+        assert f"<p>{escape(motion.message)}</p>" in html
+        address = f"/proposals/SQ-2027A-008/runs/{run_id}/requests/{index}/track.svg"
+        assert address in html
+        answer = client.get(address)
+        assert answer.status_code == 200 and answer.mimetype == "image/svg+xml"
+        root = ET.fromstring(answer.get_data(as_text=True))
+        assert root.tag == f"{SVG_NS}svg"
+        assert any(element.get("id") == "track" for element in root.iter())
+    assert "Path on the sky and brightness across the semester" in html
+    assert "WARNING" in html  # the comet near perihelion (sun-safety), said plainly
+
+
+def test_fixed_targets_have_no_track_plot(app: Flask, client: FlaskClient, people: dict[str, int], engine: Any) -> None:
+    run_id = store_checked(app, demo_doc("001"), None)
+    sign_in(client, "rita")
+    html = client.get("/proposals/SQ-2027A-001").get_data(as_text=True)
+    assert "track.svg" not in html and "No plot" not in html
+    assert client.get(f"/proposals/SQ-2027A-001/runs/{run_id}/requests/0/track.svg").status_code == 404

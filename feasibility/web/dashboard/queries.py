@@ -34,7 +34,7 @@ __all__ = [
 #: Verdict levels, best to worst (feasibility.results.Level order).
 LEVELS = ("feasible", "marginal", "unchecked", "infeasible")
 #: The checks named in the project's vocabulary, offered in the "check with a problem" filter.
-CHECK_NAMES = ("visibility", "moon", "sensitivity", "instrument", "schedule", "sun-safety", "atmosphere", "image-quality")
+CHECK_NAMES = ("visibility", "moon", "sensitivity", "instrument", "schedule", "sun-safety", "atmosphere", "image-quality", "motion")
 #: Sortable columns, in the list's order: URL name -> label.
 SORT_KEYS = {
     "id": "Proposal",

@@ -35,6 +35,7 @@ PLOT_KINDS: dict[str, tuple[str, Any]] = {
     "night": ("Altitude through a representative night", lambda s, f, t: plots.night_curve_svg(s, t)),
     "semester": ("Usable hours per night and the Moon", lambda s, f, t: plots.semester_hours_svg(s)),
     "snr": ("Signal-to-noise against exposure time", lambda s, f, t: plots.snr_curve_svg(s, f)),
+    "track": ("Path on the sky and brightness across the semester (moving target)", lambda s, f, t: plots.track_svg(s)),
 }
 CSV_COLUMNS = [
     "proposal_id", "semester", "title", "principal_investigator", "instruments", "hours_requested",
@@ -377,7 +378,7 @@ def _requests_of(run: CheckRun | None) -> list[dict[str, Any]]:
 
 
 def _has_series(kind: str, series: dict[str, Any]) -> bool:
-    needed = {"night": "night_curve", "semester": "hours_usable", "snr": "snr_curve"}[kind]
+    needed = {"night": "night_curve", "semester": "hours_usable", "snr": "snr_curve", "track": "track"}[kind]
     return needed in series
 
 
