@@ -18,7 +18,7 @@ from werkzeug.exceptions import HTTPException
 
 from feasibility.documents.reading import MAX_DOCUMENT_BYTES
 from feasibility.store import db
-from feasibility.web import unavailable
+from feasibility.web import protection, unavailable
 
 __all__ = ["create_app"]
 
@@ -75,6 +75,11 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
         SIGN_IN_WINDOW_S=3600,  # how long a failure counts, in seconds
         SIGN_IN_FIRST_DELAY_S=30,  # the first wait after reaching a limit; doubles with each further failure
         SIGN_IN_MAX_DELAY_S=900,  # the longest wait
+        # Rate limits (web/protection.py; Flask-Limiter's notation, several joined by ";"), answered with 429 and Retry-After.
+        # Counted in Redis when RATELIMIT_STORAGE_URI is set or BROKER_URL is redis://, else per process. Our choice, common practice.
+        RATE_LIMIT_SIGN_IN_PER_ADDRESS="30 per minute",  # sign-in posts from one client address
+        RATE_LIMIT_SIGN_IN_PER_ACCOUNT="10 per minute",  # sign-in posts naming one account
+        RATE_LIMIT_SUBMISSIONS_PER_TOKEN="120 per minute",  # proposal submissions (single or bulk) with one API token
         TRUSTED_PROXIES=0,  # reverse proxies in front of the app whose X-Forwarded-For/-Proto are believed (client address)
         WEBHOOK_ALLOW_PRIVATE=False,  # allow webhook addresses on loopback, private, link-local... networks (tests, closed sites)
         PUBLIC_URL=None,  # the service's public address (https://host); makes the published schemas' $id absolute
@@ -99,6 +104,7 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
     for target in _BLUEPRINTS:
         module, _, attribute = target.partition(":")
         app.register_blueprint(getattr(import_module(module), attribute))
+    protection.init_app(app)  # CSRF on every form, rate limits (after the blueprints: it names their views)
     app.register_error_handler(HTTPException, _api_error)
     unavailable.register(app)  # 503 with Retry-After while the store cannot be reached
     return app
