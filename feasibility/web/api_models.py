@@ -220,7 +220,7 @@ class StoredVersion(Answer):
     version: str
     content_hash: str
     uploaded_at: Time | None
-    uploaded_by: str | None
+    uploaded_by: int | None = Field(description="The id of the user who uploaded it (none for the demo and command-line loads).")
     semester: str | None = None
     name: str | None = None
 

@@ -23,7 +23,6 @@ doubles the wait with each one, which a request-rate limiter does not express.
 
 from __future__ import annotations
 
-import math
 import time
 from typing import Any
 
@@ -71,16 +70,18 @@ def init_app(app: Flask) -> None:
 
     app.config.setdefault("RATELIMIT_STORAGE_URI", _storage_uri(app.config))
     app.config.setdefault("RATELIMIT_KEY_PREFIX", str(app.config.get("QUEUE_PREFIX") or "feasibility"))
-    app.config.setdefault("RATELIMIT_HEADERS_ENABLED", True)  # Retry-After (and X-RateLimit-*) on the limited endpoints
+    app.config.setdefault("RATELIMIT_HEADERS_ENABLED", False)  # Retry-After is set on the 429 alone (by _too_many)
     limiter = Limiter(get_remote_address, app=app, default_limits=[])
     for endpoint, limits in _LIMITED.items():
-        view = app.view_functions.get(endpoint)
-        if view is None:
+        if endpoint not in app.view_functions:
             continue
         for setting, key in limits:
-            # Registered by the view's name; the limiter checks it before the view runs (the view itself is not wrapped).
-            limiter.limit(_setting(setting), key_func=_KEYS[key], methods=["POST"], scope=f"{setting}:{key}",
-                          error_message=_message(key, setting))(view)
+            # The view is wrapped as by the limiter's decorator (checked as it is called, after the CSRF check); a shared
+            # limit, so the endpoints under one setting (single and bulk submissions) draw on one count.
+            limit = limiter.shared_limit(
+                _setting(setting), scope=f"{setting}:{key}", key_func=_KEYS[key], methods=["POST"], error_message=_WHAT[key]
+            )
+            app.view_functions[endpoint] = limit(app.view_functions[endpoint])  # type: ignore[assignment]
     app.extensions[_LIMITER_EXTENSION] = limiter
     app.register_error_handler(RateLimitExceeded, _too_many)
 
@@ -111,10 +112,6 @@ def _setting(name: str) -> Any:
     return lambda: str(current_app.config[name])
 
 
-def _message(key: str, setting: str) -> Any:
-    return lambda: f"Too many {_WHAT[key]}: the limit is {current_app.config[setting]}."
-
-
 def _token_key() -> str:
     scheme, _, credentials = request.headers.get("Authorization", "").partition(" ")
     if scheme.lower() == "bearer" and credentials.strip():
@@ -131,11 +128,11 @@ _KEYS = {"address": lambda: "address:" + get_remote_address(), "account": _accou
 
 def _too_many(error: RateLimitExceeded) -> Any:
     """429 with Retry-After and the limit named: JSON under /api/, a page elsewhere."""
-    current = limiter_of(current_app).current_limit  # type: ignore[arg-type]
-    wait = max(1, math.ceil(current.reset_at - time.time())) if current is not None else 60
+    current = limiter_of(current_app).current_limit
+    wait = max(1, int(current.reset_at - time.time())) if current is not None else 60
     headers = {"Retry-After": str(wait)}
     limit = str(error.limit.limit)
-    message = f"{error.description} Try again in {wait} second{'s' if wait != 1 else ''}."
+    message = f"Too many {error.description}: the limit is {limit}. Try again in {wait} second{'s' if wait != 1 else ''}."
     if request.path.startswith("/api/"):
         return {"error": "too many requests", "message": message, "limit": limit, "retry_after_s": wait}, 429, headers
     error.description = message
