@@ -86,3 +86,32 @@ def test_an_answer_that_drifts_from_the_document_is_reported(app: Flask, client:
     problems = contract_problems(app, drifted)
     assert len(problems) == 5, problems
     assert "teams" in problems[0] and "'role' is a required property" in problems[1] and "201" in problems[2]
+
+
+def test_documented_query_limits_are_the_ones_enforced(client: FlaskClient, make_token) -> None:  # type: ignore[no-untyped-def]
+    """Each bounded number parameter of a GET (and ``wait``): its documented bounds pass, one step past them is a 400."""
+    from tests.web.support import proposal_doc  # an invented proposal
+
+    headers = {"Authorization": f"Bearer {make_token('admin')}"}
+    assert client.post("/api/v1/proposals", json=proposal_doc("OA-2"), headers=headers).status_code == 202
+    document = client.get("/api/v1/openapi.json").get_json()
+    probed = []
+    for path, item in document["paths"].items():
+        for method, operation in item.items():
+            if method not in ("get", "post"):
+                continue
+            for parameter in operation.get("parameters", []):
+                schema = parameter["schema"]
+                if parameter["in"] != "query" or schema.get("type") not in ("integer", "number") or "maximum" not in schema:
+                    continue
+                url = path.replace("{proposal_id}", "OA-2")
+                for value, refused in ((schema["minimum"], False), (schema["maximum"], False), (schema["minimum"] - 1, True),
+                                       (schema["maximum"] + 1, True)):
+                    if method == "post" and not refused:
+                        continue  # a valid wait would wait; only the refusals are probed
+                    body = proposal_doc("OA-2") if method == "post" else None
+                    status = client.open(f"{url}?{parameter['name']}={value}", method=method.upper(), json=body, headers=headers).status_code
+                    assert (status == 400) is refused, (method, url, parameter["name"], value, status)
+                probed.append((url, parameter["name"]))
+    assert {("/api/v1/proposals", "page"), ("/api/v1/proposals", "per_page"), ("/api/v1/proposals", "wait"),
+            ("/api/v1/proposals/OA-2/runs", "per_page"), ("/api/v1/changes", "limit")} <= set(probed)
