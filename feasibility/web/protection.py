@@ -70,6 +70,10 @@ def init_app(app: Flask) -> None:
 
     app.config.setdefault("RATELIMIT_STORAGE_URI", _storage_uri(app.config))
     app.config.setdefault("RATELIMIT_KEY_PREFIX", str(app.config.get("QUEUE_PREFIX") or "feasibility"))
+    # Redis away (it is also the broker, whose absence submissions survive): count in this process's memory meanwhile.
+    app.config.setdefault("RATELIMIT_IN_MEMORY_FALLBACK_ENABLED", True)
+    app.config.setdefault("RATELIMIT_SWALLOW_ERRORS", True)
+    app.config.setdefault("RATELIMIT_STORAGE_OPTIONS", {"socket_connect_timeout": 1, "socket_timeout": 1})
     app.config.setdefault("RATELIMIT_HEADERS_ENABLED", False)  # Retry-After is set on the 429 alone (by _too_many)
     limiter = Limiter(get_remote_address, app=app, default_limits=[])
     for endpoint, limits in _LIMITED.items():

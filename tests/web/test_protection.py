@@ -148,3 +148,19 @@ def test_each_limit_is_a_setting_with_a_default(app: Flask, setting: str) -> Non
     from limits import parse_many
 
     assert parse_many(app.config[setting])  # a limit the limiter reads ("N per minute")
+
+
+def test_limits_hold_in_memory_while_redis_is_away(app: Flask, make_token: Any) -> None:
+    """A limiter store that cannot be reached (nothing listens on port 1) neither fails a submission nor lifts the limit."""
+    from feasibility.web import create_app
+
+    other = create_app({"TESTING": True, "SECRET_KEY": "test", "DATABASE_URL": app.config["DATABASE_URL"], "BROKER_URL": None,
+                        "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False, "RATELIMIT_STORAGE_URI": "redis://127.0.0.1:1/0",
+                        "RATE_LIMIT_SUBMISSIONS_PER_TOKEN": "2 per minute"})
+    try:
+        auth = {"Authorization": f"Bearer {make_token('proposer', 'pablo')}"}
+        client = other.test_client()
+        assert [client.post("/api/v1/proposals", json={}, headers=auth).status_code for _ in range(3)] == [422, 422, 429]
+    finally:
+        other.extensions["feasibility.dispatch"].shutdown()
+        other.extensions["feasibility.db"]["engine"].dispose()
