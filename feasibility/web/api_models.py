@@ -120,6 +120,8 @@ class Run(Answer):
 
 
 class Submitted(Answer):
+    """The run of a submission: new (202) or the existing one for identical content (200)."""
+
     created: bool = Field(description="Whether this submission made a new check run.")
     run: Run
 
@@ -144,6 +146,8 @@ class BulkItem(Answer):
 
 
 class BulkAnswer(Answer):
+    """How many items were accepted and rejected, and each item's own answer."""
+
     accepted: int
     rejected: int
     items: list[BulkItem]
@@ -168,6 +172,8 @@ class ProposalSummary(Answer):
 
 
 class ProposalPage(Answer):
+    """A page of proposals, newest first."""
+
     items: list[ProposalSummary]
     page: int
     per_page: int
@@ -192,6 +198,8 @@ class ProposalView(Answer):
 
 
 class RunPage(Answer):
+    """A page of a proposal's check runs, newest first (results left out)."""
+
     proposal_id: str
     page: int
     per_page: int
@@ -199,11 +207,15 @@ class RunPage(Answer):
 
 
 class Me(Answer):
+    """The token's user: name and role."""
+
     name: str
     role: str
 
 
 class Health(Answer):
+    """The store answers."""
+
     status: Literal["ok"]
     mode: str = Field(description="Which dispatcher computes runs.")
 
@@ -216,6 +228,8 @@ class OpenApiDocument(RootModel[dict[str, Any]]):
 
 
 class StoredVersion(Answer):
+    """A stored version of an instrument schedule (with its semester) or an observatory description (with its name)."""
+
     id: int
     version: str
     content_hash: str
@@ -244,6 +258,8 @@ class GainedLost(Answer):
 
 
 class ScheduleChanges(Answer):
+    """The night-by-night differences between two versions of a semester's schedule."""
+
     semester: str
     previous_version: str | None
     current_version: str
@@ -256,6 +272,8 @@ class ScheduleChanges(Answer):
 
 
 class RecheckPlan(Answer):
+    """The re-checks queued, by reason and by instrument."""
+
     queued: int
     already_queued: int
     by_reason: dict[str, int]
@@ -265,6 +283,8 @@ class RecheckPlan(Answer):
 
 
 class UploadAnswer(Answer):
+    """The version stored (or found the same as the one in force), its changes and the re-checks queued."""
+
     kind: str
     created: bool
     version: StoredVersion
@@ -274,6 +294,8 @@ class UploadAnswer(Answer):
 
 
 class ScheduleView(Answer):
+    """The schedule in force, the version before it, what changed and the document."""
+
     version: StoredVersion
     previous: StoredVersion | None
     changes: ScheduleChanges
@@ -281,6 +303,8 @@ class ScheduleView(Answer):
 
 
 class ScheduleVersions(Answer):
+    """Every stored version of a semester's schedule, newest first."""
+
     semester: str
     items: list[StoredVersion]
 
@@ -291,12 +315,16 @@ class CompareQuery(Query):
 
 
 class ScheduleComparison(Answer):
+    """The changes between two stored versions."""
+
     from_: StoredVersion | None = Field(alias="from")
     to: StoredVersion
     changes: ScheduleChanges
 
 
 class ObservatoryView(Answer):
+    """The observatory description in force."""
+
     version: StoredVersion
     document: dict[str, Any]
 
@@ -331,6 +359,8 @@ class Change(Answer):
 
 
 class ChangeList(Answer):
+    """Verdict and key-figure changes, oldest first."""
+
     since: Time | None
     count: int
     items: list[Change]
@@ -342,6 +372,8 @@ class WebhookBody(Query):
 
 
 class WebhookAnswer(Answer):
+    """The user and their webhook address now."""
+
     name: str
     role: str
     webhook_url: str | None
@@ -361,15 +393,21 @@ class TokenInfo(Answer):
 
 
 class RevokedToken(TokenInfo):
+    """The token, with when it was revoked and whether that happened now."""
+
     revoked_now: bool
 
 
 class TokenList(Answer):
+    """The user's tokens, live and revoked."""
+
     name: str
     items: list[TokenInfo]
 
 
 class RevokedTokens(Answer):
+    """The tokens revoked now."""
+
     name: str
     revoked: list[TokenInfo]
 
@@ -379,6 +417,8 @@ class PasswordBody(Query):
 
 
 class PasswordAnswer(Answer):
+    """Changed; how many dashboard sessions were ended."""
+
     name: str
     role: str
     sessions_ended: int
@@ -394,6 +434,8 @@ class SchemaEntry(Answer):
 
 
 class SchemaIndex(Answer):
+    """Each document's current schema version and URL."""
+
     schemas: list[SchemaEntry]
 
 
@@ -474,6 +516,8 @@ class BulkAssignmentBody(Query):
 
 
 class BulkAssignment(Answer):
+    """The proposals assigned."""
+
     reviewer: str
     assigned: list[str]
     count: int
@@ -494,6 +538,8 @@ class DecisionBody(Query):
 
 
 class SimulationView(Answer):
+    """A simulation: its state, settings and, when done, its result."""
+
     id: int
     semester: str
     state: RunState
@@ -508,5 +554,7 @@ class SimulationView(Answer):
 
 
 class SimulationList(Answer):
+    """The semester's simulations, newest first, without results."""
+
     semester: str
     items: list[SimulationView]
