@@ -12,7 +12,7 @@ registry and every JSON answer it gets matches the document.
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 from flask import Flask
@@ -47,7 +47,6 @@ class Operation:
     public: bool = False  # no token needed
     media_type: str = "application/json"
     rate_limited: bool = False  # may answer 429 with Retry-After (feasibility.web.protection)
-    tags: tuple[str, ...] = field(default=())
 
 
 _READ = (401, 404)
