@@ -42,7 +42,7 @@ TOKEN_API_BLUEPRINTS = ("api", "admin_api", "access_api", "schemas_api", "review
 _CSRF_EXTENSION = "feasibility.csrf"
 _LIMITER_EXTENSION = "feasibility.limiter"
 
-#: Endpoint -> (setting, what is counted, how a request is keyed), applied in init_app.
+#: Endpoint -> its limits: (the setting holding the limit, what a request is counted by), applied in init_app.
 _LIMITED: dict[str, list[tuple[str, str]]] = {
     "auth.sign_in": [("RATE_LIMIT_SIGN_IN_PER_ADDRESS", "address"), ("RATE_LIMIT_SIGN_IN_PER_ACCOUNT", "account")],
     "api.submit_one": [("RATE_LIMIT_SUBMISSIONS_PER_TOKEN", "token")],
@@ -91,7 +91,7 @@ def init_app(app: Flask) -> None:
 
 
 def limiter_of(app: Flask) -> Limiter:
-    """The app's rate limiter (tests reset it; the CLI may report it)."""
+    """The app's rate limiter (its current limit gives the 429's Retry-After)."""
     limiter: Limiter = app.extensions[_LIMITER_EXTENSION]
     return limiter
 
