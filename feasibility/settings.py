@@ -47,7 +47,7 @@ class Settings(BaseModel):
     broker_url: str | None = Field(None, description="The Celery broker (redis://...); BROKER_URL. None: check runs are computed by threads in the web process.")
     home: Path | None = Field(None, description="The instance folder (embedded SQLite store, session-signing key); FEASIBILITY_HOME. None: ./instance.")
     cache_dir: Path | None = Field(None, description="Sky grids and semester offers cached on disk; FEASIBILITY_CACHE_DIR. None: ~/.cache/feasibility.")
-    migrations: Path | None = Field(None, description="The Alembic migrations folder; FEASIBILITY_MIGRATIONS. None: migrations/ beside the package.")
+    migrations: Path | None = Field(None, description="The Alembic migrations folder; FEASIBILITY_MIGRATIONS. None: the one installed with the package.")
     queue_prefix: str = Field("feasibility", description="Prefix of the Celery queues and broker keys, so tests and deployments can share one Redis.")
     # Computing check runs.
     embedded_workers: int = Field(2, ge=0, description="Threads computing check runs in the web process when there is no broker.")
@@ -82,6 +82,14 @@ class Settings(BaseModel):
     trusted_proxies: int = Field(0, ge=0, description="Reverse proxies in front of the app whose X-Forwarded-For/-Proto are believed.")
     public_url: str | None = Field(None, description="The service's public address (https://host); makes the published schemas' $id absolute.")
     review_notes_to_proposers: bool = Field(False, description="Proposers see the technical reviewers' notes beside the verdict that stands.")
+    # Rate limits (web/protection.py; Flask-Limiter's notation, several joined by ";"), answered with 429 and Retry-After.
+    # Counted in Redis when ratelimit_storage_uri is set or the broker is redis://, else per process. Our choice, common practice.
+    rate_limit_sign_in_per_address: str = Field("30 per minute", description="Sign-in posts from one client address.")
+    rate_limit_sign_in_per_account: str = Field("10 per minute", description="Sign-in posts naming one account.")
+    rate_limit_submissions_per_token: str = Field("120 per minute", description="Proposal submissions (single or bulk) with one API token.")
+    ratelimit_storage_uri: str | None = Field(
+        None, description="Where rate-limit counts are kept (redis://..., memory://). None: the broker when it is Redis, else memory."
+    )
     # Logging.
     log_level: str | None = Field(
         None, description="The level of the service's log lines (DEBUG, INFO, WARNING...). None: INFO in servers and workers, WARNING in commands."

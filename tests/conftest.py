@@ -31,6 +31,7 @@ from click.testing import CliRunner, Result
 from flask import Flask
 from flask.testing import FlaskClient
 
+from tests.api_contract import contract_problems, record_answers
 from tests.services import scratch_postgres_database, service_unavailable
 
 #: The stores every API and page test runs on.
@@ -191,11 +192,15 @@ def app(database_url: str) -> Iterator[Flask]:
             "SWEEP_INTERVAL_S": 0,
         }
     )
+    answers = record_answers(app)
     yield app
+    problems = contract_problems(app, answers)
     dispatcher = app.extensions["feasibility.dispatch"]
     if hasattr(dispatcher, "shutdown"):
         dispatcher.shutdown()
     app.extensions["feasibility.db"]["engine"].dispose()
+    # Every JSON answer the test got from /api/ must match the published OpenAPI document (tests/api_contract.py).
+    assert not problems, "answers that differ from /api/v1/openapi.json:\n" + "\n".join(problems)
 
 
 @pytest.fixture

@@ -26,7 +26,7 @@ from feasibility.service.dispatch import EXTENSION
 from feasibility.service.runtime import Runtime, unbind
 from feasibility.service.startup import start_runtime
 from feasibility.settings import Settings, load_settings
-from feasibility.web import unavailable
+from feasibility.web import protection, unavailable
 
 __all__ = ["RUNTIME", "WebApp", "create_app", "flask_config"]
 
@@ -119,6 +119,7 @@ def create_app(test_config: dict[str, Any] | None = None, *, settings: Settings 
     for target in _BLUEPRINTS:
         module, _, attribute = target.partition(":")
         app.register_blueprint(getattr(import_module(module), attribute))
+    protection.init_app(app)  # CSRF on every form, rate limits (after the blueprints: it names their views)
     app.register_error_handler(HTTPException, _api_error)
     unavailable.register(app)  # 503 with Retry-After while the store cannot be reached
     return app

@@ -21,7 +21,7 @@ from feasibility.store.db import session_scope
 from feasibility.store.models import ApiToken, User
 from feasibility.web.auth import password_problem, require, revoke_tokens, set_password
 
-__all__ = ["OPENAPI_PATHS", "bp", "token_json"]
+__all__ = ["bp", "token_json"]
 
 bp = Blueprint("access_api", __name__, url_prefix="/api/v1")
 
@@ -103,60 +103,3 @@ def _user(session: Session, name: str) -> User:
     if user is None:
         abort(404, description=f"no user named {name!r}")
     return user
-
-
-_NAME = {"name": "name", "in": "path", "required": True, "schema": {"type": "string"}}
-_TOKEN_ID = {"name": "token_id", "in": "path", "required": True, "schema": {"type": "integer"}}
-_ADMIN_ONLY = {"401": {"$ref": "#/components/responses/Error"}, "403": {"$ref": "#/components/responses/Error"}}
-_TOKEN_SCHEMA = {"$ref": "#/components/schemas/TokenInfo"}
-
-#: The OpenAPI path items of this blueprint (merged into /api/v1/openapi.json).
-OPENAPI_PATHS: dict[str, Any] = {
-    "/api/v1/users/{name}/tokens": {"get": {
-        "summary": "A user's API tokens, live and revoked (admin)",
-        "parameters": [_NAME],
-        "responses": {"200": {"description": "The tokens (never the secret itself).", "content": {"application/json": {"schema": {
-            "type": "object", "properties": {"name": {"type": "string"}, "items": {"type": "array", "items": _TOKEN_SCHEMA}}}}}},
-            "404": {"$ref": "#/components/responses/Error"}, **_ADMIN_ONLY},
-    }},
-    "/api/v1/tokens/{token_id}/revoke": {"post": {
-        "summary": "Revoke one API token (admin)",
-        "description": "The token stops working at once. Revoking a revoked token changes nothing (`revoked_now`: false).",
-        "parameters": [_TOKEN_ID],
-        "responses": {"200": {"description": "The token, with `revoked_at` and `revoked_now`.", "content": {"application/json": {
-            "schema": {"allOf": [_TOKEN_SCHEMA, {"type": "object", "properties": {"revoked_now": {"type": "boolean"}}}]}}}},
-            "404": {"$ref": "#/components/responses/Error"}, **_ADMIN_ONLY},
-    }},
-    "/api/v1/users/{name}/tokens/revoke": {"post": {
-        "summary": "Revoke every live API token of a user (admin)",
-        "parameters": [_NAME],
-        "responses": {"200": {"description": "The tokens revoked now.", "content": {"application/json": {"schema": {
-            "type": "object", "properties": {"name": {"type": "string"}, "revoked": {"type": "array", "items": _TOKEN_SCHEMA}}}}}},
-            "404": {"$ref": "#/components/responses/Error"}, **_ADMIN_ONLY},
-    }},
-    "/api/v1/users/{name}/password": {"put": {
-        "summary": "Set a user's password (admin)",
-        "description": "Ends every dashboard session of the user, including copies of their cookies. At least 8 characters.",
-        "parameters": [_NAME],
-        "requestBody": {"required": True, "content": {"application/json": {"schema": {
-            "type": "object", "required": ["password"], "properties": {"password": {"type": "string", "minLength": 8, "maxLength": 1000}}}}}},
-        "responses": {"200": {"description": "Changed; how many sessions were ended.", "content": {"application/json": {"schema": {
-            "type": "object", "properties": {"name": {"type": "string"}, "role": {"type": "string"}, "sessions_ended": {"type": "integer"}}}}}},
-            "404": {"$ref": "#/components/responses/Error"}, "422": {"$ref": "#/components/responses/Invalid"}, **_ADMIN_ONLY},
-    }},
-}
-
-#: Schemas this blueprint's paths refer to.
-OPENAPI_SCHEMAS: dict[str, Any] = {
-    "TokenInfo": {
-        "type": "object",
-        "required": ["id", "user"],
-        "properties": {
-            "id": {"type": "integer"},
-            "user": {"type": "string"},
-            "label": {"type": ["string", "null"]},
-            "created_at": {"type": ["string", "null"], "format": "date-time"},
-            "revoked_at": {"type": ["string", "null"], "format": "date-time"},
-        },
-    },
-}

@@ -36,7 +36,7 @@ from feasibility.store.models import ProposalRecord, ScheduleVersion, User, Verd
 from feasibility.web.auth import current_user, require
 from feasibility.web.bodies import read_request_data, request_body
 
-__all__ = ["OPENAPI_PATHS", "bp", "change_json", "changes_since"]
+__all__ = ["bp", "change_json", "changes_since"]
 
 bp = Blueprint("admin_api", __name__, url_prefix="/api/v1")
 
@@ -278,48 +278,3 @@ def _user(session: Session, name: str) -> User:
     if user is None:
         abort(404, description=f"no user named {name!r}")
     return user
-
-
-def _path_item(summary: str, description: str = "", *, parameters: list[dict[str, Any]] | None = None,
-               body: bool = False, responses: dict[str, str] | None = None) -> dict[str, Any]:
-    item: dict[str, Any] = {"summary": summary, "responses": {code: {"description": text} for code, text in (responses or {"200": "OK"}).items()}}
-    if description:
-        item["description"] = description
-    if parameters:
-        item["parameters"] = parameters
-    if body:
-        item["requestBody"] = {"required": True, "content": {"application/json": {"schema": {"type": "object"}}, "application/yaml": {"schema": {"type": "object"}}}}
-    return item
-
-
-_SEMESTER = {"name": "semester", "in": "path", "required": True, "schema": {"type": "string"}}
-_UPLOAD_ANSWERS = {"201": "Stored as a new version; re-checks queued (`rechecks`: queued, by_reason, by_instrument).",
-                   "200": "Same content as the version in force: nothing stored, nothing queued.",
-                   "401": "No valid token.", "403": "Not an admin.", "422": "Invalid document: each field path and its problem."}
-
-#: The OpenAPI path items of this blueprint (merged into /api/v1/openapi.json).
-OPENAPI_PATHS: dict[str, Any] = {
-    "/api/v1/schedules": {"post": _path_item("Upload an instrument schedule (admin)", "Validated against the observatory in force; "
-                                              "re-checks only proposals whose instruments' nights changed.", body=True, responses=_UPLOAD_ANSWERS)},
-    "/api/v1/schedules/{semester}": {"get": _path_item("The schedule in force and its changes from the version before", parameters=[_SEMESTER],
-                                                       responses={"200": "Version, previous version, changes, document.", "404": "No schedule."})},
-    "/api/v1/schedules/{semester}/versions": {"get": _path_item("Every stored version of a semester's schedule", parameters=[_SEMESTER])},
-    "/api/v1/schedules/{semester}/changes": {"get": _path_item("Night-by-night changes between two versions", parameters=[
-        _SEMESTER, {"name": "from", "in": "query", "schema": {"type": "integer"}}, {"name": "to", "in": "query", "schema": {"type": "integer"}}])},
-    "/api/v1/observatory": {
-        "post": _path_item("Upload an observatory description (admin)", "Re-checks every proposal.", body=True, responses=_UPLOAD_ANSWERS),
-        "get": _path_item("The observatory description in force"),
-    },
-    "/api/v1/rechecks": {"post": _path_item("Queue the re-checks that changes, a new engine version or old results call for (admin)",
-                                            "Body: {changed_since, stale_days}. Idempotent: a second call queues nothing.")},
-    "/api/v1/changes": {"get": _path_item("Verdict and key-figure changes since a time, for proposals the caller may read", parameters=[
-        {"name": "since", "in": "query", "schema": {"type": "string", "format": "date-time"}},
-        {"name": "limit", "in": "query", "schema": {"type": "integer", "minimum": 1, "maximum": MAX_CHANGES, "default": 100}}])},
-    "/api/v1/users/{name}/webhook": {
-        "put": _path_item("Set a user's webhook address and secret (admin)", "Notices carry the hex HMAC-SHA256 of the body in "
-                          "X-Feasibility-Signature. The address must be http(s) and, unless the WEBHOOK_ALLOW_PRIVATE setting allows "
-                          "it, lead to a public internet address (not loopback, private, link-local, multicast or reserved): "
-                          "else 422 naming the field `url`.", parameters=[{"name": "name", "in": "path", "required": True, "schema": {"type": "string"}}]),
-        "delete": _path_item("Stop a user's notices (admin)", parameters=[{"name": "name", "in": "path", "required": True, "schema": {"type": "string"}}]),
-    },
-}

@@ -57,7 +57,7 @@ def openapi() -> dict[str, Any]:
     """The OpenAPI 3 description of this API."""
     from feasibility.web.openapi import openapi_document
 
-    return openapi_document()
+    return openapi_document(current_app)
 
 
 @bp.get("/health")

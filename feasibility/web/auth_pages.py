@@ -1,4 +1,4 @@
-"""Signing in to the dashboard's pages: server-side sessions, the sign-in throttle, roles and CSRF protection.
+"""Signing in to the dashboard's pages: server-side sessions, the sign-in throttle, roles.
 
 Passwords are checked with :mod:`werkzeug.security` (salted scrypt hashes made by
 ``generate_password_hash``). The session cookie is Flask's signed cookie, but it
@@ -9,19 +9,12 @@ session everywhere, including copies of the cookie. The cookie is HTTP-only,
 sign-ins are throttled per account and per client address
 (:mod:`feasibility.web.sign_in_limits`).
 
-CSRF: a synchroniser token (OWASP CSRF Prevention Cheat Sheet) derived from the
-session id with an HMAC keyed by the app's secret key, so it lives and dies with
-the session and the cookie needs nothing else. Every form posts it back in
-``csrf_token`` (or a script sends it in the ``X-CSRF-Token`` header) and the
-pages' blueprints reject an unsafe request whose token is missing or different,
-compared in constant time. The JSON API (bearer tokens, no cookies) is not affected.
+CSRF: every form is checked app-wide by :mod:`feasibility.web.protection`.
 """
 
 from __future__ import annotations
 
 import functools
-import hashlib
-import hmac
 import secrets
 from collections.abc import Callable
 from datetime import timedelta
@@ -39,9 +32,7 @@ from feasibility.web import page_sessions, sign_in_limits
 
 __all__ = [
     "bp",
-    "check_csrf",
     "SESSION_ID_KEY",
-    "csrf_token",
     "current_user",
     "db",
     "init_app",
@@ -52,7 +43,6 @@ __all__ = [
 
 bp = Blueprint("auth", __name__, template_folder="templates")
 
-_UNSAFE_METHODS = {"POST", "PUT", "PATCH", "DELETE"}
 SESSION_ID_KEY = page_sessions.COOKIE_KEY
 
 View = TypeVar("View", bound=Callable[..., Any])
@@ -60,7 +50,6 @@ View = TypeVar("View", bound=Callable[..., Any])
 
 def init_app(app: Flask) -> None:
     """Register the sign-in pages and the templates' helpers on ``app`` (the cookie's attributes are set by ``create_app``)."""
-    app.jinja_env.globals["csrf_token"] = csrf_token
     app.jinja_env.globals["current_user"] = current_user
     app.jinja_env.globals["may"] = lambda action: access.may(current_user(), action)  # the access table, for the templates
     app.teardown_appcontext(_close_db)
@@ -137,30 +126,6 @@ def role_refusal(user: User, action: str) -> str:
             f"To use it, ask {who} to give you that role or an account that has it.")
 
 
-def csrf_token() -> str:
-    """This session's CSRF token: an HMAC of the session id (a fresh anonymous id is made on first use)."""
-    raw_id = session.get(SESSION_ID_KEY)
-    if not isinstance(raw_id, str) or len(raw_id) < 32:
-        raw_id = session[SESSION_ID_KEY] = page_sessions.new_session_id()
-    return _csrf_for(raw_id)
-
-
-def check_csrf() -> None:
-    """Reject an unsafe request whose CSRF token is missing or wrong (400). Register with ``before_request``."""
-    if request.method not in _UNSAFE_METHODS or current_app.config.get("DASHBOARD_CSRF_DISABLED"):
-        return
-    raw_id = session.get(SESSION_ID_KEY)
-    sent = request.form.get("csrf_token") or request.headers.get("X-CSRF-Token") or ""
-    if not isinstance(raw_id, str) or len(raw_id) < 32 or not hmac.compare_digest(sent.encode(), _csrf_for(raw_id).encode()):
-        abort(400, description="The form had expired or did not come from this site. Reload the page and try again.")
-
-
-def _csrf_for(raw_id: str) -> str:
-    key = str(current_app.config["SECRET_KEY"]).encode()
-    return hmac.new(key, b"csrf:" + raw_id.encode(), hashlib.sha256).hexdigest()
-
-
-bp.before_request(check_csrf)
 bp.after_request(security_headers)
 
 

@@ -23,7 +23,7 @@ from feasibility.web.api import _may_read, _readable_proposal
 from feasibility.web.auth import current_user, require
 from feasibility.web.bodies import problem_status
 
-__all__ = ["OPENAPI_PATHS", "bp", "review_json"]
+__all__ = ["bp", "review_json"]
 
 bp = Blueprint("review_api", __name__, url_prefix="/api/v1")
 
@@ -146,57 +146,3 @@ def _actor_and_record(session: Session, proposal_id: str) -> tuple[User, Proposa
 def _iso(moment: Any) -> str:
     text = moment.isoformat()
     return text if moment.tzinfo is not None else text + "+00:00"
-
-
-_ID = {"name": "proposal_id", "in": "path", "required": True, "schema": {"type": "string"}}
-_ERRORS = {
-    "401": {"$ref": "#/components/responses/Error"},
-    "403": {"$ref": "#/components/responses/Error"},
-    "404": {"$ref": "#/components/responses/Error"},
-    "422": {"$ref": "#/components/responses/Invalid"},
-}
-_REVIEW = {"description": "The review: engine and reviewer verdicts side by side, decision, notes and trail.",
-           "content": {"application/json": {"schema": {"type": "object"}}}}
-
-
-def _body(properties: dict[str, Any], required: list[str]) -> dict[str, Any]:
-    return {"required": True, "content": {"application/json": {"schema": {"type": "object", "required": required, "properties": properties}}}}
-
-
-#: The OpenAPI path items of this blueprint (merged into /api/v1/openapi.json).
-OPENAPI_PATHS: dict[str, Any] = {
-    "/api/v1/proposals/{proposal_id}/review": {"get": {
-        "summary": "A proposal's technical review",
-        "description": "Reviewers and admins: everything. Proposers and portals: the verdict that stands, and the notes when the observatory shows them.",
-        "parameters": [_ID],
-        "responses": {"200": _REVIEW, "401": _ERRORS["401"], "404": _ERRORS["404"]},
-    }},
-    "/api/v1/proposals/{proposal_id}/review/assignment": {"post": {
-        "summary": "Assign a proposal's technical reviewer (admin)",
-        "parameters": [_ID],
-        "requestBody": _body({"reviewer": {"type": "string"}}, ["reviewer"]),
-        "responses": {"200": _REVIEW, **_ERRORS},
-    }},
-    "/api/v1/reviews/assignments": {"post": {
-        "summary": "Assign one reviewer to every proposal of a semester that uses an instrument (admin)",
-        "requestBody": _body({"semester": {"type": "string"}, "instrument": {"type": "string"}, "reviewer": {"type": "string"}},
-                             ["semester", "instrument", "reviewer"]),
-        "responses": {"200": {"description": "The proposals assigned.", "content": {"application/json": {"schema": {"type": "object"}}}},
-                      "401": _ERRORS["401"], "403": _ERRORS["403"], "422": _ERRORS["422"]},
-    }},
-    "/api/v1/proposals/{proposal_id}/review/notes": {"post": {
-        "summary": "Add a reviewer's note to a proposal or one of its observation requests (reviewers, admins)",
-        "parameters": [_ID],
-        "requestBody": _body({"text": {"type": "string", "maxLength": review.NOTE_MAX_CHARS}, "request": {"type": "string"}}, ["text"]),
-        "responses": {"201": _REVIEW, **_ERRORS},
-    }},
-    "/api/v1/proposals/{proposal_id}/review/decision": {"post": {
-        "summary": "Confirm or override the engine's verdict (reviewers, admins)",
-        "description": "An override needs a verdict and a reason. It survives re-checks; a re-check that changes the engine's verdict marks it `to_review_again`.",
-        "parameters": [_ID],
-        "requestBody": _body({"decision": {"type": "string", "enum": ["confirm", "override"]},
-                              "verdict": {"type": "string", "enum": list(review.LEVELS)},
-                              "reason": {"type": "string", "maxLength": review.NOTE_MAX_CHARS}}, ["decision"]),
-        "responses": {"201": _REVIEW, **_ERRORS},
-    }},
-}

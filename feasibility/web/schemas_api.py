@@ -13,7 +13,7 @@ from flask import Blueprint, Response, abort, current_app
 
 from feasibility.documents.schemas import DOCUMENTS, SCHEMA_PREFIX, SCHEMA_VERSIONS, schema_path, schema_text
 
-__all__ = ["OPENAPI_PATHS", "bp"]
+__all__ = ["bp"]
 
 bp = Blueprint("schemas_api", __name__, url_prefix=SCHEMA_PREFIX)
 
@@ -33,31 +33,3 @@ def schema(document: str, version: int) -> Response:
     response.headers["Cache-Control"] = "public, max-age=3600"
     response.headers["Access-Control-Allow-Origin"] = "*"  # public documents: editors in a browser may fetch them
     return response
-
-
-OPENAPI_PATHS: dict[str, Any] = {
-    SCHEMA_PREFIX: {
-        "get": {
-            "summary": "The published document schemas",
-            "description": "Each document (proposal, observatory, schedule) with its schema version and URL. No sign-in needed.",
-            "security": [],
-            "responses": {"200": {"description": "The list."}},
-        }
-    },
-    SCHEMA_PREFIX + "/{document}-{version}.json": {
-        "get": {
-            "summary": "A document's JSON Schema (Draft 2020-12)",
-            "description": "Read-only and public. `$id` is this path, or the absolute URL when the service has a PUBLIC_URL. "
-            "The version goes up only when a document the schema accepted would be refused.",
-            "security": [],
-            "parameters": [
-                {"name": "document", "in": "path", "required": True, "schema": {"type": "string", "enum": sorted(DOCUMENTS)}},
-                {"name": "version", "in": "path", "required": True, "schema": {"type": "integer", "minimum": 1}},
-            ],
-            "responses": {
-                "200": {"description": "The schema.", "content": {"application/schema+json": {"schema": {"type": "object"}}}},
-                "404": {"$ref": "#/components/responses/Error"},
-            },
-        }
-    },
-}

@@ -41,11 +41,15 @@ def _cookie_contents(app: Flask, client: FlaskClient) -> dict[str, Any]:
 
 def test_cookie_carries_only_a_random_session_id(app: Flask, client: FlaskClient, people: dict[str, int]) -> None:
     client.get("/sign-in")
-    before = _cookie_contents(app, client)["sid"]
+    # Before sign-in the cookie holds only the forms' CSRF token (web/protection.py); plant a session id in it.
+    assert set(_cookie_contents(app, client)) == {"csrf_token"}
+    planted = "p" * 43
+    with client.session_transaction() as cookie_session:
+        cookie_session["sid"] = planted
     sign_in(client, "rita")
     contents = _cookie_contents(app, client)
-    assert set(contents) == {"sid"}  # no user id, no role, no password digest in the cookie
-    assert contents["sid"] != before  # a new id at sign-in: a planted id is never signed in (session fixation)
+    assert set(contents) == {"sid"}  # no user id, no role, no password digest in the cookie (and the old CSRF token gone)
+    assert contents["sid"] != planted  # a new id at sign-in: a planted id is never signed in (session fixation)
     assert len(contents["sid"]) >= 43  # 32 random bytes in URL-safe base64
     with app.app_context(), session_scope() as session:
         rows = session.scalars(select(PageSession)).all()

@@ -21,7 +21,7 @@ from feasibility.store import standing
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
 from feasibility.web import auth_pages, plots
-from feasibility.web.auth_pages import check_csrf, current_user, db, security_headers, sign_in_required
+from feasibility.web.auth_pages import current_user, db, security_headers, sign_in_required
 from feasibility.web.dashboard import bp
 from feasibility.web.dashboard.history import run_history
 from feasibility.web.dashboard.overview import semester_overview
@@ -43,7 +43,6 @@ CSV_COLUMNS = [
     "hours_needed_over_requested",
 ]
 
-bp.before_request(check_csrf)
 bp.after_request(security_headers)
 
 
