@@ -2,7 +2,9 @@
 
 Only layout lives here; what goes on the pages comes from :mod:`feasibility.web.dashboard.packet`.
 Each proposal starts on a new page; plots are the dashboard's own figures
-(:func:`feasibility.web.plots.figures_kept`), rasterised at print resolution.
+(:func:`feasibility.web.plots.figures_kept`), rasterised at print resolution by
+:mod:`feasibility.web.dashboard.packet_plots` and placed pixel for pixel (no
+resampling: the PDF scales the image, which is cheaper and sharper).
 """
 
 from __future__ import annotations
@@ -13,7 +15,6 @@ from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
-from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
@@ -25,7 +26,6 @@ __all__ = ["PacketWriter"]
 A4 = (8.27, 11.69)
 _MARGIN_X = 0.08
 _MARGIN_Y = 0.06
-_PLOT_DPI = 120
 
 
 class PacketWriter:
@@ -65,19 +65,14 @@ class PacketWriter:
     def gap(self, lines: float = 0.6) -> None:
         self._y -= lines * 9.5 * 1.4 / 72 / A4[1]
 
-    def figure(self, figure: Figure) -> None:
-        """A plot, as wide as the text, rasterised (it was drawn for the screen)."""
-        with plots.DRAWING_LOCK:
-            canvas = FigureCanvasAgg(figure)
-            figure.set_dpi(_PLOT_DPI)
-            canvas.draw()
-            pixels = np.asarray(canvas.buffer_rgba())
+    def image(self, pixels: np.ndarray) -> None:
+        """A plot already rasterised (RGB rows of pixels), as wide as the text."""
         width = 1 - 2 * _MARGIN_X
         height = width * A4[0] / A4[1] * pixels.shape[0] / pixels.shape[1]
         self._room(height + 0.01)
         assert self._fig is not None
         axes = self._fig.add_axes((_MARGIN_X, self._y - height, width, height))
-        axes.imshow(pixels, interpolation="antialiased")
+        axes.imshow(pixels, interpolation="none")  # embedded as drawn, not resampled to the page's resolution
         axes.set_axis_off()
         self._y -= height + 0.015
 
