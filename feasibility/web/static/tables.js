@@ -20,14 +20,14 @@
     var scrolls = box.scrollWidth > box.clientWidth + 1;
     cueFor(box).hidden = !scrolls;
     box.setAttribute("data-scrolls", scrolls ? "yes" : "no");
+    // A box that is not already a keyboard stop becomes one while it scrolls (a named region), and stops being one after.
     if (scrolls && !box.hasAttribute("tabindex")) {
+      box.setAttribute("data-made-reachable", "yes");
       box.setAttribute("tabindex", "0");
-      box.setAttribute("data-tabindex-added", "yes");
-      if (!box.hasAttribute("role")) { box.setAttribute("role", "region"); }
-      if (!box.hasAttribute("aria-label") && !box.hasAttribute("aria-labelledby")) { box.setAttribute("aria-label", "Table, scrolls sideways"); }
-    } else if (!scrolls && box.getAttribute("data-tabindex-added") === "yes") {
-      box.removeAttribute("tabindex");
-      box.removeAttribute("data-tabindex-added");
+      box.setAttribute("role", "region");
+      box.setAttribute("aria-label", "Table, scrolls sideways");
+    } else if (!scrolls && box.getAttribute("data-made-reachable") === "yes") {
+      ["data-made-reachable", "tabindex", "role", "aria-label"].forEach(function (name) { box.removeAttribute(name); });
     }
   }
 
