@@ -21,7 +21,7 @@ import yaml
 
 from web.support import demo_doc
 
-from .conftest import screenshot, sign_in
+from .conftest import MARKUP_DOC, screenshot, sign_in
 
 pytestmark = pytest.mark.browser
 
@@ -92,6 +92,15 @@ def test_list_keeps_priority_columns_at_tablet_width(browser: Any, live_server: 
         outline = page.evaluate("() => { const s = getComputedStyle(document.activeElement); return [s.outlineStyle, parseFloat(s.outlineWidth)]; }")
         assert outline[0] == "solid" and outline[1] >= 2, outline
         screenshot(page, f"20-list-{width}px")
+        # A folded column can still sort the list, from the form: most hours requested first.
+        page.get_by_label("Sort by").select_option("hours")
+        page.get_by_label("Order").select_option("desc")
+        page.get_by_role("button", name="Apply filters").click()
+        page.wait_for_url("**sort=hours**")
+        documents = [*(demo_doc(number) for number in ("001", "002", "003", "005")), MARKUP_DOC]
+        hours = {doc["id"]: sum(float(r["hours_requested"]) for r in doc["requests"]) for doc in documents}  # the documents' own hours
+        shown = rows.locator("th").all_inner_texts()
+        assert shown == sorted(hours, key=lambda pid: -hours[pid]), (shown, hours)
         for path in ("/overview", "/proposals/SQ-2027A-005", "/proposals/SQ-2027A-003", "/semesters/2027A/schedule", "/semesters/2027A/calendar"):
             page.goto(path)
             _no_hidden_overflow(page)
