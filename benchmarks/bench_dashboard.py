@@ -107,8 +107,8 @@ def _packet_figures() -> None:
         with app.test_request_context(), Session(app.extensions["feasibility.db"]["engine"]) as session:
             return packet.semester_pdf(session, session.get_one(User, user_id), query)
 
-    def every_plot_anew(run_id, item, kinds):  # type: ignore[no-untyped-def]
-        return packet_plots.request_images(None, item, kinds)  # no run id: nothing kept, nothing reused
+    def every_plot_anew(run, item, kinds):  # type: ignore[no-untyped-def]
+        return packet_plots.request_images(None, item, kinds)  # no run: nothing kept, nothing reused
 
     real = packet.PacketWriter, packet.request_images
     packet.PacketWriter, packet.request_images = _MatplotlibPages, every_plot_anew  # type: ignore[assignment,misc]

@@ -41,22 +41,23 @@ def _images(pdf: bytes) -> int:
     return len(re.findall(rb"/Subtype\s*/Image\b", pdf))
 
 
-def _first_request(app: Flask, run_id: int) -> dict[str, Any]:
+def _first_request(app: Flask, run_id: int) -> tuple[dict[str, Any], packet_plots.RunKey | None]:
+    """The run's first request as the pages read it, and the key its plots are kept under."""
     from feasibility.store.db import session_scope
 
     with app.app_context(), session_scope() as session:
         run = session.scalars(select(CheckRun).where(CheckRun.id == run_id)).one()
-        return _requests_of(run)[0]
+        return _requests_of(run)[0], packet_plots.run_key(session, run)
 
 
 def test_plots_are_drawn_once_and_reused_unchanged(app: Flask, semester: dict[str, Any]) -> None:
-    run_id = semester["runs"]["SQ-2027A-001"]
-    item = _first_request(app, run_id)
+    item, key = _first_request(app, semester["runs"]["SQ-2027A-001"])
+    assert key is not None and key[1] == semester["runs"]["SQ-2027A-001"] and "***" not in key[0].split("@")[-1]
     kinds = [kind for kind in PLOT_KINDS if item["plots"][kind]]
     assert len(kinds) == 3  # night, semester and S/N: the engine stored every series for 001
-    first = packet_plots.request_images(run_id, item, PLOT_KINDS)
+    first = packet_plots.request_images(key, item, PLOT_KINDS)
     assert packet_plots.stats() == {"drawn": 3, "reused": 0, "kept": 3}
-    again = packet_plots.request_images(run_id, item, PLOT_KINDS)
+    again = packet_plots.request_images(key, item, PLOT_KINDS)
     assert packet_plots.stats() == {"drawn": 3, "reused": 3, "kept": 3}
     for kept, fresh, kind in zip(again, first, kinds, strict=True):
         assert kept.dtype == np.uint8 and kept.shape == fresh.shape and kept.shape[2] == 3
@@ -73,13 +74,15 @@ def test_plots_are_drawn_once_and_reused_unchanged(app: Flask, semester: dict[st
 
 
 def test_store_drops_the_least_recently_used(app: Flask, semester: dict[str, Any], monkeypatch: pytest.MonkeyPatch) -> None:
-    item = _first_request(app, semester["runs"]["SQ-2027A-001"])
-    packet_plots.request_images(1, item, PLOT_KINDS)
+    item, _ = _first_request(app, semester["runs"]["SQ-2027A-001"])
+    packet_plots.request_images(("store", 1, "t"), item, PLOT_KINDS)
     one_run = packet_plots.stats()["kept"]
     monkeypatch.setattr(packet_plots, "MAX_BYTES", sum(len(v) for v in packet_plots._images.values()) + 1)
-    packet_plots.request_images(2, item, PLOT_KINDS)  # a second run's images push the first run's out
+    packet_plots.request_images(("store", 2, "t"), item, PLOT_KINDS)  # a second run's images push the first run's out
     assert packet_plots.stats()["kept"] <= one_run
-    assert all(key[0] == 2 for key in packet_plots._images)
+    assert all(key[0][1] == 2 for key in packet_plots._images)
+    packet_plots.request_images(("another store", 2, "t"), item, PLOT_KINDS)  # the same run id in another store: drawn, not reused
+    assert packet_plots.stats()["reused"] == 0
 
 
 def test_packet_again_reuses_every_plot(client: FlaskClient, semester: dict[str, Any]) -> None:

@@ -4,8 +4,8 @@ Drawing a request's three plots costs about a second of matplotlib (text layout,
 ticks, the constrained layout), which made a six-proposal packet take some twenty
 seconds, drawn anew on every download. A finished run's stored result does not
 change, so its plots are drawn once, rasterised and kept here as PNG, keyed by the
-run's id, the request's label and the plot's kind; later packets and reports reuse
-them. The store is bounded (least recently used images go first) and lives in the
+run (its store, id and finish time: see :func:`run_key`), the request's label and the
+plot's kind; later packets and reports reuse them. The store is bounded (least recently used images go first) and lives in the
 process, so a new engine or plot version after a restart starts afresh.
 """
 
@@ -21,18 +21,24 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from PIL import Image
+from sqlalchemy import Connection
+from sqlalchemy.orm import Session
 
+from feasibility.store.models import CheckRun
 from feasibility.web import plots
 
-__all__ = ["PLOT_DPI", "clear", "rasterise", "request_images", "stats"]
+__all__ = ["PLOT_DPI", "RunKey", "clear", "rasterise", "request_images", "run_key", "stats"]
 
 #: Print resolution of the plots in the packet (dots per inch of the plot's own size, 7.2 x 3.4 in).
 PLOT_DPI = 120
 #: Most bytes of PNG kept (about 1500 plots, some 500 requests).
 MAX_BYTES = 128 * 1024 * 1024
 
+#: Which finished run: the store's address (passwords hidden), the run's id and its finish time.
+RunKey = tuple[str, int, str]
+
 _lock = threading.Lock()
-_images: OrderedDict[tuple[int, str, str], bytes] = OrderedDict()
+_images: OrderedDict[tuple[RunKey, str, str], bytes] = OrderedDict()
 _counts = {"drawn": 0, "reused": 0}
 
 
@@ -45,16 +51,29 @@ def rasterise(figure: Figure, dpi: int = PLOT_DPI) -> np.ndarray:
         return np.array(canvas.buffer_rgba())[..., :3]
 
 
-def request_images(run_id: int | None, item: Mapping[str, Any], kinds: Mapping[str, tuple[str, Callable[..., Any]]]) -> list[np.ndarray]:
+def run_key(session: Session, run: CheckRun | None) -> RunKey | None:
+    """What identifies a finished run's plots, or None (not finished: draw every time).
+
+    The store's address is part of it because one process may serve several stores (tests, benchmarks),
+    whose run ids start alike; the finish time tells a store recreated at the same address apart.
+    """
+    if run is None or run.finished_at is None or run.state != "done":
+        return None
+    bind = session.get_bind()
+    address = (bind.engine if isinstance(bind, Connection) else bind).url.render_as_string(hide_password=True)
+    return (address, run.id, run.finished_at.isoformat())
+
+
+def request_images(run: RunKey | None, item: Mapping[str, Any], kinds: Mapping[str, tuple[str, Callable[..., Any]]]) -> list[np.ndarray]:
     """The plots of one request (``item`` as the pages read it: label, series, figures, target, plots) as RGB arrays, in ``kinds`` order.
 
-    Plots of a run with an id are kept and reused; without one (nothing stored) they are drawn every time.
+    Plots of a finished run (``run`` from :func:`run_key`) are kept and reused; without one they are drawn every time.
     """
     images: list[np.ndarray] = []
     for kind, (_title, draw) in kinds.items():
         if not item["plots"].get(kind):
             continue
-        key = (run_id, str(item["label"]), kind) if run_id is not None else None
+        key = (run, str(item["label"]), kind) if run is not None else None
         kept = _get(key)
         if kept is not None:
             images.append(kept)
@@ -81,7 +100,7 @@ def stats() -> dict[str, int]:
         return {**_counts, "kept": len(_images)}
 
 
-def _get(key: tuple[int, str, str] | None) -> np.ndarray | None:
+def _get(key: tuple[RunKey, str, str] | None) -> np.ndarray | None:
     if key is None:
         return None
     with _lock:
@@ -94,7 +113,7 @@ def _get(key: tuple[int, str, str] | None) -> np.ndarray | None:
         return np.asarray(image.convert("RGB"))
 
 
-def _put(key: tuple[int, str, str] | None, pixels: np.ndarray) -> None:
+def _put(key: tuple[RunKey, str, str] | None, pixels: np.ndarray) -> None:
     with _lock:
         _counts["drawn"] += 1
     if key is None:
