@@ -20,11 +20,11 @@ from feasibility.service import access, review
 from feasibility.store import queries as store_queries
 from feasibility.store.models import CheckRun, ProposalRecord, User
 from feasibility.store.standing import standing_run
-from feasibility.web import plots
 from feasibility.web.auth_pages import current_user, db, sign_in_required
 from feasibility.web.dashboard import bp
 from feasibility.web.dashboard.formatting import LEVEL_WORDS, figure_name, figure_value, hours, when
 from feasibility.web.dashboard.packet_pdf import PacketWriter, table_lines
+from feasibility.web.dashboard.packet_plots import request_images, run_key
 from feasibility.web.dashboard.queries import ListQuery, iter_rows
 from feasibility.web.dashboard.review_pages import page_review
 from feasibility.web.dashboard.views import PLOT_KINDS, _requests_of, _visible_record
@@ -145,12 +145,8 @@ def _write_proposal(writer: PacketWriter, session: Session, record: ProposalReco
                 writer.line("; ".join(f"{figure_name(k)} {figure_value(v)}" for k, v in numbers.items()), size=8, indent=0.03, colour="#333333")
             if finding.get("suggestion"):
                 writer.line(f"Suggestion: {finding['suggestion']}", size=8.5, indent=0.03)
-        with plots.figures_kept() as figures:
-            for kind, (_title, draw) in PLOT_KINDS.items():
-                if item["plots"][kind]:
-                    draw(item["series"], item["figures"], item["target"])
-        for figure in figures:
-            writer.figure(figure)
+        for pixels in request_images(run_key(session, run), item, PLOT_KINDS):
+            writer.image(pixels)
 
 
 def _user() -> User:
