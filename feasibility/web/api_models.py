@@ -240,7 +240,7 @@ class StoredVersion(Answer):
 
 
 class ScheduledEntry(Answer):
-    instrument: str
+    instrument: str | None = Field(description="The instrument mounted; none on an engineering or shutdown night.")
     status: str
     note: str | None
 

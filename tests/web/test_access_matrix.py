@@ -192,7 +192,7 @@ def world(app: Flask, engine: GatedEngine) -> dict[str, Any]:
     from feasibility.store.models import ApiToken, ProposalRecord, User, VerdictChange
     from feasibility.web.auth import create_token, revoke_tokens
 
-    app.config["DASHBOARD_CSRF_DISABLED"] = True
+    app.config["WTF_CSRF_ENABLED"] = False
     for name, role in PEOPLE.items():
         add_user(app, name, role)
     documents = {pid: proposal_doc(pid, title=f"Invented survey {pid}", hours=1.0) for pid in PROPOSALS}
