@@ -22,6 +22,7 @@ with the reason, so it is never queued again by itself.
 
 from __future__ import annotations
 
+import json
 import logging
 import time
 import traceback
@@ -36,6 +37,7 @@ from sqlalchemy.orm import make_transient_to_detached
 from feasibility.documents import InstrumentSchedule, Observatory, Proposal, parse_document
 from feasibility.results import ProposalResult
 from feasibility.service.current import cached_document
+from feasibility.service.details import compact_result
 from feasibility.service.faults import is_lasting, is_passing
 from feasibility.service.leases import Heartbeat, aware, holder_is_gone, lease_length, owner_id, working_on
 from feasibility.store.db import JSONText, session_scope
@@ -186,14 +188,20 @@ def _parse_inputs(
 
 
 def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
-    """Store the result, its request outcomes and findings and any verdict change: one transaction, few statements."""
+    """Store the compact result, its request outcomes and findings and any verdict change: one transaction, few statements.
+
+    The result is stored compact (:func:`feasibility.service.details.compact_result`: no plot
+    series, no method texts; pages recompute them on demand). A finding's figures live in the
+    result only: its row holds what the lists filter and sort on (check, level) and its words.
+    """
     from feasibility.service.changes import record_changes
 
-    stored = result.model_dump(mode="json")
+    stored = compact_result(result)
     finished = utcnow()
     with session_scope() as session:
-        # pydantic writes the ~100 KB of JSON itself, several times faster than json.dumps of ``stored``.
-        finish = _finish_statement(run_id, attempt, finished, state="done", verdict=result.verdict.value, result=JSONText(result.model_dump_json()), error=None)
+        finish = _finish_statement(
+            run_id, attempt, finished, state="done", verdict=result.verdict.value, result=JSONText(json.dumps(stored, separators=(",", ":"), ensure_ascii=False)), error=None
+        )
         row = session.execute(finish.returning(_RUNS.c.proposal_version_id, _RUNS.c.reason)).first()
         if row is None:
             return "superseded"
@@ -210,8 +218,8 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
                     "level": f["level"],
                     "message": f["message"],
                     "suggestion": f.get("suggestion"),
-                    "method": f.get("method"),
-                    "figures": f.get("figures") or {},
+                    "method": None,
+                    "figures": {},
                 }
                 for outcome_id, request in zip(outcome_ids, stored["requests"])
                 for f in request["findings"]
@@ -219,7 +227,7 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
             if findings:
                 # executemany of one fixed statement: psycopg pipelines it, and its text (so its parsing) is reused.
                 session.execute(insert(_FINDINGS), findings)
-        # The run as just written, handed to the session as loaded rather than read back (its result is ~100 KB).
+        # The run as just written, handed to the session as loaded rather than read back.
         run = CheckRun(
             id=run_id,
             proposal_version_id=row.proposal_version_id,

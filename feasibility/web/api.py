@@ -17,6 +17,7 @@ from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, Problem
+from feasibility.service.details import full_result
 from feasibility.service.dispatch import enqueue
 from feasibility.service.faults import is_lasting, is_passing
 from feasibility.service.submissions import NotAllowed, Submission, submit
@@ -225,7 +226,7 @@ def proposal_runs(proposal_id: str) -> dict[str, Any]:
 
 
 def run_json(session: Session, run: CheckRun, *, with_result: bool = False) -> dict[str, Any]:
-    """A check run as the API shows it; ``with_result`` adds the stored result (findings, figures, series)."""
+    """A check run as the API shows it; ``with_result`` adds its result (findings, figures, and the series recomputed when stored compact)."""
     version = run.proposal_version
     body: dict[str, Any] = {
         "id": run.id,
@@ -245,7 +246,7 @@ def run_json(session: Session, run: CheckRun, *, with_result: bool = False) -> d
         "links": {"self": f"/api/v1/runs/{run.id}", "proposal": f"/api/v1/proposals/{version.proposal.proposal_id}"},
     }
     if with_result and run.state == "done":
-        body["result"] = run.result
+        body["result"] = full_result(session, run)
     return body
 
 

@@ -101,12 +101,13 @@ def test_older_results_without_series_still_render(app: Flask, client: FlaskClie
     from feasibility.store.db import session_scope
     from feasibility.store.models import CheckRun
 
-    run_id = store_checked(app, proposal_doc("OLD-1"), None)
-    # The real engine always stores series; a result from an engine version before plots had none.
-    # That stored result is made here by taking the series out of a real one.
+    document = proposal_doc("OLD-1")
+    run_id = store_checked(app, document, None)
+    # The real engine always gives series; a result stored whole (the older form) by an engine version
+    # before plots had none. That stored result is made here by taking the series out of a real one.
     with app.app_context(), session_scope() as session:
         run = session.get_one(CheckRun, run_id)
-        result = dict(run.result)
+        result = engine_result(document).model_dump(mode="json")
         result["requests"] = [{k: v for k, v in r.items() if k != "series"} for r in result["requests"]]
         run.result = result
     sign_in(client, "rita")
