@@ -51,7 +51,7 @@ DETAILS_CACHE_SIZE = 32
 _LEFT_OUT: Any = {"requests": {"__all__": {"series": True, "findings": {"__all__": {"method"}}}}}
 
 _Details = list[tuple[dict[str, Any], list[str | None]]]
-_cache: OrderedDict[tuple[str, int], _Details | None] = OrderedDict()
+_cache: OrderedDict[tuple[str, int, str], _Details | None] = OrderedDict()
 _cache_lock = threading.Lock()
 
 
@@ -102,7 +102,8 @@ def details_missing_reason(run: CheckRun) -> str | None:
 
 def _details(session: Session, run: CheckRun) -> _Details | None:
     """Series and methods of each request of compact ``run``: from the cache, or the engine run again."""
-    key = (str(session.get_bind().engine.url), run.id)  # run ids repeat across stores (tests use several)
+    # Run ids repeat across stores (and across a test store emptied between tests): the finish time tells them apart.
+    key = (str(session.get_bind().engine.url), run.id, str(run.finished_at))
     with _cache_lock:
         if key in _cache:
             _cache.move_to_end(key)
@@ -123,7 +124,8 @@ def _recompute(session: Session, run: CheckRun) -> _Details | None:
 
     stored = run.result or {}
     try:
-        proposal = parse_document(Proposal, session.scalar(select(ProposalVersion.document).where(ProposalVersion.id == run.proposal_version_id)), "proposal")
+        document = session.scalars(select(ProposalVersion.document).where(ProposalVersion.id == run.proposal_version_id)).one()
+        proposal = parse_document(Proposal, document, "proposal")
         observatory = _document(session, Observatory, ObservatoryVersion, run.observatory_version_id)
         schedule = _document(session, InstrumentSchedule, ScheduleVersion, run.schedule_version_id) if run.schedule_version_id else None
         again = engine.check_proposal(proposal, observatory, schedule)
@@ -138,7 +140,7 @@ def _recompute(session: Session, run: CheckRun) -> _Details | None:
 
 def _document(session: Session, kind: Any, model: Any, row_id: int) -> Any:
     """A stored observatory or schedule version as a document, parsed once per content hash and process."""
-    content_hash = session.scalar(select(model.content_hash).where(model.id == row_id))
+    content_hash = session.scalars(select(model.content_hash).where(model.id == row_id)).one()
     return cached_document(kind, content_hash, lambda: session.scalar(select(model.document).where(model.id == row_id)))
 
 
