@@ -177,10 +177,12 @@ class CeleryDispatcher:
                 messages = int(sum(pipe.execute()))
                 if at_least is None or messages >= at_least:
                     return messages
+                # LRANGE and HVALS are not among the commands the transport prefixes with its key prefix: add it here.
+                prefix = getattr(client, "global_keyprefix", None) or ""
                 pipe = client.pipeline()
                 for key in lists:
-                    pipe.lrange(key, 0, -1)
-                pipe.hvals(channel.unacked_key)
+                    pipe.lrange(prefix + key, 0, -1)
+                pipe.hvals(prefix + channel.unacked_key)
                 return sum(_runs_in(raw) for found in pipe.execute() for raw in found)
 
     def broker_kept_data(self) -> bool:
