@@ -30,10 +30,10 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-import feasibility
 from feasibility.documents import InstrumentSchedule, Observatory, Proposal, parse_document
 from feasibility.results import ProposalResult
 from feasibility.service.current import cached_document
+from feasibility.service.engine_version import engine_version
 from feasibility.store.models import CheckRun, ObservatoryVersion, ProposalVersion, ScheduleVersion
 
 __all__ = ["FORM_KEY", "COMPACT", "DETAILS_CACHE_SIZE", "compact_result", "details_missing_reason", "full_result", "is_compact"]
@@ -95,8 +95,8 @@ def details_missing_reason(run: CheckRun) -> str | None:
     """Why a compact run's details cannot be recomputed here (None when they can, or the result is not compact)."""
     if not is_compact(run.result):
         return None
-    if run.engine_version != feasibility.__version__:
-        return f"its series are recomputed by the engine version that made it ({run.engine_version}); this service runs {feasibility.__version__}"
+    if run.engine_version != engine_version():
+        return f"its series are recomputed by the engine version that made it ({run.engine_version}); this service runs {engine_version()}"
     return None
 
 
