@@ -108,7 +108,11 @@ def _details(session: Session, run: CheckRun) -> _Details | None:
         if key in _cache:
             _cache.move_to_end(key)
             return _cache[key]
-    details = _recompute(session, run)
+    try:
+        details = _recompute(session, run)
+    except Exception:  # the stored result still stands; only its plots are missing, this time (not cached: it may pass)
+        log.exception("check run %s: its details could not be recomputed", run.id)
+        return None
     with _cache_lock:
         _cache[key] = details
         while len(_cache) > DETAILS_CACHE_SIZE:
@@ -123,15 +127,11 @@ def _recompute(session: Session, run: CheckRun) -> _Details | None:
     from feasibility import engine
 
     stored = run.result or {}
-    try:
-        document = session.scalars(select(ProposalVersion.document).where(ProposalVersion.id == run.proposal_version_id)).one()
-        proposal = parse_document(Proposal, document, "proposal")
-        observatory = _document(session, Observatory, ObservatoryVersion, run.observatory_version_id)
-        schedule = _document(session, InstrumentSchedule, ScheduleVersion, run.schedule_version_id) if run.schedule_version_id else None
-        again = engine.check_proposal(proposal, observatory, schedule)
-    except Exception:  # the stored result still stands; only its plots are missing
-        log.exception("check run %s: its details could not be recomputed", run.id)
-        return None
+    document = session.scalars(select(ProposalVersion.document).where(ProposalVersion.id == run.proposal_version_id)).one()
+    proposal = parse_document(Proposal, document, "proposal")
+    observatory = _document(session, Observatory, ObservatoryVersion, run.observatory_version_id)
+    schedule = _document(session, InstrumentSchedule, ScheduleVersion, run.schedule_version_id) if run.schedule_version_id else None
+    again = engine.check_proposal(proposal, observatory, schedule)
     if not _same(stored, again):
         log.warning("check run %s: the engine now gives another result for its inputs; its details are not shown", run.id)
         return None
