@@ -209,3 +209,23 @@ def test_compact_result_of_another_engine_version_says_why_it_has_no_plot(app: F
     assert html.count("No plot: its series are recomputed by the engine version that made it (0.0.1)") == 3
     assert '<th scope="row">visibility</th>' in html  # the stored findings are still shown
     assert client.get(f"/proposals/OTHER-ENGINE-1/runs/{run_id}/requests/0/night.svg").status_code == 404
+
+
+def test_details_are_not_shown_when_the_engine_now_answers_otherwise(app: Flask, client: FlaskClient, people: dict[str, int], engine: Any) -> None:
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import CheckRun
+
+    run_id = store_checked(app, proposal_doc("CHANGED-1"), None)
+    with app.app_context(), session_scope() as session:
+        run = session.get_one(CheckRun, run_id)
+        result = dict(run.result)
+        request = dict(result["requests"][0])
+        findings = [dict(f) for f in request["findings"]]
+        findings[0]["level"] = "infeasible" if findings[0]["level"] != "infeasible" else "feasible"  # not what the engine gives
+        request["findings"] = findings
+        result["requests"] = [request]
+        run.result = result
+    sign_in(client, "rita")
+    html = client.get("/proposals/CHANGED-1").get_data(as_text=True)
+    assert '<th scope="row">visibility</th>' in html  # the stored findings are shown
+    assert "Method:" not in html and html.count("No plot") == 3  # no series from a recomputation that disagrees
