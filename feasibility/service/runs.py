@@ -30,7 +30,7 @@ from datetime import datetime, timedelta
 from typing import Any
 
 from flask import current_app, has_app_context
-from sqlalchemy import Table, Update, and_, insert, or_, select, text, update
+from sqlalchemy import Table, Update, and_, exists, insert, or_, select, text, update
 from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import make_transient_to_detached
 
@@ -202,7 +202,7 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
         finish = _finish_statement(
             run_id, attempt, finished, state="done", verdict=result.verdict.value, result=JSONText(json.dumps(stored, separators=(",", ":"), ensure_ascii=False)), error=None
         )
-        row = session.execute(finish.returning(_RUNS.c.proposal_version_id, _RUNS.c.reason)).first()
+        row = session.execute(finish.returning(_RUNS.c.proposal_version_id, _RUNS.c.reason, _finished_before(run_id).label("finished_before"))).first()
         if row is None:
             return "superseded"
         if result.requests:
@@ -227,6 +227,8 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
             if findings:
                 # executemany of one fixed statement: psycopg pipelines it, and its text (so its parsing) is reused.
                 session.execute(insert(_FINDINGS), findings)
+        if not row.finished_before:
+            return "done"  # the proposal's first finished run: no change to record (record_changes would find no run before it)
         # The run as just written, handed to the session as loaded rather than read back.
         run = CheckRun(
             id=run_id,
@@ -243,6 +245,18 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
         session.add(run)
         record_changes(session, run)
     return "done"
+
+
+def _finished_before(run_id: int) -> Any:
+    """Whether another run of the same proposal (any version) is done: a scalar subquery for the finishing UPDATE's RETURNING.
+
+    Only then can :func:`~feasibility.service.changes.record_changes` find a run to compare
+    with; a proposal's first run (most runs of a submission burst) skips its queries.
+    """
+    other = _RUNS.alias("other")
+    mine = select(ProposalVersion.proposal_ref).where(ProposalVersion.id == _RUNS.c.proposal_version_id).correlate(_RUNS).scalar_subquery()
+    versions = select(ProposalVersion.id).where(ProposalVersion.proposal_ref == mine).correlate(_RUNS)
+    return exists().where(other.c.proposal_version_id.in_(versions), other.c.state == "done", other.c.id != run_id).correlate(_RUNS)
 
 
 def _outcome_row(run_id: int, request: dict[str, Any]) -> dict[str, Any]:
