@@ -1,22 +1,23 @@
-"""The Celery tasks: compute one check run; relay unsent runs and take back lapsed ones. Both take ids only."""
+"""The Celery tasks: compute one check run, or a batch of them; relay unsent runs and take back lapsed ones. All take ids only."""
 
 from __future__ import annotations
 
 import logging
 import random
+from collections import Counter
 from typing import Any
 
 from celery import shared_task
 from celery.signals import worker_init, worker_process_init
 from sqlalchemy.exc import SQLAlchemyError
 
-from feasibility.service.dispatch import CHECK_TASK
+from feasibility.service.dispatch import CHECK_BATCH_TASK, CHECK_TASK, RUNS_HEADER
 from feasibility.service.relay import relay
 from feasibility.service.runs import LeaseHeld, execute_run
 from feasibility.service.runtime import current_runtime
 from feasibility.store.db import dispose_pools_after_fork
 
-__all__ = ["RELAY_TASK", "check_run", "sweep_runs"]
+__all__ = ["RELAY_TASK", "check_run", "check_runs", "sweep_runs"]
 
 log = logging.getLogger(__name__)
 
@@ -47,8 +48,44 @@ def check_run(task: Any, run_id: int) -> str:
         if tries >= _DB_RETRIES:
             log.error("check run %s: database faults on %d tries; left for the relay", run_id, tries)
             return "given up"
-        delay = min(2.0**min(tries, 10), _DB_BACKOFF_MAX_S) * random.uniform(0.5, 1.0)
-        raise task.retry(exc=exc, countdown=delay) from exc
+        raise task.retry(exc=exc, countdown=_backoff(tries)) from exc
+
+
+@shared_task(bind=True, name=CHECK_BATCH_TASK, max_retries=None)
+def check_runs(task: Any, run_ids: list[int]) -> dict[str, int]:
+    """Compute and store several check runs one after the other, each as :func:`check_run` does: its own claim, lease and store.
+
+    The message is acknowledged once the batch is through (late ack): a worker that dies
+    mid-batch leaves it to be delivered again, and the runs already done are then skipped.
+    Runs whose lease a live worker holds are sent again as one message when the last of
+    those leases would lapse; a passing database fault sends the rest of the batch again
+    with back-off (the run that met it gave its claim back first). Returns how many runs
+    ended each way.
+    """
+    ended: Counter[str] = Counter()
+    held: list[int] = []
+    wait = 0.0
+    for position, run_id in enumerate(run_ids):
+        try:
+            ended[execute_run(run_id)] += 1
+        except LeaseHeld as lease:
+            held.append(run_id)
+            wait = max(wait, lease.retry_in)
+        except SQLAlchemyError as exc:  # the store is away: the runs left would meet it too
+            rest = held + list(run_ids[position:])
+            tries = task.request.retries
+            if tries >= _DB_RETRIES:
+                log.error("check runs %s: database faults on %d tries; left for the relay", rest, tries)
+                return dict(ended)
+            raise task.retry(args=[rest], exc=exc, countdown=_backoff(tries), headers={RUNS_HEADER: len(rest)}) from exc
+    if held:
+        raise task.retry(args=[held], countdown=wait, headers={RUNS_HEADER: len(held)})
+    return dict(ended)
+
+
+def _backoff(tries: int) -> float:
+    """Seconds before the next try after a database fault: doubling from 1 s up to a cap, jittered."""
+    return min(2.0 ** min(tries, 10), _DB_BACKOFF_MAX_S) * random.uniform(0.5, 1.0)
 
 
 @shared_task(name=RELAY_TASK, acks_late=False)

@@ -10,9 +10,9 @@ embedded pool's timer — does three things in each pass:
 2. Decides which queued runs' messages may be lost. A message is lost when the
    broker lost its data (a Redis restart without persistence): the relay keeps a
    marker key in the broker and, when it is gone, every queued run is sent again.
-   Short of that, the broker is asked how many messages it holds (waiting and
-   delivered-but-unacknowledged); when, on two passes in a row, it holds fewer
-   than the runs that should have one (queued and sent, or running), some
+   Short of that, the broker is asked for how many runs it holds messages (waiting and
+   delivered-but-unacknowledged; a batch message carries several runs); when, on two
+   passes in a row, that is fewer than the runs that should have one (queued and sent, or running), some
    messages are gone, and every run sent longer than a grace (twice the relay
    interval) ago is sent again. (One pass could catch a message between the
    broker's list and its unacknowledged set.) As a last backstop a run sent
@@ -41,7 +41,7 @@ from feasibility.settings import Settings
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, utcnow
 
-__all__ = ["RelayPass", "mark_sent", "relay", "take_back_lapsed"]
+__all__ = ["RelayPass", "mark_sent", "mark_unsent", "relay", "take_back_lapsed"]
 
 log = logging.getLogger(__name__)
 
@@ -119,6 +119,18 @@ def mark_sent(run_ids: Iterable[int]) -> None:
         )
 
 
+def mark_unsent(run_ids: Iterable[int]) -> None:
+    """Put queued runs back in the outbox: the message they were marked sent with never reached the broker."""
+    ids = list(run_ids)
+    if not ids:
+        return
+    with session_scope() as session:
+        session.execute(
+            update(CheckRun).where(CheckRun.id.in_(ids), CheckRun.state == "queued").values(dispatched_at=None)
+            .execution_options(synchronize_session=False)
+        )
+
+
 def _resend_horizon(session: Session, dispatcher: Any, settings: Settings, now: datetime) -> tuple[datetime, bool]:
     """Runs sent before the returned moment are sent again; True when messages were found lost."""
     interval = float(settings.sweep_interval_s or 5)
@@ -127,10 +139,13 @@ def _resend_horizon(session: Session, dispatcher: Any, settings: Settings, now: 
     if hasattr(dispatcher, "broker_kept_data") and not dispatcher.broker_kept_data():
         log.warning("relay: the broker lost its messages (restarted without persistence); sending every queued run again")
         return now, True
-    held = dispatcher.message_count() if hasattr(dispatcher, "message_count") else None
-    if held is not None:
+    if hasattr(dispatcher, "message_count"):
         with_message = or_(CheckRun.state == "running", and_(CheckRun.state == "queued", CheckRun.dispatched_at.is_not(None)))
         waiting = session.scalar(select(func.count()).select_from(CheckRun).where(with_message)) or 0
+        held = dispatcher.message_count(at_least=waiting)  # runs the messages carry (a batch message carries several)
+    else:
+        held = None
+    if held is not None:
         short = held < waiting
         if dispatcher.noted_twice("message-deficit", short, seconds=3 * interval + 5):
             log.warning("relay: the broker holds %d messages for %d runs; sending the waiting runs again", held, waiting)

@@ -22,13 +22,14 @@ with the reason, so it is never queued again by itself.
 
 from __future__ import annotations
 
+import json
 import logging
 import time
 import traceback
 from datetime import datetime, timedelta
 from typing import Any
 
-from sqlalchemy import Table, Update, and_, insert, or_, select, text, update
+from sqlalchemy import Table, Update, and_, exists, insert, or_, select, text, update
 from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import make_transient_to_detached
 
@@ -36,6 +37,7 @@ from feasibility.documents import InstrumentSchedule, Observatory, Proposal, par
 from feasibility.logs import run_context
 from feasibility.results import ProposalResult
 from feasibility.service.current import cached_document
+from feasibility.service.details import compact_result
 from feasibility.service.faults import is_lasting, is_passing
 from feasibility.service.leases import Heartbeat, aware, holder_is_gone, lease_length, owner_id, working_on
 from feasibility.service.runtime import current_settings
@@ -187,15 +189,21 @@ def _parse_inputs(
 
 
 def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
-    """Store the result, its request outcomes and findings and any verdict change: one transaction, few statements."""
+    """Store the compact result, its request outcomes and findings and any verdict change: one transaction, few statements.
+
+    The result is stored compact (:func:`feasibility.service.details.compact_result`: no plot
+    series, no method texts; pages recompute them on demand). A finding's figures live in the
+    result only: its row holds what the lists filter and sort on (check, level) and its words.
+    """
     from feasibility.service.changes import record_changes
 
-    stored = result.model_dump(mode="json")
+    stored = compact_result(result)
     finished = utcnow()
     with session_scope() as session:
-        # pydantic writes the ~100 KB of JSON itself, several times faster than json.dumps of ``stored``.
-        finish = _finish_statement(run_id, attempt, finished, state="done", verdict=result.verdict.value, result=JSONText(result.model_dump_json()), error=None)
-        row = session.execute(finish.returning(_RUNS.c.proposal_version_id, _RUNS.c.reason)).first()
+        finish = _finish_statement(
+            run_id, attempt, finished, state="done", verdict=result.verdict.value, result=JSONText(json.dumps(stored, separators=(",", ":"), ensure_ascii=False)), error=None
+        )
+        row = session.execute(finish.returning(_RUNS.c.proposal_version_id, _RUNS.c.reason, _finished_before(run_id).label("finished_before"))).first()
         if row is None:
             return "superseded"
         if result.requests:
@@ -211,8 +219,8 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
                     "level": f["level"],
                     "message": f["message"],
                     "suggestion": f.get("suggestion"),
-                    "method": f.get("method"),
-                    "figures": f.get("figures") or {},
+                    "method": None,
+                    "figures": {},
                 }
                 for outcome_id, request in zip(outcome_ids, stored["requests"])
                 for f in request["findings"]
@@ -220,7 +228,9 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
             if findings:
                 # executemany of one fixed statement: psycopg pipelines it, and its text (so its parsing) is reused.
                 session.execute(insert(_FINDINGS), findings)
-        # The run as just written, handed to the session as loaded rather than read back (its result is ~100 KB).
+        if not row.finished_before:
+            return "done"  # the proposal's first finished run: no change to record (record_changes would find no run before it)
+        # The run as just written, handed to the session as loaded rather than read back.
         run = CheckRun(
             id=run_id,
             proposal_version_id=row.proposal_version_id,
@@ -236,6 +246,18 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
         session.add(run)
         record_changes(session, run)
     return "done"
+
+
+def _finished_before(run_id: int) -> Any:
+    """Whether another run of the same proposal (any version) is done: a scalar subquery for the finishing UPDATE's RETURNING.
+
+    Only then can :func:`~feasibility.service.changes.record_changes` find a run to compare
+    with; a proposal's first run (most runs of a submission burst) skips its queries.
+    """
+    other = _RUNS.alias("other")
+    mine = select(ProposalVersion.proposal_ref).where(ProposalVersion.id == _RUNS.c.proposal_version_id).correlate(_RUNS).scalar_subquery()
+    versions = select(ProposalVersion.id).where(ProposalVersion.proposal_ref == mine).correlate(_RUNS)
+    return exists().where(other.c.proposal_version_id.in_(versions), other.c.state == "done", other.c.id != run_id).correlate(_RUNS)
 
 
 def _outcome_row(run_id: int, request: dict[str, Any]) -> dict[str, Any]:

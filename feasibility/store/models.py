@@ -237,7 +237,9 @@ class CheckRun(Base):
     priority: Mapped[int] = mapped_column(Integer, default=0, doc="0 for submissions, higher numbers run later.")
     attempts: Mapped[int] = mapped_column(Integer, default=0)
     verdict: Mapped[str | None] = mapped_column(String(12), index=True)
-    result: Mapped[dict[str, Any] | None] = mapped_column(doc="The whole ProposalResult as JSON.")
+    result: Mapped[dict[str, Any] | None] = mapped_column(
+        doc="The ProposalResult as JSON: compact (no plot series nor method texts; feasibility.service.details), or whole for older runs."
+    )
     error: Mapped[str | None] = mapped_column(Text)
     queued_at: Mapped[datetime] = mapped_column(default=utcnow)
     started_at: Mapped[datetime | None]
@@ -276,7 +278,7 @@ class RequestOutcome(Base):
 
 
 class FindingRow(Base):
-    """One finding of one request in one run."""
+    """One finding of one request in one run, for the lists' filters. Newer runs keep its figures in the run's result only."""
 
     __tablename__ = "findings"
 

@@ -18,7 +18,8 @@ from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, Problem
 from feasibility.service import access
-from feasibility.service.dispatch import enqueue
+from feasibility.service.details import full_result
+from feasibility.service.dispatch import enqueue, mark_with_commit
 from feasibility.service.faults import is_lasting, is_passing
 from feasibility.service.submissions import NotAllowed, Submission, submit
 from feasibility.store import queries
@@ -92,12 +93,12 @@ def submit_one() -> tuple[dict[str, Any], int, dict[str, str]]:
     if not isinstance(body, dict):
         raise DocumentError([Problem("", "must be a mapping of fields at the top level")], "proposal")
     try:
-        run_id, created, send, payload = _submit_one(body, user, owner, describe=True)
+        run_id, created, send, marked, payload = _submit_one(body, user, owner, describe=True, mark=True)
     except SQLAlchemyError as exc:
         status, answer = _store_fault(exc)
         return answer, status, {"Retry-After": "5"} if status == 503 else {}
     if send:
-        enqueue([run_id])  # only now that the run is committed; should the broker fail, the relay sends it
+        enqueue([run_id], marked=marked)  # only now that the run is committed; should the broker fail, the relay sends it
     if wait > 0 and payload["state"] in ("queued", "running"):
         payload = _wait_for(run_id, wait)
     status = 202 if created and payload["state"] in ("queued", "running") else 200
@@ -137,7 +138,7 @@ def submit_many() -> dict[str, Any]:
             try:
                 if not isinstance(item, dict):
                     raise DocumentError([Problem("", "must be a mapping of fields")], "proposal")
-                run_id, created, send, _ = _submit_one(item, user, owner)
+                run_id, created, send, _, _ = _submit_one(item, user, owner)
             except DocumentError as error:
                 answers.append({"index": index, "status": 422, **error.as_dict()})
                 continue
@@ -152,7 +153,9 @@ def submit_many() -> dict[str, Any]:
                 to_send.append(run_id)
             answers.append({"index": index, "status": 202 if created else 200, "created": created, "run_id": run_id, "run": url_for("api.get_run", run_id=run_id)})
     finally:
-        enqueue(to_send)  # what was stored is queued, whatever happened to the items after it
+        # What was stored is queued, whatever happened to the items after it: several runs a message (dispatch.RUNS_PER_MESSAGE),
+        # marked sent in one transaction once the broker has them (not with each item's commit: the batch is sent at its end).
+        enqueue(to_send)
     accepted = sum(1 for a in answers if a["status"] in (200, 202))
     return {"accepted": accepted, "rejected": len(answers) - accepted, "items": answers}
 
@@ -226,7 +229,7 @@ def proposal_runs(proposal_id: str) -> dict[str, Any]:
 
 
 def run_json(session: Session, run: CheckRun, *, with_result: bool = False) -> dict[str, Any]:
-    """A check run as the API shows it; ``with_result`` adds the stored result (findings, figures, series)."""
+    """A check run as the API shows it; ``with_result`` adds its result (findings, figures, and the series recomputed when stored compact)."""
     version = run.proposal_version
     body: dict[str, Any] = {
         "id": run.id,
@@ -246,7 +249,7 @@ def run_json(session: Session, run: CheckRun, *, with_result: bool = False) -> d
         "links": {"self": f"/api/v1/runs/{run.id}", "proposal": f"/api/v1/proposals/{version.proposal.proposal_id}"},
     }
     if with_result and run.state == "done":
-        body["result"] = run.result
+        body["result"] = full_result(session, run)
     return body
 
 
@@ -289,19 +292,24 @@ def _version_summary(version: ProposalVersion) -> dict[str, Any]:
     }
 
 
-def _submit_one(body: Any, user: User | None, owner: User | None, *, describe: bool = False) -> tuple[int, bool, bool, dict[str, Any]]:
+def _submit_one(
+    body: Any, user: User | None, owner: User | None, *, describe: bool = False, mark: bool = False
+) -> tuple[int, bool, bool, bool, dict[str, Any]]:
     """Store one submission in its own transaction (on SQLite it waits for the write lock; see feasibility.store.db).
 
     Returns the run id, whether the run is new, whether it must be sent to the workers
-    after commit (new, or found still queued), and (with ``describe``) the run as the API shows it.
+    after commit (new, or found still queued), whether (asked with ``mark``, for a run sent right after
+    the commit) it was marked sent in this transaction (:func:`~feasibility.service.dispatch.mark_with_commit`),
+    and (with ``describe``) the run as the API shows it.
     """
     with session_scope() as session:
         if owner is not None:
             owner = session.merge(owner, load=False)
         user_here = session.merge(user, load=False) if user is not None else None
         result: Submission = submit(session, body, user_here, owner=owner)
+        marked = mark and result.must_send and mark_with_commit(result.run)  # sent right after this commit: no second transaction
         payload = run_json(session, result.run, with_result=True) if describe else {}
-        return result.run.id, result.created, result.must_send, payload
+        return result.run.id, result.created, result.must_send, marked, payload
 
 
 def _readable_proposal(session: Session, proposal_id: str) -> ProposalRecord:

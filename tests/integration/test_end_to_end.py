@@ -173,3 +173,28 @@ def test_bulk_submission_over_http(live: LiveService) -> None:
     assert answer.status_code == 200 and answer.json()["accepted"] == 4
     for item in answer.json()["items"]:
         assert live.wait_for_run(item["run_id"])["state"] == "done"
+
+
+def test_a_large_bulk_is_computed_in_batches_each_run_once(live: LiveService) -> None:
+    from feasibility.documents import InstrumentSchedule, Observatory, Proposal, load_document, parse_document
+    from feasibility.engine import check_proposal
+    from feasibility.service.dispatch import BATCH_FROM, batches
+
+    count = BATCH_FROM + 4  # enough to be sent several runs a message
+    documents = [_proposal(f"INT-BATCH-{i}", ra=f"{(10 + i) % 24:02d}:20:00") for i in range(count)]
+    answer = _post(live, "portal", {"proposals": documents}, path="/api/v1/proposals/bulk")
+    assert answer.status_code == 200 and answer.json()["accepted"] == count
+    ids = [item["run_id"] for item in answer.json()["items"]]
+    assert len(batches(ids)) < count  # the bulk went in batch messages
+    # A duplicate batch (a redelivered message) while the first may be running: each run is still stored once.
+    live.app.extensions["celery"].send_task("feasibility.check_runs", args=[ids], queue=live.app.extensions["feasibility.dispatch"].queue)
+    data = resources.files("feasibility") / "data"
+    observatory = load_document(Observatory, str(data / "observatory.yaml"))
+    schedule = load_document(InstrumentSchedule, str(data / "schedule-2027A.yaml"))
+    for run_id, document in zip(ids, documents, strict=True):
+        run = live.wait_for_run(run_id)
+        assert run["state"] == "done" and run["attempts"] == 1
+        # Reference: the engine called directly on the same documents gives the same verdicts.
+        assert run["result"]["verdict"] == check_proposal(parse_document(Proposal, document), observatory, schedule).verdict.value
+    time.sleep(2)  # the duplicate message has been through by now
+    assert [_outcomes(live, run_id) for run_id in ids] == [1] * count

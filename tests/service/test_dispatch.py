@@ -1,4 +1,4 @@
-"""Dispatching to Celery: one message per run, fresh submissions ahead of bulk re-checks."""
+"""Dispatching to Celery: one message per run, or batches when many are queued at once; fresh submissions ahead of bulk re-checks."""
 
 from __future__ import annotations
 
@@ -9,7 +9,18 @@ from typing import Any
 import pytest
 from flask import Flask
 
-from feasibility.service.dispatch import BULK_PRIORITY, CHECK_TASK, SUBMISSION_PRIORITY, CeleryDispatcher, enqueue
+from feasibility.service.dispatch import (
+    BATCH_FROM,
+    BULK_PRIORITY,
+    CHECK_BATCH_TASK,
+    CHECK_TASK,
+    RUNS_HEADER,
+    RUNS_PER_MESSAGE,
+    SUBMISSION_PRIORITY,
+    CeleryDispatcher,
+    batches,
+    enqueue,
+)
 
 
 class RecordingCelery:
@@ -53,3 +64,19 @@ def test_the_celery_app_is_configured_for_reliability(app: Flask) -> None:
 def test_enqueue_needs_an_app_context() -> None:
     with pytest.raises(RuntimeError, match="application context"):
         enqueue([1])
+
+
+def test_many_runs_queued_at_once_go_several_to_a_message() -> None:
+    celery = RecordingCelery()
+    dispatcher = CeleryDispatcher(celery, "test.checks")
+    ids = list(range(1, 101))
+    dispatcher.enqueue(ids, bulk=True)
+    assert {m["name"] for m in celery.sent} == {CHECK_BATCH_TASK}
+    carried = [m["args"][0] for m in celery.sent]
+    assert [i for batch in carried for i in batch] == ids  # every run once, in the order queued
+    assert all(1 < len(batch) <= RUNS_PER_MESSAGE for batch in carried)
+    assert [m["headers"][RUNS_HEADER] for m in celery.sent] == [len(batch) for batch in carried]
+    assert {m["priority"] for m in celery.sent} == {BULK_PRIORITY}
+    # A few runs (fewer than BATCH_FROM) still go one a message, so they spread over the worker processes.
+    assert batches([1, 2, 3]) == [[1], [2], [3]]
+    assert len(batches(list(range(BATCH_FROM)))) >= 4

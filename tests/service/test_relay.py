@@ -20,6 +20,7 @@ import pytest
 from flask import Flask
 from sqlalchemy import update
 
+from feasibility.service.dispatch import enqueue
 from feasibility.service.relay import relay
 from feasibility.service.submissions import submit
 from feasibility.store.db import session_scope
@@ -177,3 +178,20 @@ def test_the_pool_takes_over_at_once_what_a_killed_process_left(app: Flask, fake
     assert pool.wait_idle(10)
     assert {_run(app, i).state for i in (held, waiting)} == {"done"}
     assert _run(app, held).attempts == 2
+
+
+def test_the_relay_counts_the_runs_a_batch_message_carries(app: Flask, prefix: str) -> None:
+    up = _celery_app(app, prefix, REDIS_URL)
+    with app.app_context(), session_scope() as session:
+        ids = [submit(session, proposal(f"BATCH-{n}"), None).run.id for n in range(20)]
+    with up.app_context():
+        assert enqueue(ids, bulk=True)  # marked sent once the broker has them
+        dispatcher = up.extensions["feasibility.dispatch"]
+        messages = dispatcher.message_count()
+        assert messages is not None and messages < len(ids)  # several runs a message
+        assert dispatcher.message_count(at_least=len(ids)) == len(ids)  # read from the messages' headers
+    first = _relay(up)  # the first pass finds no marker yet: it sends every queued run once more (harmless)
+    assert sorted(first.fresh + first.bulk) == sorted(ids)
+    for _ in range(3):  # every run has a message: no pass finds messages missing
+        again = _relay(up)
+        assert again.sent == 0 and not again.lost_messages

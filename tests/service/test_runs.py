@@ -14,11 +14,12 @@ from flask import Flask
 from sqlalchemy import func, select, update
 from sqlalchemy.exc import OperationalError
 
+from feasibility.results import Level
 from feasibility.service.leases import owner_id
 from feasibility.service.runs import LeaseHeld, execute_run
 from feasibility.service.submissions import submit
 from feasibility.store.db import session_scope
-from feasibility.store.models import CheckRun, FindingRow, RequestOutcome, utcnow
+from feasibility.store.models import CheckRun, FindingRow, RequestOutcome, VerdictChange, utcnow
 
 from .helpers import FakeEngine, proposal
 
@@ -215,3 +216,21 @@ def test_submitting_again_after_an_engine_fault_queues_the_run_again(ctx: Flask,
     fake_engine.error = None
     assert execute_run(run_id) == "done"
     assert _outcomes(run_id) == 1
+
+
+def test_a_runs_change_is_recorded_whatever_other_proposals_are_stored(ctx: Flask, fake_engine: FakeEngine) -> None:
+    # Another proposal stored first and not yet checked: the test that a run has one before it must look at its own proposal.
+    _new_run("OTHER-1")
+    first = _new_run("R-CHANGE")
+    assert execute_run(first) == "done"
+    with session_scope() as session:
+        assert session.scalar(select(func.count()).select_from(VerdictChange)) == 0  # the proposal's first run: nothing to compare
+    changed = proposal("R-CHANGE", hours=5.0)  # a new version of the same proposal
+    with session_scope() as session:
+        second = submit(session, changed, None).run.id
+    fake_engine.level = Level.INFEASIBLE
+    assert execute_run(second) == "done"
+    with session_scope() as session:
+        change = session.scalars(select(VerdictChange)).one()
+        assert (change.previous_run_id, change.run_id) == (first, second)
+        assert (change.verdict_before, change.verdict_after) == ("feasible", "infeasible")

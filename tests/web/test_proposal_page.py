@@ -101,12 +101,13 @@ def test_older_results_without_series_still_render(app: Flask, client: FlaskClie
     from feasibility.store.db import session_scope
     from feasibility.store.models import CheckRun
 
-    run_id = store_checked(app, proposal_doc("OLD-1"), None)
-    # The real engine always stores series; a result from an engine version before plots had none.
-    # That stored result is made here by taking the series out of a real one.
+    document = proposal_doc("OLD-1")
+    run_id = store_checked(app, document, None)
+    # The real engine always gives series; a result stored whole (the older form) by an engine version
+    # before plots had none. That stored result is made here by taking the series out of a real one.
     with app.app_context(), session_scope() as session:
         run = session.get_one(CheckRun, run_id)
-        result = dict(run.result)
+        result = engine_result(document).model_dump(mode="json")
         result["requests"] = [{k: v for k, v in r.items() if k != "series"} for r in result["requests"]]
         run.result = result
     sign_in(client, "rita")
@@ -167,3 +168,93 @@ def test_fixed_targets_have_no_track_plot(app: Flask, client: FlaskClient, peopl
     html = client.get("/proposals/SQ-2027A-001").get_data(as_text=True)
     assert "track.svg" not in html and "No plot" not in html
     assert client.get(f"/proposals/SQ-2027A-001/runs/{run_id}/requests/0/track.svg").status_code == 404
+
+
+def test_results_are_stored_compact_and_answered_whole(app: Flask, client: FlaskClient, semester: dict[str, Any], expected: dict[str, Any]) -> None:
+    import json
+
+    from sqlalchemy import select
+
+    from feasibility.results import ProposalResult
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import CheckRun, User
+    from feasibility.web.auth import create_token
+
+    run_id = semester["runs"]["SQ-2027A-001"]
+    reference = expected["SQ-2027A-001"].model_dump(mode="json")  # the real engine's whole result for the same inputs
+    with app.app_context(), session_scope() as session:
+        stored = session.get_one(CheckRun, run_id).result
+        token = create_token(session, session.scalars(select(User).where(User.name == "rita")).one())
+    assert stored["form"] == "compact"
+    assert all("series" not in r for r in stored["requests"])
+    assert all("method" not in f for r in stored["requests"] for f in r["findings"])
+    assert [r["figures"] for r in stored["requests"]] == [r["figures"] for r in reference["requests"]]
+    assert len(json.dumps(stored)) < len(json.dumps(reference)) / 2
+    # The API answers the result whole, as documented (a ProposalResult): the series and methods recomputed
+    # from the run's recorded inputs equal what the engine gave.
+    answer = client.get("/api/v1/proposals/SQ-2027A-001", headers={"Authorization": f"Bearer {token}"})
+    assert answer.status_code == 200
+    result = answer.get_json()["result"]["result"]
+    assert "form" not in result
+    ProposalResult.model_validate(result)
+    for got, want in zip(result["requests"], reference["requests"], strict=True):
+        assert got["series"] == want["series"]
+        assert [f["method"] for f in got["findings"]] == [f["method"] for f in want["findings"]]
+        assert got["findings"] == want["findings"]
+
+
+def test_results_stored_whole_show_their_own_series(app: Flask, client: FlaskClient, people: dict[str, int], engine: Any, monkeypatch: Any) -> None:
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import CheckRun
+
+    document = proposal_doc("WHOLE-1")
+    run_id = store_checked(app, document, None)
+    whole = engine_result(document).model_dump(mode="json")  # a result in the form stored before results were compact
+    whole["requests"][0]["series"]["night_curve"]["night"] = "2027-05-05"  # so the plot shown is seen to come from the store
+    with app.app_context(), session_scope() as session:
+        session.get_one(CheckRun, run_id).result = whole
+
+    def refuse(*_: Any) -> Any:
+        raise AssertionError("a result stored whole is shown as stored, not recomputed")
+
+    monkeypatch.setattr("feasibility.engine.check_proposal", refuse)
+    sign_in(client, "rita")
+    html = client.get("/proposals/WHOLE-1").get_data(as_text=True)
+    assert "No plot" not in html
+    assert f"Method: {escape(whole['requests'][0]['findings'][0]['method'])}" in html
+    svg = client.get(f"/proposals/WHOLE-1/runs/{run_id}/requests/0/night.svg").get_data(as_text=True)
+    assert "<!-- Altitude through the night beginning 2027-05-05 -->" in svg
+
+
+def test_compact_result_of_another_engine_version_says_why_it_has_no_plot(app: Flask, client: FlaskClient, people: dict[str, int], engine: Any) -> None:
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import CheckRun
+
+    run_id = store_checked(app, proposal_doc("OTHER-ENGINE-1"), None)
+    with app.app_context(), session_scope() as session:
+        session.get_one(CheckRun, run_id).engine_version = "0.0.1"  # as if made by an engine this service no longer runs
+    sign_in(client, "rita")
+    html = client.get("/proposals/OTHER-ENGINE-1").get_data(as_text=True)
+    assert html.count("No plot: its series are recomputed by the engine version that made it (0.0.1)") == 3
+    assert '<th scope="row">visibility</th>' in html  # the stored findings are still shown
+    assert client.get(f"/proposals/OTHER-ENGINE-1/runs/{run_id}/requests/0/night.svg").status_code == 404
+
+
+def test_details_are_not_shown_when_the_engine_now_answers_otherwise(app: Flask, client: FlaskClient, people: dict[str, int], engine: Any) -> None:
+    from feasibility.store.db import session_scope
+    from feasibility.store.models import CheckRun
+
+    run_id = store_checked(app, proposal_doc("CHANGED-1"), None)
+    with app.app_context(), session_scope() as session:
+        run = session.get_one(CheckRun, run_id)
+        result = dict(run.result)
+        request = dict(result["requests"][0])
+        findings = [dict(f) for f in request["findings"]]
+        findings[0]["level"] = "infeasible" if findings[0]["level"] != "infeasible" else "feasible"  # not what the engine gives
+        request["findings"] = findings
+        result["requests"] = [request]
+        run.result = result
+    sign_in(client, "rita")
+    html = client.get("/proposals/CHANGED-1").get_data(as_text=True)
+    assert '<th scope="row">visibility</th>' in html  # the stored findings are shown
+    assert "Method:" not in html and html.count("No plot") == 3  # no series from a recomputation that disagrees

@@ -17,6 +17,7 @@ from werkzeug.exceptions import HTTPException
 
 from feasibility.service import access
 from feasibility.service.current import current_observatory, observatory_of
+from feasibility.service.details import details_missing_reason, full_result
 from feasibility.store import standing
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
@@ -350,11 +351,16 @@ def _chosen_run(history: list[Any], wanted: str | None) -> CheckRun | None:
 
 
 def _requests_of(run: CheckRun | None) -> list[dict[str, Any]]:
-    """The run's stored observation-request results, read defensively (older results may lack parts)."""
-    if run is None or not isinstance(run.result, dict):
+    """The run's observation-request results, read defensively (older results may lack parts).
+
+    A compact stored result gets its series and methods recomputed (:mod:`feasibility.service.details`).
+    """
+    result = full_result(db(), run) if run is not None else None
+    if result is None:
         return []
+    missing = details_missing_reason(run) if run is not None else None
     items = []
-    for raw in run.result.get("requests") or []:
+    for raw in result.get("requests") or []:
         if not isinstance(raw, dict):
             continue
         series = given if isinstance(given := raw.get("series"), dict) else {}
@@ -371,6 +377,7 @@ def _requests_of(run: CheckRun | None) -> list[dict[str, Any]]:
                 "findings": findings,
                 "series": series,
                 "plots": {kind: _has_series(kind, series) for kind in PLOT_KINDS},
+                "plots_missing": missing,
             }
         )
     return items
