@@ -4,7 +4,9 @@
 reduced the semester to :class:`~feasibility.engine.conditions.Conditions`. It
 returns the findings of the checks ``sensitivity``, ``instrument``,
 ``atmosphere`` and ``image-quality``, the figures behind them, and an S/N
-curve for plotting.
+curve for plotting. This module measures (:func:`measure_exposure` returns an
+:class:`ExposureMeasure` of numbers and flags);
+:mod:`feasibility.engine.sensitivity_findings` words the findings from it.
 
 Methods
 -------
@@ -36,9 +38,10 @@ Methods
   practice) and the converter's largest count ((2^bits − 1) × gain). Exposures
   are split by the instrument's longest exposure and by that safe length;
   overheads add readout per exposure and acquisition per visit.
-- Levels: feasible when the design point meets the goal in the hours
-  requested (marginal if it does so only at the bright end of the magnitude
-  error); marginal when only the typical point does; infeasible when neither does.
+- Levels (worded in :mod:`feasibility.engine.sensitivity_findings`): feasible
+  when the design point meets the goal in the hours requested (marginal if it
+  does so only at the bright end of the magnitude error); marginal when only
+  the typical point does; infeasible when neither does.
 
 References
 ----------
@@ -48,7 +51,6 @@ Howell, S. B., *Handbook of CCD Astronomy*, Cambridge University Press.
 
 from __future__ import annotations
 
-import functools
 import math
 from dataclasses import dataclass, field
 from typing import Any
@@ -56,36 +58,34 @@ from typing import Any
 import numpy as np
 
 from feasibility.documents import Detector, Instrument, ObservationRequest, Observatory
-from feasibility.engine import photometry, spectral_curves, wording
+from feasibility.engine import photometry, spectral_curves
 from feasibility.engine.airmass import altitude_for_airmass
 from feasibility.engine.conditions import Conditions, wavelength_for
-from feasibility.engine.exposure_checks import (
-    InstrumentProblem,
-    atmosphere_finding,
-    diffraction_fwhm_arcsec,
-    image_quality_finding,
-    instrument_setup_problems,
-    seeing_fwhm_arcsec,
-    seeing_percentile_arcsec,
-)
+from feasibility.engine.exposure_checks import diffraction_fwhm_arcsec, seeing_fwhm_arcsec, seeing_percentile_arcsec
 from feasibility.engine.moonsky import dark_sky_nl, mag_from_nanolamberts
-from feasibility.results import Finding, Level, worst
+from feasibility.engine.sensitivity_findings import exposure_findings, unchecked_finding
+from feasibility.results import Finding
 
 __all__ = [
     "APERTURE_RADIUS_FWHM",
     "BEST_SEEING_PERCENT",
     "SATURATION_FRACTION",
+    "Alternatives",
     "ExposureAssessment",
+    "ExposureMeasure",
     "ExposurePlan",
     "ObservingPoint",
+    "PricedChange",
     "Signal",
     "assess_exposure",
     "ccd_snr",
     "central_pixel_fraction",
     "encircled_fraction_gaussian",
     "exposures_for_snr",
+    "measure_exposure",
     "resolution_element_pixels",
     "saturation_level_e",
+    "setup_gap",
     "slit_transmission_gaussian",
 ]
 
@@ -102,9 +102,7 @@ _MOON_SUGGESTION_MAG = 0.1
 CURVE_POINTS = 40
 
 _CURVE_STEPS = np.linspace(0.0, 1.0, CURVE_POINTS)
-_SYSTEM_NAMES = {"vega": "Vega", "ab": "AB"}
 _FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
-_CCD_METHOD = "CCD equation (Merline & Howell 1995; Howell, Handbook of CCD Astronomy), sky from many pixels"
 
 
 @dataclass
@@ -131,8 +129,6 @@ class Signal:
     aperture_radius_arcsec: float | None
     enclosed_fraction: float
     slit_transmission: float | None
-    unit: str
-    """What the S/N refers to, e.g. 'in a 0.57" radius aperture'."""
     element_pixels: float | None = None
     """Spectra: pixels across one resolution element (slit or seeing, never below the grating's sampling)."""
     resolving_power: float | None = None
@@ -167,127 +163,230 @@ class ExposurePlan:
     snr: float
 
 
+@dataclass(frozen=True)
+class PricedChange:
+    """One change to a request that misses its goal, priced at the design point."""
+
+    value: float
+    """The changed setting: an airmass limit, or the Moon-free sky in mag/arcsec²."""
+    hours: float
+    """Hours the goal needs with the change."""
+    snr: float
+    """S/N in the hours requested with the change."""
+
+
+@dataclass(frozen=True)
+class Alternatives:
+    """The changes priced for an S/N goal the design point misses (None where one does not apply)."""
+
+    airmass_limit: PricedChange | None
+    """A tighter airmass limit: the typical airmass rounded up to 0.1 (an upper bound on the hours)."""
+    moon_free_sky: PricedChange | None
+    """Dark time with the Moon down, when moonlight brightens the design sky noticeably."""
+
+
+@dataclass(frozen=True)
+class ExposureMeasure:
+    """What :func:`measure_exposure` finds for one request: the points, signals, plans and saturation figures."""
+
+    wavelength: float
+    observed_band: str
+    sky_band: str
+    hours_usable: float
+    typical: ObservingPoint
+    design: ObservingPoint
+    best: ObservingPoint
+    """The saturation check's worst case: the best seeing at airmass 1 under the design sky."""
+    signal: Signal
+    """At the design point."""
+    typical_signal: Signal
+    peak_signal: Signal
+    """At the best point, for saturation."""
+    plan: ExposurePlan
+    """Exposures reaching the goal at the design point."""
+    typical_plan: ExposurePlan
+    budget: ExposurePlan
+    """What the hours requested give at the design point."""
+    typical_budget: ExposurePlan
+    level_e: float
+    """The detector's saturation level (:func:`saturation_level_e`)."""
+    safe: float
+    """Seconds until the peak pixel reaches the saturation level at the best point."""
+    longest: float
+    """The longest single exposure the plans use."""
+    saturated: bool
+    """Even the instrument's shortest exposure saturates (the plans then use it anyway)."""
+    dimming_mag: float | None
+    """When saturated: the magnitudes of light to lose for the shortest exposure to be safe."""
+    usable_budget: ExposurePlan | None
+    """What the semester's usable hours give at the typical point, when even it needs more (else None)."""
+    faint_hours: float | None
+    """Hours needed at the design point at the faint end of the magnitude error (None without an error)."""
+    alternatives: Alternatives | None
+    """Changes priced when the design point misses the goal in the hours requested (else None)."""
+
+    def point_figures(self) -> dict[str, Any]:
+        """The conditions each point was computed at."""
+        figures: dict[str, Any] = {"design_percentile": self.design.percent}
+        for suffix, point, signal in (("design", self.design, self.signal), ("typical", self.typical, self.typical_signal)):
+            figures[f"airmass_{suffix}"] = _round(point.airmass, 4)
+            figures[f"sky_mag_arcsec2_{suffix}"] = _round(point.sky_mag_arcsec2, 4)
+            figures[f"seeing_{suffix}_arcsec"] = _round(signal.fwhm_arcsec, 3)
+        return figures
+
+    def figures(self, request: ObservationRequest) -> dict[str, Any]:
+        """The exposure figures of the request's result (the keys without a suffix are the design point's)."""
+        signal, plan = self.signal, self.plan
+        return {
+            "hours_needed": _round(plan.hours, 4),
+            "snr_expected": _round(self.budget.snr, 3),
+            "hours_needed_typical": _round(self.typical_plan.hours, 4),
+            "snr_expected_typical": _round(self.typical_budget.snr, 3),
+            "snr_goal": request.goal.snr,
+            **self.point_figures(),
+            "source_rate_e_s": _round(signal.source_e_s, 5),
+            "sky_rate_e_s_pix": _round(signal.sky_e_s_pix, 5),
+            "dark_e_s_pix": signal.dark_e_s_pix,
+            "read_noise_e": signal.read_noise_e,
+            "pixels": _round(signal.n_pix, 3),
+            "exposure_time_s": _round(plan.exposure_time_s, 3),
+            "exposures": plan.exposures,
+            "visits": plan.visits,
+            "exposure_time_s_max": _round(self.longest, 3),
+            "exposure_time_s_safe": _round(self.safe, 4),
+            "seeing_arcsec": _round(signal.fwhm_arcsec, 3),
+            "airmass": _round(self.design.airmass, 3),
+            "wavelength_nm": self.wavelength,
+            "aperture_radius_arcsec": _round(signal.aperture_radius_arcsec, 3),
+            "enclosed_fraction": _round(signal.enclosed_fraction, 4),
+            "slit_loss": None if signal.slit_transmission is None else _round(1.0 - signal.slit_transmission, 4),
+            "resolution_element_pixels": _round(signal.element_pixels, 4),
+            "resolving_power": _round(signal.resolving_power, 4),
+            "resolving_power_typical": _round(self.typical_signal.resolving_power, 4),
+        }
+
+    def instrument_figures(self, detector: Detector) -> dict[str, Any]:
+        """The instrument finding's figures: saturation and, for spectra, the resolution element."""
+        return {
+            "saturation_time_s": _round(self.safe, 4),
+            "peak_e_s_pix": _round(self.peak_signal.peak_e_s_pix, 4),
+            "saturation_seeing_arcsec": _round(self.peak_signal.fwhm_arcsec, 3),
+            "saturation_level_e": _round(self.level_e, 6),
+            "full_well_e": detector.full_well_e,
+            "adc_max_adu": 2**detector.adc_bits - 1,
+            "linearity_fraction": detector.linearity_fraction,
+            "exposure_time_s_max": _round(self.longest, 3),
+            "resolution_element_pixels": _round(self.signal.element_pixels, 4),
+            "resolving_power": _round(self.signal.resolving_power, 4),
+            "resolving_power_typical": _round(self.typical_signal.resolving_power, 4),
+        }
+
+    def sensitivity_figures(self, request: ObservationRequest) -> dict[str, Any]:
+        """The sensitivity finding's figures: hours and S/N at both points."""
+        faint = self.faint_hours
+        return {
+            "hours_needed": _round(self.plan.hours, 4),
+            "hours_needed_typical": _round(self.typical_plan.hours, 4),
+            "hours_requested": request.hours_requested,
+            "snr_expected": _round(self.budget.snr, 3),
+            "snr_expected_typical": _round(self.typical_budget.snr, 3),
+            "snr_goal": request.goal.snr,
+            "exposures": self.plan.exposures,
+            "exposure_time_s": _round(self.plan.exposure_time_s, 3),
+            "exposures_in_hours_requested": self.budget.exposures,
+            "exposure_time_s_in_hours_requested": _round(self.budget.exposure_time_s, 6),
+            "hours_needed_faint": _round(faint, 4) if faint is not None else None,
+            **self.point_figures(),
+        }
+
+
 def assess_exposure(
     request: ObservationRequest, observatory: Observatory, instrument: Instrument, conditions: Conditions
 ) -> ExposureAssessment:
     """Findings, figures and S/N curve of ``request`` observed with ``instrument`` under ``conditions``.
 
-    Every S/N figure is computed at the typical and at the design conditions
-    (module docstring); the keys without a suffix are the design point's.
-    Never raises for a setup the instrument lacks: that gives an ``unchecked``
-    instrument finding.
+    Measures (:func:`measure_exposure`), then words the findings
+    (:mod:`feasibility.engine.sensitivity_findings`). Never raises for a setup
+    the instrument lacks: that gives an ``unchecked`` instrument finding.
     """
     wavelength = wavelength_for(request, instrument)
-    missing = _missing_setup(request, instrument)
-    if wavelength is None or missing:
-        finding = Finding(
-            check="instrument",
-            level=Level.UNCHECKED,
-            message=missing or "No wavelength: give the setup's central wavelength or the goal's wavelength.",
-            suggestion="Name a filter, grating and slit that the instrument has.",
-            method="the instrument's filters, gratings and slits in the observatory description",
-        )
-        return ExposureAssessment([finding], {"hours_needed": None, "snr_expected": None})
+    gap = setup_gap(request, instrument)
+    if wavelength is None or gap:
+        return ExposureAssessment([unchecked_finding(request, instrument, gap)], {"hours_needed": None, "snr_expected": None})
+    measure = measure_exposure(request, observatory, instrument, conditions, wavelength)
+    return ExposureAssessment(
+        exposure_findings(request, observatory, instrument, measure),
+        measure.figures(request),
+        {"snr_curve": _snr_curve(request, measure.signal, measure.plan, measure.budget, measure.longest)},
+    )
 
+
+def setup_gap(request: ObservationRequest, instrument: Instrument) -> str | None:
+    """What the setup lacks for the instrument: ``filter``, ``grating`` or ``slit``; None when it can be evaluated."""
+    setup = request.setup
+    if instrument.kind == "imager":
+        return "filter" if instrument.filter_named(setup.filter or "") is None else None
+    if instrument.grating_named(setup.grating or "") is None:
+        return "grating"
+    if setup.slit_arcsec is None:
+        return "slit"
+    return None
+
+
+def measure_exposure(
+    request: ObservationRequest, observatory: Observatory, instrument: Instrument, conditions: Conditions, wavelength: float
+) -> ExposureMeasure:
+    """Signals, exposure plans and saturation of ``request`` at the typical, design and best points.
+
+    Every S/N figure is computed at the typical and at the design conditions
+    (module docstring). The setup must be one the instrument has (:func:`setup_gap`).
+    """
     climate = observatory.climate
     typical, design = _points(observatory, conditions)
-    findings = [atmosphere_finding(wavelength)]
-    findings.append(
-        image_quality_finding(
-            request, climate.median_seeing_arcsec, typical.airmass, wavelength, observatory.telescope.aperture_m,
-            conditions.hours_usable,
-        )
-    )
     magnitude = request.brightness.magnitude
     optics = _optics(request, observatory, instrument, conditions, wavelength)  # shared by every point below
-    signal, note = _signal(request, observatory, instrument, conditions, wavelength, design, magnitude, optics)
-    typical_signal, _ = _signal(request, observatory, instrument, conditions, wavelength, typical, magnitude, optics)
-    problems = instrument_setup_problems(request, instrument, wavelength)
+    signal = _signal(request, observatory, instrument, wavelength, design, magnitude, optics)
+    typical_signal = _signal(request, observatory, instrument, wavelength, typical, magnitude, optics)
 
     # Saturation at the worst case: the best tenth of the seeing at the zenith, over the design sky.
     best = ObservingPoint(
         "best", BEST_SEEING_PERCENT, 1.0, design.sky_mag_arcsec2,
         seeing_percentile_arcsec(climate.median_seeing_arcsec, BEST_SEEING_PERCENT),
     )
-    peak_signal, _ = _signal(request, observatory, instrument, conditions, wavelength, best, magnitude, optics)
+    peak_signal = _signal(request, observatory, instrument, wavelength, best, magnitude, optics)
     level_e = saturation_level_e(instrument.detector)
     safe = level_e / peak_signal.peak_e_s_pix
     longest = min(instrument.max_exposure_s, safe)
     saturated = longest < instrument.min_exposure_s
+    dimming = None
     if saturated:
         dimming = 2.5 * math.log10(instrument.min_exposure_s / safe)
-        problems.append(
-            InstrumentProblem(
-                Level.INFEASIBLE,
-                f"the brightest pixel reaches the saturation level, {wording.count(level_e)} e "
-                f"({_saturation_reason(instrument.detector)}), in {wording.seconds(safe)} at the best seeing "
-                f"({wording.arcsec(peak_signal.fwhm_arcsec)}, {wording.percentile(BEST_SEEING_PERCENT)}) and airmass "
-                f"{wording.airmass(1.0)}: shorter than the shortest exposure {wording.seconds(instrument.min_exposure_s)}",
-                f"The target saturates: {wording.magnitude(dimming)} mag less light (a neutral-density filter of at least "
-                f"that density, a narrower band or higher resolution) would make {wording.seconds(instrument.min_exposure_s)} "
-                "exposures safe; or defocus, or use a smaller telescope.",
-            )
-        )
         longest = instrument.min_exposure_s
 
     plan = _plan_for_goal(request, instrument, signal, longest)
-    budget = _plan_for_hours(request.hours_requested, instrument, signal, longest)
     typical_plan = _plan_for_goal(request, instrument, typical_signal, longest)
-    typical_budget = _plan_for_hours(request.hours_requested, instrument, typical_signal, longest)
+    usable_budget = None
     if conditions.hours_usable > 0 and typical_plan.hours > conditions.hours_usable:
-        problems.append(
-            InstrumentProblem(
-                Level.INFEASIBLE,
-                f"the goal needs {wording.hours(typical_plan.hours)} even at the typical conditions, but only "
-                f"{wording.hours(conditions.hours_usable)} are usable this semester: too faint for this telescope and instrument",
-                f"Lower the S/N goal (the usable time gives {wording.snr(_plan_for_hours(conditions.hours_usable, instrument, typical_signal, longest).snr)} "
-                "at the typical conditions), bin or use a lower-resolution setup, or choose a larger telescope."
-                if request.goal.snr is not None
-                else "Shorten the exposure time asked for, or choose a larger telescope.",
-            )
-        )
-    findings.append(_instrument_finding(problems, instrument, signal, typical_signal, peak_signal, safe, longest))
-
+        usable_budget = _plan_for_hours(conditions.hours_usable, instrument, typical_signal, longest)
     faint_hours = None
     if request.brightness.error:
-        faint_signal, _ = _signal(
-            request, observatory, instrument, conditions, wavelength, design, magnitude + request.brightness.error, optics
-        )
+        faint_signal = _signal(request, observatory, instrument, wavelength, design, magnitude + request.brightness.error, optics)
         faint_hours = _plan_for_goal(request, instrument, faint_signal, longest).hours
-    if saturated:
-        note = "; ".join(filter(None, [note, "these figures assume shortest exposures, which saturate"]))
-    outcome = _Outcome(typical, design, signal, typical_signal, plan, typical_plan, budget, typical_budget, conditions.sky_band)
-    alternatives = _Alternatives(request, observatory, instrument, conditions, wavelength, longest, optics)
-    findings.append(_sensitivity_finding(request, outcome, faint_hours, note, alternatives))
-
-    figures: dict[str, Any] = {
-        "hours_needed": _round(plan.hours, 4),
-        "snr_expected": _round(budget.snr, 3),
-        "hours_needed_typical": _round(typical_plan.hours, 4),
-        "snr_expected_typical": _round(typical_budget.snr, 3),
-        "snr_goal": request.goal.snr,
-        **_point_figures(outcome),
-        "source_rate_e_s": _round(signal.source_e_s, 5),
-        "sky_rate_e_s_pix": _round(signal.sky_e_s_pix, 5),
-        "dark_e_s_pix": signal.dark_e_s_pix,
-        "read_noise_e": signal.read_noise_e,
-        "pixels": _round(signal.n_pix, 3),
-        "exposure_time_s": _round(plan.exposure_time_s, 3),
-        "exposures": plan.exposures,
-        "visits": plan.visits,
-        "exposure_time_s_max": _round(longest, 3),
-        "exposure_time_s_safe": _round(safe, 4),
-        "seeing_arcsec": _round(signal.fwhm_arcsec, 3),
-        "airmass": _round(design.airmass, 3),
-        "wavelength_nm": wavelength,
-        "aperture_radius_arcsec": _round(signal.aperture_radius_arcsec, 3),
-        "enclosed_fraction": _round(signal.enclosed_fraction, 4),
-        "slit_loss": None if signal.slit_transmission is None else _round(1.0 - signal.slit_transmission, 4),
-        "resolution_element_pixels": _round(signal.element_pixels, 4),
-        "resolving_power": _round(signal.resolving_power, 4),
-        "resolving_power_typical": _round(typical_signal.resolving_power, 4),
-    }
-    return ExposureAssessment(findings, figures, {"snr_curve": _snr_curve(request, signal, plan, budget, longest)})
+    alternatives = None
+    if plan.hours > request.hours_requested:
+        alternatives = _price_alternatives(
+            request, observatory, instrument, conditions, wavelength, longest, optics, typical, design
+        )
+    return ExposureMeasure(
+        wavelength=wavelength, observed_band=optics.observed_band, sky_band=conditions.sky_band,
+        hours_usable=conditions.hours_usable, typical=typical, design=design, best=best,
+        signal=signal, typical_signal=typical_signal, peak_signal=peak_signal,
+        plan=plan, typical_plan=typical_plan,
+        budget=_plan_for_hours(request.hours_requested, instrument, signal, longest),
+        typical_budget=_plan_for_hours(request.hours_requested, instrument, typical_signal, longest),
+        level_e=level_e, safe=safe, longest=longest, saturated=saturated, dimming_mag=dimming,
+        usable_budget=usable_budget, faint_hours=faint_hours, alternatives=alternatives,
+    )
 
 
 def saturation_level_e(detector: Detector) -> float:
@@ -377,24 +476,10 @@ def central_pixel_fraction(pixel: float, fwhm: float) -> float:
 # --- helpers -------------------------------------------------------------------------------
 
 
-def _missing_setup(request: ObservationRequest, instrument: Instrument) -> str | None:
-    """Why the setup cannot be evaluated, or None."""
-    setup = request.setup
-    if instrument.kind == "imager":
-        if instrument.filter_named(setup.filter or "") is None:
-            return f"{instrument.name} has no filter {setup.filter!r}."
-        return None
-    if instrument.grating_named(setup.grating or "") is None:
-        return f"{instrument.name} has no grating {setup.grating!r}."
-    if setup.slit_arcsec is None:
-        return f"No slit width given for {instrument.name}."
-    return None
-
-
 @dataclass(frozen=True)
 class _Optics:
     """What every observing point of one request shares: the band or spectrum's zero point, width, throughput
-    and extinction, the sky's zero point, and the note on the brightness band (worked out once per request)."""
+    and extinction, and the sky's zero point (worked out once per request)."""
 
     observed_band: str
     zero_point: float
@@ -405,7 +490,6 @@ class _Optics:
     sky_offset: float | None
     """Spectra: the sky carried from the conditions' band to the wavelength (added to each point's sky)."""
     area: float
-    note: str | None
 
 
 def _optics(
@@ -419,7 +503,7 @@ def _optics(
     sky_offset = None
     if instrument.kind == "imager":
         item = instrument.filter_named(request.setup.filter or "")
-        assert item is not None  # _missing_setup ruled this out
+        assert item is not None  # setup_gap ruled this out
         observed_band, zero_point = item.band, item.zero_point_jy
         bandwidth = item.width_nm / item.wavelength_nm
         throughput = item.throughput or instrument.throughput
@@ -437,41 +521,25 @@ def _optics(
         # Each point's sky (typical or design) is carried to the wavelength as the conditions' sky is.
         sky_zero_point = zero_point
         sky_offset = spectrum.sky_mag_arcsec2 - conditions.sky_mag_arcsec2
-    brightness = request.brightness
-    note = None
-    if instrument.kind != "imager":
-        note = spectral_curves.flux_note(brightness.band, brightness.system, wavelength)
-    elif brightness.band != observed_band:
-        note = (
-            f"brightness is given in {brightness.band}, not the observed band {observed_band}: "
-            f"zero {brightness.band}-{observed_band} colour assumed ({_SYSTEM_NAMES[brightness.system]} system)"
-        )
-    return _Optics(observed_band, zero_point, bandwidth, throughput, extinction, sky_zero_point, sky_offset, area, note)
+    return _Optics(observed_band, zero_point, bandwidth, throughput, extinction, sky_zero_point, sky_offset, area)
 
 
 def _signal(
     request: ObservationRequest,
     observatory: Observatory,
     instrument: Instrument,
-    conditions: Conditions,
     wavelength: float,
     point: ObservingPoint,
     magnitude: float,
-    optics: _Optics | None = None,
-) -> tuple[Signal, str | None]:
-    """Electron rates for ``magnitude`` at ``point``, and a note when the brightness band is not the observed band.
-
-    ``optics`` (:func:`_optics`) is the part every point of the request shares; worked out here when not given.
-    """
-    if optics is None:
-        optics = _optics(request, observatory, instrument, conditions, wavelength)
+    optics: _Optics,
+) -> Signal:
+    """Electron rates for ``magnitude`` at ``point``; ``optics`` (:func:`_optics`) is the part every point shares."""
     detector = instrument.detector
     airmass = point.airmass
     telescope = observatory.telescope
     zero_point, bandwidth, throughput, area = optics.zero_point, optics.bandwidth, optics.throughput, optics.area
     sky_mag = point.sky_mag_arcsec2 if optics.sky_offset is None else point.sky_mag_arcsec2 + optics.sky_offset
     brightness = request.brightness
-    note = optics.note
     rate = photometry.source_rate(
         magnitude, brightness.system, zero_point, bandwidth, area, throughput, optics.extinction, airmass
     )
@@ -488,18 +556,18 @@ def _signal(
             signal = Signal(
                 source_e_s=rate, sky_e_s_pix=sky_pix, n_pix=1.0 / pixel**2, peak_e_s_pix=rate * pixel**2 + sky_pix + dark,
                 aperture_radius_arcsec=None, enclosed_fraction=1.0, slit_transmission=None,
-                unit="per square arcsecond", **common,
+                **common,
             )
-            return signal, note
+            return signal
         radius = APERTURE_RADIUS_FWHM * fwhm
         enclosed = encircled_fraction_gaussian(radius, fwhm)
         signal = Signal(
             source_e_s=rate * enclosed, sky_e_s_pix=sky_pix, n_pix=math.pi * radius**2 / pixel**2,
             peak_e_s_pix=rate * central_pixel_fraction(pixel, fwhm) + sky_pix + dark,
             aperture_radius_arcsec=radius, enclosed_fraction=enclosed, slit_transmission=None,
-            unit=f"in a {wording.arcsec(radius)} radius aperture", **common,
+            **common,
         )
-        return signal, note
+        return signal
 
     grating = instrument.grating_named(request.setup.grating or "")
     assert grating is not None and request.setup.slit_arcsec is not None
@@ -515,23 +583,22 @@ def _signal(
             source_e_s=rate * slit * widening, sky_e_s_pix=sky_pix, n_pix=element / pixel,
             peak_e_s_pix=rate * slit * pixel * per_pixel_spectral + sky_pix + dark,
             aperture_radius_arcsec=None, enclosed_fraction=1.0, slit_transmission=None,
-            unit="per resolution element per arcsecond along the slit", **common, **resolving,
+            **common, **resolving,
         )
-        return signal, note
+        return signal
     transmission = slit_transmission_gaussian(slit, fwhm)
     height = 2.0 * APERTURE_RADIUS_FWHM * fwhm
     if detector.slit_length_arcsec is not None:
         height = min(height, detector.slit_length_arcsec)
     along = slit_transmission_gaussian(height, fwhm)
-    delta = float(f"{wavelength / resolving['resolving_power']:.3g}")
     signal = Signal(
         source_e_s=rate * transmission * along * widening, sky_e_s_pix=sky_pix,
         n_pix=element * max(height / pixel, 1.0),
         peak_e_s_pix=rate * transmission * per_pixel_spectral * slit_transmission_gaussian(pixel, fwhm) + sky_pix + dark,
         aperture_radius_arcsec=height / 2.0, enclosed_fraction=along, slit_transmission=transmission,
-        unit=f"per resolution element ({wording.nanometres(delta)}), {wording.arcsec(height)} extraction", **common, **resolving,
+        **common, **resolving,
     )
-    return signal, note
+    return signal
 
 
 def _delivered_fwhm(request: ObservationRequest, median_seeing: float, airmass: float, wavelength: float, aperture_m: float) -> float:
@@ -604,277 +671,50 @@ def _points(observatory: Observatory, conditions: Conditions) -> tuple[Observing
     return typical, design
 
 
-@dataclass(frozen=True)
-class _Outcome:
-    """Both points' signals and plans, for the sensitivity finding."""
-
-    typical: ObservingPoint
-    design: ObservingPoint
-    signal: Signal
-    typical_signal: Signal
-    plan: ExposurePlan
-    typical_plan: ExposurePlan
-    budget: ExposurePlan
-    typical_budget: ExposurePlan
-    sky_band: str
-
-
-def _point_figures(outcome: _Outcome) -> dict[str, Any]:
-    """The conditions each point was computed at."""
-    figures: dict[str, Any] = {"design_percentile": outcome.design.percent}
-    for suffix, point, signal in (("design", outcome.design, outcome.signal), ("typical", outcome.typical, outcome.typical_signal)):
-        figures[f"airmass_{suffix}"] = _round(point.airmass, 4)
-        figures[f"sky_mag_arcsec2_{suffix}"] = _round(point.sky_mag_arcsec2, 4)
-        figures[f"seeing_{suffix}_arcsec"] = _round(signal.fwhm_arcsec, 3)
-    return figures
-
-
-def _conditions_text(point: ObservingPoint, signal: Signal, band: str) -> str:
-    """E.g. 'design conditions (80th percentile: airmass 1.45, sky 21.20 mag/arcsec² in V, seeing 1.02")'."""
-    which = "median" if point.name == "typical" else wording.percentile(point.percent)
-    return (
-        f"{point.name} conditions ({which}: airmass {wording.airmass(point.airmass)}, "
-        f"sky {wording.magnitude(point.sky_mag_arcsec2)} mag/arcsec² in {band}, seeing {wording.arcsec(signal.fwhm_arcsec)})"
-    )
-
-
-def _saturation_reason(detector: Detector) -> str:
-    """Which limit sets the saturation level, with its numbers."""
-    adc = 2**detector.adc_bits - 1
-    linear = detector.linearity_fraction * detector.full_well_e
-    if adc * detector.gain_e_adu <= linear:
-        return (
-            f"the {detector.adc_bits}-bit converter's {wording.count(adc)} ADU × {detector.gain_e_adu:g} e/ADU, "
-            f"below {detector.linearity_fraction:.0%} of the {wording.count(detector.full_well_e)} e full well"
-        )
-    return f"{detector.linearity_fraction:.0%} of the {wording.count(detector.full_well_e)} e full well, the linear range"
-
-
-def _instrument_finding(
-    problems: list[InstrumentProblem],
-    instrument: Instrument,
-    signal: Signal,
-    typical_signal: Signal,
-    peak_signal: Signal,
-    safe: float,
-    longest: float,
-) -> Finding:
-    detector = instrument.detector
-    level_e = saturation_level_e(detector)
-    figures = {
-        "saturation_time_s": _round(safe, 4),
-        "peak_e_s_pix": _round(peak_signal.peak_e_s_pix, 4),
-        "saturation_seeing_arcsec": _round(peak_signal.fwhm_arcsec, 3),
-        "saturation_level_e": _round(level_e, 6),
-        "full_well_e": detector.full_well_e,
-        "adc_max_adu": 2**detector.adc_bits - 1,
-        "linearity_fraction": detector.linearity_fraction,
-        "exposure_time_s_max": _round(longest, 3),
-        "resolution_element_pixels": _round(signal.element_pixels, 4),
-        "resolving_power": _round(signal.resolving_power, 4),
-        "resolving_power_typical": _round(typical_signal.resolving_power, 4),
-    }
-    method = (
-        "instrument and grating wavelength ranges; saturation when the peak pixel (Gaussian profile, source + sky + dark) "
-        f"at the {wording.percentile(BEST_SEEING_PERCENT)} seeing and airmass 1 reaches the smaller of the detector's "
-        "linear range (a fraction of full well, common practice) and the converter's largest count × gain; spectra: "
-        "resolution element = projected slit or seeing FWHM, whichever is narrower, never below the grating's sampling"
-    )
-    resolution = _resolution_text(instrument, signal, typical_signal)
-    if not problems:
-        message = f"{instrument.name} covers the setup; "
-        suggestion = None
-        if safe < instrument.max_exposure_s:
-            message += (
-                f"single exposures stay below saturation ({wording.count(level_e)} e, {_saturation_reason(detector)}) up to "
-                f"{wording.seconds(safe)} even at the best seeing ({wording.arcsec(peak_signal.fwhm_arcsec)}, "
-                f"{wording.percentile(BEST_SEEING_PERCENT)}) and airmass {wording.airmass(1.0)}, shorter than the "
-                f"instrument's longest {wording.seconds(instrument.max_exposure_s)}"
-            )
-            suggestion = f"Keep single exposures at or below {wording.seconds(safe)}; the plan here does."
-        else:
-            message += f"exposures up to the longest, {wording.seconds(instrument.max_exposure_s)}, stay below saturation"
-        return Finding(
-            check="instrument",
-            level=Level.FEASIBLE,
-            message=message + (f"; {resolution}" if resolution else "") + ".",
-            figures=figures,
-            suggestion=suggestion,
-            method=method,
-        )
-    level = worst([p.level for p in problems])
-    message = "; ".join(p.message for p in problems)
-    if resolution:
-        message += f"; {resolution}"
-    return Finding(
-        check="instrument",
-        level=level,
-        message=message[0].upper() + message[1:] + ".",
-        figures=figures,
-        suggestion=next((p.suggestion for p in problems if p.level is level and p.suggestion), None),
-        method=method,
-    )
-
-
-def _resolution_text(instrument: Instrument, signal: Signal, typical_signal: Signal) -> str | None:
-    """For spectra: what sets the resolution element, and the resolving power at both points."""
-    if signal.element_pixels is None or signal.resolving_power is None or typical_signal.resolving_power is None:
-        return None
-    return (
-        f"resolution element {wording.pixels(typical_signal.element_pixels or 0.0)} at the typical seeing, "
-        f"{wording.pixels(signal.element_pixels)} at the design seeing (the narrower of the projected slit and the "
-        f"seeing image, at least the grating's sampling): resolving power {wording.count(typical_signal.resolving_power)} "
-        f"and {wording.count(signal.resolving_power)}"
-    )
-
-
-class _Alternatives:
-    """Concrete changes the engine can price for a request that misses its goal (each a short text with its figure)."""
-
-    def __init__(
-        self,
-        request: ObservationRequest,
-        observatory: Observatory,
-        instrument: Instrument,
-        conditions: Conditions,
-        wavelength: float,
-        longest: float,
-        optics: _Optics,
-    ) -> None:
-        self.request, self.observatory, self.instrument = request, observatory, instrument
-        self.conditions, self.wavelength, self.longest, self.optics = conditions, wavelength, longest, optics
-
-    def _at(self, point: ObservingPoint) -> tuple[ExposurePlan, ExposurePlan]:
-        signal, _ = _signal(
-            self.request, self.observatory, self.instrument, self.conditions, self.wavelength, point,
-            self.request.brightness.magnitude, self.optics,
-        )
-        return (
-            _plan_for_goal(self.request, self.instrument, signal, self.longest),
-            _plan_for_hours(self.request.hours_requested, self.instrument, signal, self.longest),
-        )
-
-    def texts(self, outcome: _Outcome) -> list[str]:
-        """'request 2.5 h', 'accept S/N 22 in 2.0 h', 'airmass limit 1.30: at most 1.8 h', 'dark time ...: S/N 24 in 2.0 h'."""
-        request, design = self.request, outcome.design
-        requested = request.hours_requested
-        texts = [f"request {wording.hours(outcome.plan.hours)}"]
-        if request.goal.snr is not None:
-            texts.append(f"accept {wording.snr(outcome.budget.snr)} in {wording.hours(requested)}")
-        limit = math.ceil(outcome.typical.airmass * 10.0 - 1e-9) / 10.0
-        if request.goal.snr is not None and limit < design.airmass - 0.005:
-            # The design airmass of a tighter limit is at most the limit: an upper bound on the hours.
-            plan, _ = self._at(ObservingPoint(design.name, design.percent, limit, design.sky_mag_arcsec2, design.zenith_seeing_arcsec))
-            texts.append(
-                f"airmass limit {wording.airmass(limit)}: at most {wording.hours(plan.hours)} (fewer hours observable)"
-            )
-        dark = self._moon_free_sky(design)
-        if request.goal.snr is not None and dark is not None:
-            plan, budget = self._at(ObservingPoint(design.name, design.percent, design.airmass, dark, design.zenith_seeing_arcsec))
-            texts.append(
-                f"dark time with the Moon down (sky {wording.magnitude(dark)} mag/arcsec²): {wording.snr(budget.snr)} "
-                f"in {wording.hours(requested)}, {wording.hours(plan.hours)} for the goal"
-            )
-        return texts
-
-    def _moon_free_sky(self, design: ObservingPoint) -> float | None:
-        """The Moon-free sky at the design airmass (K&S 1991 eq. 2) when moonlight brightens the design sky noticeably."""
-        band = self.observatory.climate.bands.get(self.conditions.sky_band)
-        if band is None:
-            return None
-        zenith = 90.0 - altitude_for_airmass(design.airmass)
-        dark = float(mag_from_nanolamberts(dark_sky_nl(band.sky_mag_arcsec2, band.extinction_mag_per_airmass, zenith)))
-        return dark if dark - design.sky_mag_arcsec2 >= _MOON_SUGGESTION_MAG else None
-
-
-def _sensitivity_finding(
+def _price_alternatives(
     request: ObservationRequest,
-    outcome: _Outcome,
-    faint_hours: float | None,
-    note: str | None,
-    alternatives: _Alternatives,
-) -> Finding:
-    requested = request.hours_requested
-    goal = request.goal
-    plan, typical_plan, budget, typical_budget = outcome.plan, outcome.typical_plan, outcome.budget, outcome.typical_budget
-    band = outcome.sky_band
-    if goal.snr is not None:
-        wanted = f"{wording.snr(goal.snr)} {outcome.signal.unit}"
-    else:
-        wanted = f"{wording.seconds(float(goal.exposure_time_s or 0.0))} of exposure"
-    design_text = _conditions_text(outcome.design, outcome.signal, band)
-    typical_text = _conditions_text(outcome.typical, outcome.typical_signal, band)
-    head = (
-        f"{wanted} needs {wording.hours(plan.hours)} at the {design_text} "
-        f"({plan.exposures} × {wording.seconds(plan.exposure_time_s)} with overheads), "
-        f"{wording.hours(typical_plan.hours)} at the {typical_text}; {wording.hours(requested)} requested give "
-        f"{wording.snr(budget.snr)} and {wording.snr(typical_budget.snr)}"
-    )
-    suggestion = None
-    if plan.hours <= requested:
-        level = Level.FEASIBLE
-        if faint_hours is not None and faint_hours > requested:
-            level = Level.MARGINAL
-            head += (
-                f"; at the faint end of the magnitude error it needs {wording.hours(faint_hours)} at the design conditions, "
-                f"more than the {wording.hours(requested)} requested"
-            )
-            suggestion = f"Request {wording.hours(faint_hours)} to cover the magnitude uncertainty, or confirm the brightness."
-        elif plan.hours < 0.5 * requested:
-            suggestion = f"The goal needs under half the hours requested; consider asking for about {wording.hours(plan.hours)}."
-    else:
-        if typical_plan.hours <= requested:
-            level = Level.MARGINAL
-            cause = "only the typical conditions meet the goal in the hours requested: at the design conditions"
-        else:
-            level = Level.INFEASIBLE
-            cause = "neither point meets the goal in the hours requested: even at the typical conditions"
-            budget, plan = typical_budget, typical_plan
-        if goal.snr is not None:
-            head += (
-                f"; {cause} {wording.hours(requested)} give {wording.snr(budget.snr)} against the goal "
-                f"{wording.snr(goal.snr)} (it needs {wording.hours(plan.hours)})"
-            )
-        else:
-            head += f"; {cause} it needs {wording.hours(plan.hours)} against {wording.hours(requested)} requested"
-        texts = alternatives.texts(outcome)
-        suggestion = "; ".join(texts)
-        suggestion = suggestion[0].upper() + suggestion[1:] + "."
-    if note:
-        head += f"; {note}"
-    figures = {
-        "hours_needed": _round(outcome.plan.hours, 4),
-        "hours_needed_typical": _round(outcome.typical_plan.hours, 4),
-        "hours_requested": requested,
-        "snr_expected": _round(outcome.budget.snr, 3),
-        "snr_expected_typical": _round(outcome.typical_budget.snr, 3),
-        "snr_goal": goal.snr,
-        "exposures": outcome.plan.exposures,
-        "exposure_time_s": _round(outcome.plan.exposure_time_s, 3),
-        "exposures_in_hours_requested": outcome.budget.exposures,
-        "exposure_time_s_in_hours_requested": _round(outcome.budget.exposure_time_s, 6),
-        "hours_needed_faint": _round(faint_hours, 4) if faint_hours is not None else None,
-        **_point_figures(outcome),
-    }
-    return Finding(
-        check="sensitivity",
-        level=level,
-        message=head + ".",
-        figures=figures,
-        suggestion=suggestion,
-        method=_sensitivity_method(outcome.design.percent),
-    )
+    observatory: Observatory,
+    instrument: Instrument,
+    conditions: Conditions,
+    wavelength: float,
+    longest: float,
+    optics: _Optics,
+    typical: ObservingPoint,
+    design: ObservingPoint,
+) -> Alternatives:
+    """Hours and S/N of an S/N goal with a tighter airmass limit and with the Moon down (None where they do not apply)."""
+    if request.goal.snr is None:
+        return Alternatives(None, None)
+
+    def at(point: ObservingPoint) -> tuple[ExposurePlan, ExposurePlan]:
+        signal = _signal(request, observatory, instrument, wavelength, point, request.brightness.magnitude, optics)
+        return (
+            _plan_for_goal(request, instrument, signal, longest),
+            _plan_for_hours(request.hours_requested, instrument, signal, longest),
+        )
+
+    airmass_limit = None
+    limit = math.ceil(typical.airmass * 10.0 - 1e-9) / 10.0
+    if limit < design.airmass - 0.005:
+        # The design airmass of a tighter limit is at most the limit: an upper bound on the hours.
+        plan, budget = at(ObservingPoint(design.name, design.percent, limit, design.sky_mag_arcsec2, design.zenith_seeing_arcsec))
+        airmass_limit = PricedChange(limit, plan.hours, budget.snr)
+    moon_free_sky = None
+    dark = _moon_free_sky(observatory, conditions, design)
+    if dark is not None:
+        plan, budget = at(ObservingPoint(design.name, design.percent, design.airmass, dark, design.zenith_seeing_arcsec))
+        moon_free_sky = PricedChange(dark, plan.hours, budget.snr)
+    return Alternatives(airmass_limit, moon_free_sky)
 
 
-@functools.lru_cache(maxsize=16)
-def _sensitivity_method(percent: float) -> str:
-    """The sensitivity finding's method text (formatted once per design percentile)."""
-    return (
-        f"{_CCD_METHOD}; zero points Bessell (1979) / AB 3631 Jy (Oke & Gunn 1983); extinction 10^(-0.4 k X); "
-        f"typical conditions: the median airmass, sky and seeing over the usable instants; design conditions: their "
-        f"{wording.percentile(percent)} (moonlit sky Krisciunas & Schaefer 1991, log-normal seeing); feasible when the "
-        "design conditions meet the goal in the hours requested, marginal when only the typical ones do"
-    )
+def _moon_free_sky(observatory: Observatory, conditions: Conditions, design: ObservingPoint) -> float | None:
+    """The Moon-free sky at the design airmass (K&S 1991 eq. 2) when moonlight brightens the design sky noticeably."""
+    band = observatory.climate.bands.get(conditions.sky_band)
+    if band is None:
+        return None
+    zenith = 90.0 - altitude_for_airmass(design.airmass)
+    dark = float(mag_from_nanolamberts(dark_sky_nl(band.sky_mag_arcsec2, band.extinction_mag_per_airmass, zenith)))
+    return dark if dark - design.sky_mag_arcsec2 >= _MOON_SUGGESTION_MAG else None
 
 
 def _snr_curve(request: ObservationRequest, signal: Signal, plan: ExposurePlan, budget: ExposurePlan, longest: float) -> dict[str, Any]:

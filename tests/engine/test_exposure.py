@@ -130,7 +130,7 @@ def test_source_limited_snr_grows_with_aperture_diameter() -> None:
 
 def test_background_limited_time_grows_as_snr_squared() -> None:
     # CCD equation, sky-dominated: S/N = R t / sqrt(n S t), so t = S/N² n S / R² (Merline & Howell 1995).
-    signal = Signal(1.0, 1000.0, 0.0, 0.0, 20.0, 1001.0, 1.0, 0.7, 0.7, None, "")
+    signal = Signal(1.0, 1000.0, 0.0, 0.0, 20.0, 1001.0, 1.0, 0.7, 0.7, None)
     one, t_one = exposures_for_snr(signal, 10.0, 1e9)
     two, t_two = exposures_for_snr(signal, 20.0, 1e9)
     assert (one, two) == (1, 1)
@@ -155,7 +155,7 @@ def test_finite_background_pixels_add_noise() -> None:
 def test_exposures_for_snr_is_the_fewest_that_reach_the_goal() -> None:
     # The CCD equation evaluated at the returned plan reaches the goal exactly (Merline & Howell 1995),
     # and one exposure fewer at the longest allowed length falls short.
-    signal = Signal(5.0, 50.0, 0.01, 10.0, 30.0, 60.0, 1.0, 0.7, 0.7, None, "")
+    signal = Signal(5.0, 50.0, 0.01, 10.0, 30.0, 60.0, 1.0, 0.7, 0.7, None)
     count, length = exposures_for_snr(signal, 100.0, 300.0)
     assert count > 1 and length <= 300.0
     assert signal.snr(count * length, count) == pytest.approx(100.0, rel=1e-9)
