@@ -14,7 +14,7 @@ from __future__ import annotations
 import json
 import sys
 import time
-from datetime import UTC, datetime, timedelta
+from datetime import datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -189,12 +189,19 @@ def _wait_for_runs(run_ids: list[int], wait_s: float) -> bool:
 
 
 def _parse_time(raw: str, option: str) -> datetime:
+    """An ISO 8601 time (naive means UTC), in UTC; a bad one ends the command with exit status 2."""
+    from feasibility.documents.times import as_utc
+
     try:
         moment = datetime.fromisoformat(raw)
     except ValueError:
         click.echo(f"{option}: {raw!r} is not an ISO 8601 time (e.g. 2027-05-01T03:00:00Z)", err=True)
         sys.exit(BAD_INPUT)
-    return moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)
+    try:
+        return as_utc(moment)
+    except ValueError as exc:
+        click.echo(f"{option}: {raw!r} {exc}", err=True)
+        sys.exit(BAD_INPUT)
 
 
 def _bad(error: Any) -> None:

@@ -15,7 +15,7 @@ from typing import Annotated, Any
 
 from pydantic import AfterValidator, BeforeValidator, WithJsonSchema
 
-__all__ = ["DATETIME_PATTERN", "DATE_PATTERN", "DocumentDate", "UtcDatetime"]
+__all__ = ["DATETIME_PATTERN", "DATE_PATTERN", "DocumentDate", "UtcDatetime", "as_utc"]
 
 #: A date and time as the documents accept them: a date, optionally a time of day (seconds and fraction optional),
 #: optionally a zone (``Z`` or ``±hh:mm``); ``T`` or a space between date and time.
@@ -53,8 +53,12 @@ def _date_text(value: Any) -> Any:
     raise ValueError(f"{_DATE_WORDS}; got {_shown(value)}")
 
 
-def _utc(value: datetime) -> datetime:
-    """Read naive times as UTC and keep every time timezone-aware."""
+def as_utc(value: datetime) -> datetime:
+    """The time in UTC, timezone-aware; a naive time is read as UTC (the rule of every time we are given).
+
+    The one home of that rule: the documents' time fields, the API's and the command line's
+    time options and the store's UTC column type all pass their times through here.
+    """
     if value.tzinfo is None:
         return value.replace(tzinfo=UTC)
     try:
@@ -66,7 +70,7 @@ def _utc(value: datetime) -> datetime:
 UtcDatetime = Annotated[
     datetime,
     BeforeValidator(_datetime_text),
-    AfterValidator(_utc),
+    AfterValidator(as_utc),
     WithJsonSchema(
         {
             "type": "string",

@@ -17,7 +17,7 @@ import socket
 import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
-from datetime import UTC, datetime, timedelta
+from datetime import datetime, timedelta
 from typing import Any, cast
 
 from sqlalchemy import CursorResult, Table, update
@@ -169,10 +169,3 @@ class Heartbeat:
                 .values(lease_expires_at=until)
             )
             return bool(cast(CursorResult[Any], session.execute(statement)).rowcount)
-
-
-def aware(moment: datetime | None) -> datetime | None:
-    """SQLite hands back naive datetimes (stored as UTC): make them comparable with ``utcnow()``."""
-    if moment is not None and moment.tzinfo is None:
-        return moment.replace(tzinfo=UTC)
-    return moment

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 from typing import Any
 
-from feasibility.service.leases import aware
 from feasibility.service.rechecks import RecheckPlan, Upload
 from feasibility.store.models import ObservatoryVersion, ScheduleVersion
 
@@ -43,7 +42,7 @@ def upload_answer(upload: Upload) -> dict[str, Any]:
 
 def version_answer(version: ScheduleVersion | ObservatoryVersion) -> dict[str, Any]:
     """A stored version's identity (not its document)."""
-    uploaded = aware(version.uploaded_at)
+    uploaded = version.uploaded_at
     data: dict[str, Any] = {
         "id": version.id,
         "version": version.version_label,

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 from collections import Counter
 from dataclasses import dataclass, field
-from datetime import UTC, datetime, timedelta
+from datetime import datetime, timedelta
 from typing import Any
 
 from sqlalchemy import func, select
@@ -231,7 +231,7 @@ def plan_rechecks(
                 and stale_after is not None
                 and basis.state == "done"
                 and basis.finished_at is not None
-                and _aware(basis.finished_at) < now - stale_after
+                and basis.finished_at < now - stale_after
             ):
                 reasons.append("stale")
         if not reasons:
@@ -350,12 +350,7 @@ def _reason_text(reasons: list[str], instruments: set[str], schedule_row: Schedu
 def _changed(uploaded_at: datetime | None, since: datetime | None) -> bool:
     if since is None or uploaded_at is None:
         return True
-    return _aware(uploaded_at) >= _aware(since)
-
-
-def _aware(value: datetime) -> datetime:
-    """SQLite gives back naive datetimes; they are UTC."""
-    return value if value.tzinfo is not None else value.replace(tzinfo=UTC)
+    return uploaded_at >= since
 
 
 def _schedule_field(field: str) -> str:

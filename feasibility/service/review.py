@@ -21,7 +21,7 @@ Who may do what is decided by :mod:`feasibility.service.access` alone (its table
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
+from datetime import datetime
 from typing import Any
 
 from sqlalchemy import select
@@ -98,13 +98,13 @@ def review_of(session: Session, record: ProposalRecord) -> Review:
     assignments = list(session.scalars(select(ReviewAssignment).where(ReviewAssignment.proposal_ref == record.id).order_by(ReviewAssignment.id)))
     notes = list(session.scalars(select(ReviewNote).where(ReviewNote.proposal_ref == record.id).order_by(ReviewNote.id)))
     decisions = list(session.scalars(select(ReviewDecision).where(ReviewDecision.proposal_ref == record.id).order_by(ReviewDecision.id)))
-    trail = [TrailEntry("assigned", a.assigner.name, _aware(a.assigned_at), f"reviewer: {a.reviewer.name}") for a in assignments]
-    trail += [TrailEntry("note", n.author.name, _aware(n.written_at), n.text, n.request_label) for n in notes]
+    trail = [TrailEntry("assigned", a.assigner.name, a.assigned_at, f"reviewer: {a.reviewer.name}") for a in assignments]
+    trail += [TrailEntry("note", n.author.name, n.written_at, n.text, n.request_label) for n in notes]
     trail += [
         TrailEntry(
             "confirmed" if d.kind == "confirm" else "overridden",
             d.reviewer.name,
-            _aware(d.decided_at),
+            d.decided_at,
             (f"engine {d.engine_verdict} (run #{d.run_id}) → {d.verdict}" + (f": {d.reason}" if d.reason else "")),
         )
         for d in decisions
@@ -221,7 +221,7 @@ def for_proposer(review: Review, *, show_notes: bool) -> dict[str, Any]:
         "reviewed": review.decision is not None,
     }
     if show_notes:
-        answer["notes"] = [{"request": n.request_label, "text": n.text, "written_at": _aware(n.written_at).isoformat()} for n in review.notes]
+        answer["notes"] = [{"request": n.request_label, "text": n.text, "written_at": n.written_at.isoformat()} for n in review.notes]
     return answer
 
 
@@ -263,8 +263,3 @@ def _text(value: Any, name: str, problems: list[Problem], *, required: bool) -> 
 def _request_labels(session: Session, record: ProposalRecord) -> list[str]:
     document = queries.latest_version(session, record).document or {}
     return [str(item.get("label")) for item in document.get("requests") or [] if isinstance(item, dict) and item.get("label") is not None]
-
-
-def _aware(moment: datetime) -> datetime:
-    """SQLite gives naive UTC times back; make them aware."""
-    return moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)

@@ -39,7 +39,7 @@ from feasibility.results import ProposalResult
 from feasibility.service.current import cached_document
 from feasibility.service.details import compact_result
 from feasibility.service.faults import is_lasting, is_passing
-from feasibility.service.leases import Heartbeat, aware, holder_is_gone, lease_length, owner_id, working_on
+from feasibility.service.leases import Heartbeat, holder_is_gone, lease_length, owner_id, working_on
 from feasibility.service.runtime import current_settings
 from feasibility.store.db import JSONText, session_scope
 from feasibility.store.models import CheckRun, FindingRow, ObservatoryVersion, ProposalVersion, RequestOutcome, ScheduleVersion, utcnow
@@ -154,7 +154,7 @@ def _claim(run_id: int) -> tuple[int, tuple[Any, ...]] | None:
                     .returning(*returning)
                 ).first()
             if claimed is None:
-                expires = aware(current.lease_expires_at) or now
+                expires = current.lease_expires_at or now
                 raise LeaseHeld(run_id, max((expires - now).total_seconds(), 0.0) + 1.0)
         attempts, proposal_version_id, observatory_id, schedule_id = claimed
         # The proposal's JSON and the other two documents' hashes, in one statement.

@@ -33,7 +33,7 @@ import urllib.request
 from collections.abc import Callable
 from contextlib import AbstractContextManager
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
+from datetime import datetime, timedelta
 from typing import Any, cast
 from urllib.parse import urlsplit
 
@@ -318,8 +318,6 @@ def _seconds_to_next(sessions: SessionMaker) -> float | None:
         due = session.scalar(select(func.min(WebhookDelivery.next_attempt_at)).where(WebhookDelivery.state == "pending"))
     if due is None:
         return None
-    if due.tzinfo is None:
-        due = due.replace(tzinfo=UTC)
     return max((due - utcnow()).total_seconds(), 0.05)
 
 

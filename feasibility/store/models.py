@@ -13,6 +13,8 @@ from typing import Any
 from sqlalchemy import JSON, DateTime, Dialect, Float, ForeignKey, Index, Integer, MetaData, String, Text, TypeDecorator, UniqueConstraint, event
 from sqlalchemy.orm import DeclarativeBase, Mapped, Session, mapped_column, relationship
 
+from feasibility.documents.times import as_utc
+
 __all__ = [
     "APPEND_ONLY",
     "ApiToken",
@@ -72,11 +74,7 @@ class UTCDateTime(TypeDecorator[datetime]):
 
 
 def _as_utc(value: datetime | None) -> datetime | None:
-    if value is None:
-        return None
-    if value.tzinfo is None:
-        return value.replace(tzinfo=UTC)
-    return value.astimezone(UTC)
+    return None if value is None else as_utc(value)
 
 
 class Base(DeclarativeBase):

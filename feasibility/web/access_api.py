@@ -8,7 +8,7 @@ so the list still shows when each one stopped working.
 
 from __future__ import annotations
 
-from datetime import UTC, datetime
+from datetime import datetime
 from typing import Any
 
 from flask import Blueprint, abort, request
@@ -95,7 +95,7 @@ def token_json(token: ApiToken, user_name: str) -> dict[str, Any]:
 def _iso(moment: datetime | None) -> str | None:
     if moment is None:
         return None
-    return (moment if moment.tzinfo is not None else moment.replace(tzinfo=UTC)).isoformat()
+    return moment.isoformat()
 
 
 def _user(session: Session, name: str) -> User:

@@ -10,7 +10,7 @@ needs any role; changes are filtered to the proposals the caller may read.
 
 from __future__ import annotations
 
-from datetime import UTC, datetime, timedelta
+from datetime import datetime, timedelta
 from typing import Any
 
 from flask import Blueprint, abort, current_app, request
@@ -18,6 +18,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, DocumentTooLarge, Problem
+from feasibility.documents.times import as_utc
 from feasibility.service import access
 from feasibility.service.current import current_observatory, current_schedule, schedule_of
 from feasibility.service.recheck_answers import plan_answer, upload_answer, version_answer
@@ -210,9 +211,6 @@ def changes_since(
 
 def change_json(change: VerdictChange, record: ProposalRecord) -> dict[str, Any]:
     """One change as the API shows it."""
-    recorded = change.recorded_at
-    if recorded is not None and recorded.tzinfo is None:
-        recorded = recorded.replace(tzinfo=UTC)
     return {
         "id": change.id,
         "proposal_id": record.proposal_id,
@@ -221,7 +219,7 @@ def change_json(change: VerdictChange, record: ProposalRecord) -> dict[str, Any]
         "previous_run_id": change.previous_run_id,
         "verdict_before": change.verdict_before,
         "verdict_after": change.verdict_after,
-        "recorded_at": recorded.isoformat() if recorded is not None else None,
+        "recorded_at": change.recorded_at.isoformat(),
         "reason": (change.details or {}).get("reason"),
         "requests": (change.details or {}).get("requests", []),
         "links": {"run": f"/api/v1/runs/{change.run_id}", "proposal": f"/api/v1/proposals/{record.proposal_id}"},
@@ -256,9 +254,10 @@ def _parse_time(raw: Any, field: str) -> datetime | None:
         moment = datetime.fromisoformat(str(raw).replace(" ", "+") if "T" in str(raw) else str(raw))
     except ValueError:
         raise DocumentError([Problem(field, "must be an ISO 8601 time, e.g. 2027-05-01T00:00:00Z")], "query") from None
-    if moment.tzinfo is None:
-        moment = moment.replace(tzinfo=UTC)
-    return moment.astimezone(UTC)
+    try:
+        return as_utc(moment)
+    except ValueError as exc:
+        raise DocumentError([Problem(field, str(exc))], "query") from None
 
 
 def _schedule_version(session: Session, semester: str, arg: str) -> ScheduleVersion | None:

@@ -383,5 +383,4 @@ def _bad_query(field: str, problem: str) -> Any:
 def _iso(moment: Any) -> str | None:
     if moment is None:
         return None
-    text = moment.isoformat()
-    return text if moment.tzinfo is not None else text + "+00:00"
+    return str(moment.isoformat())

@@ -144,5 +144,4 @@ def _actor_and_record(session: Session, proposal_id: str) -> tuple[User, Proposa
 
 
 def _iso(moment: Any) -> str:
-    text = moment.isoformat()
-    return text if moment.tzinfo is not None else text + "+00:00"
+    return str(moment.isoformat())

@@ -16,7 +16,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
+from datetime import datetime, timedelta
 from typing import Any
 
 from sqlalchemy import delete, func, select
@@ -84,8 +84,5 @@ def _failures(db: Session, column: InstrumentedAttribute[str], key: str, since: 
     count, latest = db.execute(
         select(func.count(), func.max(SignInFailure.failed_at)).where(column == key[:200], SignInFailure.failed_at > since)
     ).one()
-    if isinstance(latest, str):  # SQLite gives the max of a DateTime column back as text
-        latest = datetime.fromisoformat(latest)
-    if latest is not None and latest.tzinfo is None:
-        latest = latest.replace(tzinfo=UTC)  # every stored time is UTC
+    # max() of a UTCDateTime column has the column's type, so it comes back timezone-aware on every store.
     return int(count or 0), latest

@@ -38,11 +38,9 @@ def hours(value: Any) -> str:
 
 
 def when(value: datetime | None) -> str:
-    """A stored time as ``2027-04-02 21:05 UTC``."""
+    """A stored time (timezone-aware, as the store gives it) as ``2027-04-02 21:05 UTC``."""
     if value is None:
         return "—"
-    if value.tzinfo is None:
-        value = value.replace(tzinfo=UTC)
     return value.astimezone(UTC).strftime("%Y-%m-%d %H:%M UTC")
 
 

@@ -11,7 +11,6 @@ observation request its verdict and key figures (``RequestOutcome`` columns).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
 from typing import Any
 
 from sqlalchemy import select
@@ -49,13 +48,6 @@ class RunEntry:
     version_number: int
     changes: list[Change] = field(default_factory=list)
     compared_with: int | None = None
-
-    @property
-    def finished_at(self) -> datetime | None:
-        moment = self.run.finished_at
-        if moment is not None and moment.tzinfo is None:
-            moment = moment.replace(tzinfo=UTC)
-        return moment
 
 
 def run_history(session: Session, record: ProposalRecord) -> list[RunEntry]:

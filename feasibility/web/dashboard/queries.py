@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Generator
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
+from datetime import datetime
 from typing import Any
 
 from sqlalchemy import Select, and_, case, exists, func, literal, or_, select
@@ -329,7 +329,7 @@ def _row(values: Any) -> ProposalRow:
         instruments=[name for name in (values.instruments or "").replace(" ", "").split(",") if name],
         hours_requested=float(values.hours_requested or 0.0),
         verdict=values.verdict,
-        checked_at=_aware(values.checked_at),
+        checked_at=values.checked_at,
         previous_verdict=values.previous_verdict,
         run_id=values.run_id,
         pending=bool(values.pending),
@@ -341,13 +341,6 @@ def _row(values: Any) -> ProposalRow:
 
 def _like_escape(text: str) -> str:
     return text.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
-
-
-def _aware(moment: datetime | None) -> datetime | None:
-    """SQLite gives naive UTC times back; make them aware."""
-    if moment is not None and moment.tzinfo is None:
-        return moment.replace(tzinfo=UTC)
-    return moment
 
 
 def _int(value: Any, default: int) -> int:
