@@ -137,8 +137,16 @@ def _checked_demo_store():  # type: ignore[no-untyped-def]
     from feasibility.web import create_app
 
     home = Path(tempfile.mkdtemp())
-    app = create_app({"SECRET_KEY": "bench", "DATABASE_URL": f"sqlite:///{home / 'packet.sqlite'}", "CREATE_TABLES": True,
-                      "BROKER_URL": None, "SWEEP_INTERVAL_S": 0, "EMBEDDED_WORKERS": 0})
+    app = create_app(
+        {
+            "SECRET_KEY": "bench",
+            "DATABASE_URL": f"sqlite:///{home / 'packet.sqlite'}",
+            "CREATE_TABLES": True,
+            "BROKER_URL": None,
+            "SWEEP_INTERVAL_S": 0,
+            "EMBEDDED_WORKERS": 0,
+        }
+    )
     started = time.perf_counter()
     with app.app_context():
         with session_scope() as session:
@@ -177,15 +185,23 @@ class _MatplotlibPages:
     def heading(self, text: str, size: float = 15) -> None:
         self.line(text, size=size, weight="bold")
 
-    def line(self, text: str, *, size: float = 9.5, weight: str = "normal", indent: float = 0.0, mono: bool = False,
-             colour: str = "#111111", space_after: float = 0.0) -> None:
+    def line(
+        self,
+        text: str,
+        *,
+        size: float = 9.5,
+        weight: str = "normal",
+        indent: float = 0.0,
+        mono: bool = False,
+        colour: str = "#111111",
+        space_after: float = 0.0,
+    ) -> None:
         width = int((0.84 - indent) * 8.27 * 72 / (size * (0.6 if mono else 0.52)))
         for part in textwrap.wrap(text, width=max(width, 20)) or [""]:
             step = size * 1.4 / 72 / 11.69
             self._room(step)
             assert self._fig is not None
-            self._fig.text(0.08 + indent, self._y, part, fontsize=size, weight=weight, va="top", color=colour,
-                           family="monospace" if mono else "sans-serif")
+            self._fig.text(0.08 + indent, self._y, part, fontsize=size, weight=weight, va="top", color=colour, family="monospace" if mono else "sans-serif")
             self._y -= step
         self._y -= space_after * size / 72 / 11.69
 
@@ -228,9 +244,17 @@ def _fill(session: Session, n: int) -> int:
     session.execute(
         insert(ProposalVersion),
         [
-            {"id": i + 1, "proposal_ref": i + 1, "content_hash": f"{i:064d}", "document": {}, "title": f"Invented programme {i}",
-             "pi_name": f"Person {i % 700}", "instruments": rng.choice(["KESTREL", "HERON", "OWL", "HERON,KESTREL"]),
-             "targets": f"Field {i}\nField {i}b", "hours_requested": round(rng.uniform(0.5, 30), 1)}
+            {
+                "id": i + 1,
+                "proposal_ref": i + 1,
+                "content_hash": f"{i:064d}",
+                "document": {},
+                "title": f"Invented programme {i}",
+                "pi_name": f"Person {i % 700}",
+                "instruments": rng.choice(["KESTREL", "HERON", "OWL", "HERON,KESTREL"]),
+                "targets": f"Field {i}\nField {i}b",
+                "hours_requested": round(rng.uniform(0.5, 30), 1),
+            }
             for i in range(n)
         ],
     )
@@ -239,13 +263,33 @@ def _fill(session: Session, n: int) -> int:
         for k in range(2):  # an older and a newer finished run
             run_id = 2 * i + k + 1
             verdict = rng.choice(LEVELS)
-            runs.append({"id": run_id, "proposal_version_id": i + 1, "observatory_version_id": observatory.id, "schedule_key": k,
-                         "engine_version": "bench", "state": "done", "verdict": verdict, "result": {},
-                         "finished_at": now - timedelta(days=2 - k)})
+            runs.append(
+                {
+                    "id": run_id,
+                    "proposal_version_id": i + 1,
+                    "observatory_version_id": observatory.id,
+                    "schedule_key": k,
+                    "engine_version": "bench",
+                    "state": "done",
+                    "verdict": verdict,
+                    "result": {},
+                    "finished_at": now - timedelta(days=2 - k),
+                }
+            )
             for r in range(2):
                 outcome_id = 2 * run_id + r
-                outcomes.append({"id": outcome_id, "run_id": run_id, "label": "ab"[r], "instrument": "KESTREL", "target": f"Field {i}",
-                                 "verdict": verdict, "hours_requested": 2.0, "figures": {}})
+                outcomes.append(
+                    {
+                        "id": outcome_id,
+                        "run_id": run_id,
+                        "label": "ab"[r],
+                        "instrument": "KESTREL",
+                        "target": f"Field {i}",
+                        "verdict": verdict,
+                        "hours_requested": 2.0,
+                        "figures": {},
+                    }
+                )
                 for check in CHECKS:
                     level = verdict if check == "moon" else "feasible"
                     findings.append({"outcome_id": outcome_id, "check": check, "level": level, "message": "m", "figures": {}})

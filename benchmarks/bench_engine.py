@@ -81,17 +81,24 @@ def main() -> None:
 
     started = time.perf_counter()
     grid = sky_grid(site.latitude_deg, site.longitude_deg, site.elevation_m, semester.first_night, semester.last_night)
-    print(f"sky grid {SEMESTER}: {grid.n_nights} nights, {grid.mjd.size} instants every {grid.step_minutes:g} min "
-          f"(Sun below the horizon); ready in {time.perf_counter() - started:.2f} s (cached on disk after the first run)")
+    print(
+        f"sky grid {SEMESTER}: {grid.n_nights} nights, {grid.mjd.size} instants every {grid.step_minutes:g} min "
+        f"(Sun below the horizon); ready in {time.perf_counter() - started:.2f} s (cached on disk after the first run)"
+    )
 
     rng = random.Random(args.seed)
     requests = [_random_request(rng, i) for i in range(args.requests)]
     proposals = [
-        parse_document(Proposal, {
-            "id": f"BENCH-{i // REQUESTS_PER_PROPOSAL:05d}", "semester": SEMESTER, "title": "benchmark",
-            "pi": {"name": "Bench Mark", "email": "bench@example.org"},
-            "requests": requests[i : i + REQUESTS_PER_PROPOSAL],
-        })
+        parse_document(
+            Proposal,
+            {
+                "id": f"BENCH-{i // REQUESTS_PER_PROPOSAL:05d}",
+                "semester": SEMESTER,
+                "title": "benchmark",
+                "pi": {"name": "Bench Mark", "email": "bench@example.org"},
+                "requests": requests[i : i + REQUESTS_PER_PROPOSAL],
+            },
+        )
         for i in range(0, len(requests), REQUESTS_PER_PROPOSAL)
     ]
 
@@ -136,11 +143,16 @@ def main() -> None:
             np.degrees(np.arcsin(view.up @ vector))
 
     moving = [
-        parse_document(Proposal, {
-            "id": f"MOVE-{i // REQUESTS_PER_PROPOSAL:05d}", "semester": SEMESTER, "title": "benchmark, moving targets",
-            "pi": {"name": "Bench Mark", "email": "bench@example.org"},
-            "requests": [_moving_request(rng, k, requests[k % len(requests)]) for k in range(i, min(i + REQUESTS_PER_PROPOSAL, args.moving))],
-        })
+        parse_document(
+            Proposal,
+            {
+                "id": f"MOVE-{i // REQUESTS_PER_PROPOSAL:05d}",
+                "semester": SEMESTER,
+                "title": "benchmark, moving targets",
+                "pi": {"name": "Bench Mark", "email": "bench@example.org"},
+                "requests": [_moving_request(rng, k, requests[k % len(requests)]) for k in range(i, min(i + REQUESTS_PER_PROPOSAL, args.moving))],
+            },
+        )
         for i in range(0, args.moving, REQUESTS_PER_PROPOSAL)
     ]
     moving_count = sum(len(p.requests) for p in moving)
@@ -170,8 +182,12 @@ def main() -> None:
     print(f"request verdicts: {verdicts}")
     print(f"full request checks (check_proposal, incl. exposure): {1.0 / full:10.0f} requests/s  ({full * 1e6:8.1f} us each, wall)")
     print(f"                                   same, CPU time:    {1.0 / full_cpu:10.0f} requests/s  ({full_cpu * 1e6:8.1f} us each)")
-    print(f"sky pass alone (measure_sky):                         {1.0 / sky_only:10.0f} requests/s  ({sky_only * 1e6:8.1f} us each, wall; {sky_cpu * 1e6:.1f} CPU)")
-    print(f"exposure assessment alone (assess_exposure):          {1.0 / exposure_only:10.0f} requests/s  ({exposure_only * 1e6:8.1f} us each, wall; {exposure_cpu * 1e6:.1f} CPU)")
+    print(
+        f"sky pass alone (measure_sky):                         {1.0 / sky_only:10.0f} requests/s  ({sky_only * 1e6:8.1f} us each, wall; {sky_cpu * 1e6:.1f} CPU)"
+    )
+    print(
+        f"exposure assessment alone (assess_exposure):          {1.0 / exposure_only:10.0f} requests/s  ({exposure_only * 1e6:8.1f} us each, wall; {exposure_cpu * 1e6:.1f} CPU)"
+    )
     print(f"altitude path alone (NumPy, cached grid):             {1.0 / altitude_only:10.0f} targets/s   ({altitude_only * 1e6:8.1f} us each)")
     print(f"astropy AltAz transform per target (same instants):   {1.0 / baseline:10.2f} targets/s   ({baseline * 1e3:8.1f} ms each)")
     print(f"\nspeed-up of the altitude path over astropy:   {baseline / altitude_only:10.0f}x   (goal >= 1000x)")
@@ -179,16 +195,24 @@ def main() -> None:
     print(f"max altitude difference vs astropy:            {worst_difference:10.4f} deg (goal <= 0.05 deg)")
     print(f"full request checks per second:                {1.0 / full:10.0f}    wall, {1.0 / full_cpu:.0f} CPU-time (goal >= 2000 on one core)")
     print(f"\nmoving-target request checks ({moving_count}: planets, orbital elements, ephemeris tables):")
-    print(f"  track already computed: {moving_warm * 1e6:8.1f} us each (CPU {moving_warm_cpu * 1e6:.1f}), "
-          f"{moving_warm / full:.2f}x a fixed target (CPU {moving_warm_cpu / full_cpu:.2f}x)  (goal <= 5x)")
-    print(f"  first sight of each:    {moving_cold * 1e6:8.1f} us each (CPU {moving_cold_cpu * 1e6:.1f}), "
-          f"{moving_cold / full:.2f}x a fixed target (CPU {moving_cold_cpu / full_cpu:.2f}x)  (goal <= 5x)")
-    print(f"load average (1 min) before and after the timed rounds: {load_before:.1f}, {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores "
-          "(other work slows every figure)")
+    print(
+        f"  track already computed: {moving_warm * 1e6:8.1f} us each (CPU {moving_warm_cpu * 1e6:.1f}), "
+        f"{moving_warm / full:.2f}x a fixed target (CPU {moving_warm_cpu / full_cpu:.2f}x)  (goal <= 5x)"
+    )
+    print(
+        f"  first sight of each:    {moving_cold * 1e6:8.1f} us each (CPU {moving_cold_cpu * 1e6:.1f}), "
+        f"{moving_cold / full:.2f}x a fixed target (CPU {moving_cold_cpu / full_cpu:.2f}x)  (goal <= 5x)"
+    )
+    print(
+        f"load average (1 min) before and after the timed rounds: {load_before:.1f}, {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores "
+        "(other work slows every figure)"
+    )
     per_proposal = stored_bytes / len(proposals)
     print(f"\npeak resident memory of this process (engine, grid and caches; before the astropy baseline): {peak_mb:.0f} MB")
-    print(f"stored result JSON per proposal ({REQUESTS_PER_PROPOSAL} requests): {per_proposal / 1024:.1f} KB "
-          f"({per_proposal / REQUESTS_PER_PROPOSAL / 1024:.1f} KB per request; {per_proposal * 1000 / 1024**2:.0f} MB per 1,000 proposals)")
+    print(
+        f"stored result JSON per proposal ({REQUESTS_PER_PROPOSAL} requests): {per_proposal / 1024:.1f} KB "
+        f"({per_proposal / REQUESTS_PER_PROPOSAL / 1024:.1f} KB per request; {per_proposal * 1000 / 1024**2:.0f} MB per 1,000 proposals)"
+    )
 
 
 def _best_of(work: Any, count: int, rounds: int) -> tuple[float, float]:
@@ -231,22 +255,41 @@ def _moving_request(rng: random.Random, i: int, like: dict[str, Any]) -> dict[st
         request["target"] = {"kind": "major_body", "name": body.capitalize(), "body": body}
     elif kind < 0.75:
         elements: dict[str, Any] = {
-            "kind": "orbital_elements", "name": f"invented body {i}", "epoch": "2027-06-01",
-            "inclination": rng.uniform(0.0, 30.0), "ascending_node_longitude": rng.uniform(0.0, 359.0),
+            "kind": "orbital_elements",
+            "name": f"invented body {i}",
+            "epoch": "2027-06-01",
+            "inclination": rng.uniform(0.0, 30.0),
+            "ascending_node_longitude": rng.uniform(0.0, 359.0),
             "perihelion_argument": rng.uniform(0.0, 359.0),
         }
         if rng.random() < 0.7:
-            elements |= {"semi_major_axis": rng.uniform(1.5, 3.5), "eccentricity": rng.uniform(0.0, 0.3),
-                         "mean_anomaly": rng.uniform(0.0, 359.0), "absolute_magnitude": rng.uniform(10.0, 17.0)}
+            elements |= {
+                "semi_major_axis": rng.uniform(1.5, 3.5),
+                "eccentricity": rng.uniform(0.0, 0.3),
+                "mean_anomaly": rng.uniform(0.0, 359.0),
+                "absolute_magnitude": rng.uniform(10.0, 17.0),
+            }
         else:
-            elements |= {"perihelion_distance": rng.uniform(0.5, 2.5), "eccentricity": rng.uniform(0.9, 1.05),
-                         "perihelion_time": f"2027-0{rng.randint(4, 9)}-15", "total_absolute_magnitude": rng.uniform(6.0, 14.0),
-                         "total_magnitude_slope": 10.0}
+            elements |= {
+                "perihelion_distance": rng.uniform(0.5, 2.5),
+                "eccentricity": rng.uniform(0.9, 1.05),
+                "perihelion_time": f"2027-0{rng.randint(4, 9)}-15",
+                "total_absolute_magnitude": rng.uniform(6.0, 14.0),
+                "total_magnitude_slope": 10.0,
+            }
         request["target"] = elements
     else:
         ra, dec, drift = rng.uniform(0.0, 359.0), rng.uniform(-60.0, 20.0), rng.uniform(-0.5, 0.5)
-        rows = [{"time": f"2027-{month:02d}-{day:02d}T00:00:00Z", "ra": (ra + drift * (30 * (month - 3) + day)) % 360.0,
-                 "dec": dec, "magnitude": 17.0 + 0.1 * month} for month in range(3, 11) for day in (1, 11, 21)]
+        rows = [
+            {
+                "time": f"2027-{month:02d}-{day:02d}T00:00:00Z",
+                "ra": (ra + drift * (30 * (month - 3) + day)) % 360.0,
+                "dec": dec,
+                "magnitude": 17.0 + 0.1 * month,
+            }
+            for month in range(3, 11)
+            for day in (1, 11, 21)
+        ]
         request["target"] = {"kind": "ephemeris_table", "name": f"table body {i}", "ephemeris_table": rows}
     return request
 

@@ -85,19 +85,26 @@ def _semester(count: int, rng: random.Random) -> list[dict[str, Any]]:
         requests = []
         for j, name in enumerate(instruments):
             setup, band = setups[name]
-            requests.append({
-                "label": f"r{j}",
-                "target": {"name": f"Bench target {i}-{j}", "ra": round(rng.uniform(0, 359.9), 4), "dec": round(rng.uniform(-80, 20), 4)},
-                "instrument": name,
-                "setup": dict(setup),
-                "brightness": {"magnitude": round(rng.uniform(12, 20), 2), "band": band},
-                "goal": {"snr": rng.choice([10, 20, 50])},
-                "hours_requested": rng.choice([1.0, 2.0, 4.0, 8.0]),
-            })
-        documents.append({
-            "id": f"BENCH-{i:05d}", "semester": "2027A", "title": f"Bench proposal {i}",
-            "pi": {"name": "Bench Person", "email": "bench@example.org"}, "requests": requests,
-        })
+            requests.append(
+                {
+                    "label": f"r{j}",
+                    "target": {"name": f"Bench target {i}-{j}", "ra": round(rng.uniform(0, 359.9), 4), "dec": round(rng.uniform(-80, 20), 4)},
+                    "instrument": name,
+                    "setup": dict(setup),
+                    "brightness": {"magnitude": round(rng.uniform(12, 20), 2), "band": band},
+                    "goal": {"snr": rng.choice([10, 20, 50])},
+                    "hours_requested": rng.choice([1.0, 2.0, 4.0, 8.0]),
+                }
+            )
+        documents.append(
+            {
+                "id": f"BENCH-{i:05d}",
+                "semester": "2027A",
+                "title": f"Bench proposal {i}",
+                "pi": {"name": "Bench Person", "email": "bench@example.org"},
+                "requests": requests,
+            }
+        )
     return documents
 
 
@@ -142,9 +149,11 @@ def _rechecks_of_all() -> list[int]:
     from feasibility.service.rechecks import plan_rechecks
     from feasibility.store.db import session_scope
 
-    with mock.patch("feasibility.service.rechecks.engine_version", lambda: "bench-all"), \
-            mock.patch("feasibility.service.submissions.engine_version", lambda: "bench-all"), \
-            session_scope() as session:
+    with (
+        mock.patch("feasibility.service.rechecks.engine_version", lambda: "bench-all"),
+        mock.patch("feasibility.service.submissions.engine_version", lambda: "bench-all"),
+        session_scope() as session,
+    ):
         return plan_rechecks(session, triggers={"engine"}).run_ids
 
 
@@ -163,8 +172,11 @@ def _warm_up(document: dict[str, Any]) -> None:
     from feasibility.service.runs import check
 
     data = resources.files("feasibility") / "data"
-    check(parse_document(Proposal, document), load_document(Observatory, data / "observatory.yaml"),
-          load_document(InstrumentSchedule, data / "schedule-2027A.yaml"))
+    check(
+        parse_document(Proposal, document),
+        load_document(Observatory, data / "observatory.yaml"),
+        load_document(InstrumentSchedule, data / "schedule-2027A.yaml"),
+    )
 
 
 def _use_stand_in() -> None:
@@ -172,11 +184,21 @@ def _use_stand_in() -> None:
     from feasibility.results import Level, ProposalResult, RequestResult
 
     def stand_in(proposal: Any, observatory: Any, schedule: Any) -> ProposalResult:
-        requests = [RequestResult(label=r.label, instrument=r.instrument, target=r.target.name, verdict=Level.FEASIBLE,
-                                  findings=[], figures={"hours_observable": 10.0}) for r in proposal.requests]
-        return ProposalResult(proposal_id=proposal.id, semester=proposal.semester, verdict=Level.FEASIBLE, requests=requests,
-                              engine_version="stand-in", observatory=observatory.name, observatory_version=observatory.version,
-                              schedule_version=schedule.version if schedule else None, computed_at="2027-01-01T00:00:00+00:00")
+        requests = [
+            RequestResult(label=r.label, instrument=r.instrument, target=r.target.name, verdict=Level.FEASIBLE, findings=[], figures={"hours_observable": 10.0})
+            for r in proposal.requests
+        ]
+        return ProposalResult(
+            proposal_id=proposal.id,
+            semester=proposal.semester,
+            verdict=Level.FEASIBLE,
+            requests=requests,
+            engine_version="stand-in",
+            observatory=observatory.name,
+            observatory_version=observatory.version,
+            schedule_version=schedule.version if schedule else None,
+            computed_at="2027-01-01T00:00:00+00:00",
+        )
 
     runs.check = stand_in  # type: ignore[assignment]
 

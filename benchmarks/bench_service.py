@@ -91,16 +91,25 @@ def main() -> None:
         print(f"ratio service / ideal         {done_s / ideal:.2f}  (goal: at most 3)")
     service_cpu = cpu["web"] + cpu["workers"] + cpu["PostgreSQL"]
     # Load from other programmes slows the service and the baseline alike but not evenly; CPU time is not slowed.
-    print(f"CPU ratio                     {service_cpu / len(proposals) / baseline_cpu_s:.2f}  (web, workers and PostgreSQL CPU per proposal "
-          f"over the engine's {baseline_cpu_s * 1000:.0f} ms in-process)")
+    print(
+        f"CPU ratio                     {service_cpu / len(proposals) / baseline_cpu_s:.2f}  (web, workers and PostgreSQL CPU per proposal "
+        f"over the engine's {baseline_cpu_s * 1000:.0f} ms in-process)"
+    )
     print("peak memory per worker process " + ", ".join(f"{mb:.0f} MB" for mb in memory) + " (VmHWM; the first is Celery's parent)")
     per_thousand = 1000.0 / (len(proposals) + service.warmed)
-    print(f"stored result JSON            {sizes['result_bytes'] / 1024:.1f} KB per proposal as text, {sizes['result_disk'] / 1024:.1f} KB on disk "
-          "(pg_column_size, compressed; mean over done runs)")
-    print(f"database per 1,000 proposals  {sizes['total'] * per_thousand / 1024**2:.0f} MB (all tables with indexes and TOAST; "
-          + ", ".join(f"{name} {size * per_thousand / 1024**2:.0f} MB" for name, size in sizes["tables"][:4]) + ")")
-    print(f"goals: none lost {'met' if lost == 0 else 'MISSED'}, none duplicated {'met' if duplicated == 0 else 'MISSED'}, "
-          f"within 60 s {'met' if done_s <= 60 else 'MISSED'}")
+    print(
+        f"stored result JSON            {sizes['result_bytes'] / 1024:.1f} KB per proposal as text, {sizes['result_disk'] / 1024:.1f} KB on disk "
+        "(pg_column_size, compressed; mean over done runs)"
+    )
+    print(
+        f"database per 1,000 proposals  {sizes['total'] * per_thousand / 1024**2:.0f} MB (all tables with indexes and TOAST; "
+        + ", ".join(f"{name} {size * per_thousand / 1024**2:.0f} MB" for name, size in sizes["tables"][:4])
+        + ")"
+    )
+    print(
+        f"goals: none lost {'met' if lost == 0 else 'MISSED'}, none duplicated {'met' if duplicated == 0 else 'MISSED'}, "
+        f"within 60 s {'met' if done_s <= 60 else 'MISSED'}"
+    )
 
 
 def invented_proposals(count: int, rng: random.Random) -> list[dict[str, Any]]:
@@ -200,19 +209,57 @@ class Service:
 
         upgrade(self.url)
         env = {k: v for k, v in os.environ.items() if not k.startswith("FEASIBILITY_") or k == "FEASIBILITY_CACHE_DIR"}
-        env.update(DATABASE_URL=self.url, BROKER_URL=REDIS_URL, FEASIBILITY_QUEUE_PREFIX=self.prefix, FEASIBILITY_SWEEP_INTERVAL_S="30",
-                   # The benchmark measures throughput with one token: its submissions must not meet the per-token rate limit.
-                   FEASIBILITY_RATE_LIMIT_SUBMISSIONS_PER_TOKEN="1000000 per minute")
+        env.update(
+            DATABASE_URL=self.url,
+            BROKER_URL=REDIS_URL,
+            FEASIBILITY_QUEUE_PREFIX=self.prefix,
+            FEASIBILITY_SWEEP_INTERVAL_S="30",
+            # The benchmark measures throughput with one token: its submissions must not meet the per-token rate limit.
+            FEASIBILITY_RATE_LIMIT_SUBMISSIONS_PER_TOKEN="1000000 per minute",
+        )
         # One process per core already: keep NumPy's BLAS from starting threads of its own in each.
         env.update(OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1", MKL_NUM_THREADS="1")
         self.env = env
         bin_dir = Path(sys.executable).parent
         port = _free_port()
         self.base_url = f"http://127.0.0.1:{port}"
-        self._spawn([str(bin_dir / "celery"), "-A", "worker.celery_app", "worker", "--pool", "prefork", "-c", str(self.concurrency),
-                     "--loglevel", "WARNING", "-n", f"{self.prefix}@%h", "--without-gossip", "--without-mingle", "--without-heartbeat"], "worker")
-        self._spawn([str(bin_dir / "gunicorn"), "--bind", f"127.0.0.1:{port}", "--workers", str(self.web_workers), "--threads", "8",
-                     "--timeout", "120", "--log-level", "warning", "feasibility.web:create_app()"], "web")
+        self._spawn(
+            [
+                str(bin_dir / "celery"),
+                "-A",
+                "worker.celery_app",
+                "worker",
+                "--pool",
+                "prefork",
+                "-c",
+                str(self.concurrency),
+                "--loglevel",
+                "WARNING",
+                "-n",
+                f"{self.prefix}@%h",
+                "--without-gossip",
+                "--without-mingle",
+                "--without-heartbeat",
+            ],
+            "worker",
+        )
+        self._spawn(
+            [
+                str(bin_dir / "gunicorn"),
+                "--bind",
+                f"127.0.0.1:{port}",
+                "--workers",
+                str(self.web_workers),
+                "--threads",
+                "8",
+                "--timeout",
+                "120",
+                "--log-level",
+                "warning",
+                "feasibility.web:create_app()",
+            ],
+            "web",
+        )
         deadline = time.monotonic() + 60
         while True:
             try:
@@ -280,15 +327,16 @@ class Service:
         from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, RequestOutcome
 
         with self.db.connect() as connection:
-            done = dict(connection.execute(
-                select(ProposalRecord.proposal_id, func.count(CheckRun.id))
-                .join(ProposalVersion, ProposalVersion.proposal_ref == ProposalRecord.id)
-                .join(CheckRun, CheckRun.proposal_version_id == ProposalVersion.id)
-                .where(CheckRun.state == "done").group_by(ProposalRecord.proposal_id)
-            ).all())
-            outcomes = dict(connection.execute(
-                select(RequestOutcome.run_id, func.count()).group_by(RequestOutcome.run_id)
-            ).all())
+            done = dict(
+                connection.execute(
+                    select(ProposalRecord.proposal_id, func.count(CheckRun.id))
+                    .join(ProposalVersion, ProposalVersion.proposal_ref == ProposalRecord.id)
+                    .join(CheckRun, CheckRun.proposal_version_id == ProposalVersion.id)
+                    .where(CheckRun.state == "done")
+                    .group_by(ProposalRecord.proposal_id)
+                ).all()
+            )
+            outcomes = dict(connection.execute(select(RequestOutcome.run_id, func.count()).group_by(RequestOutcome.run_id)).all())
             failed = connection.execute(select(func.count()).select_from(CheckRun).where(CheckRun.state == "failed")).scalar() or 0
         lost = sum(1 for p in proposals if done.get(p["id"], 0) == 0)
         duplicated = sum(n - 1 for n in done.values() if n > 1) + sum(1 for n in outcomes.values() if n > REQUESTS_PER_PROPOSAL)
@@ -312,16 +360,22 @@ class Service:
         """Bytes on disk: every table (pg_total_relation_size: data, indexes, TOAST), the largest first, and the mean
         stored result JSON of the done runs."""
         with self.db.connect() as connection:
-            rows = connection.execute(text(
-                "SELECT c.relname, pg_total_relation_size(c.oid) FROM pg_class c JOIN pg_namespace n ON n.oid = c.relnamespace "
-                "WHERE c.relkind = 'r' AND n.nspname = 'public' ORDER BY 2 DESC"
-            )).all()
-            result_bytes, result_disk = connection.execute(text(
-                "SELECT avg(octet_length(result::text)), avg(pg_column_size(result)) FROM check_runs WHERE state = 'done'"
-            )).one()
+            rows = connection.execute(
+                text(
+                    "SELECT c.relname, pg_total_relation_size(c.oid) FROM pg_class c JOIN pg_namespace n ON n.oid = c.relnamespace "
+                    "WHERE c.relkind = 'r' AND n.nspname = 'public' ORDER BY 2 DESC"
+                )
+            ).all()
+            result_bytes, result_disk = connection.execute(
+                text("SELECT avg(octet_length(result::text)), avg(pg_column_size(result)) FROM check_runs WHERE state = 'done'")
+            ).one()
         tables = [(str(name), int(size)) for name, size in rows]
-        return {"tables": tables, "total": sum(size for _, size in tables), "result_bytes": float(result_bytes or 0.0),
-                "result_disk": float(result_disk or 0.0)}
+        return {
+            "tables": tables,
+            "total": sum(size for _, size in tables),
+            "result_bytes": float(result_bytes or 0.0),
+            "result_disk": float(result_disk or 0.0),
+        }
 
     def __exit__(self, *exc: object) -> None:
         for process in self.processes:

@@ -63,11 +63,16 @@ def main() -> None:
 
     rng = random.Random(args.seed)
     proposals = [
-        parse_document(Proposal, {
-            "id": f"BENCH-{p:04d}", "semester": SEMESTER, "title": "benchmark",
-            "pi": {"name": "Bench Mark", "email": "bench@example.org"},
-            "requests": [_random_request(rng, p * REQUESTS_PER_PROPOSAL + i) for i in range(REQUESTS_PER_PROPOSAL)],
-        })
+        parse_document(
+            Proposal,
+            {
+                "id": f"BENCH-{p:04d}",
+                "semester": SEMESTER,
+                "title": "benchmark",
+                "pi": {"name": "Bench Mark", "email": "bench@example.org"},
+                "requests": [_random_request(rng, p * REQUESTS_PER_PROPOSAL + i) for i in range(REQUESTS_PER_PROPOSAL)],
+            },
+        )
         for p in range(args.proposals)
     ]
     ranks = {p.id: float(rng.randint(1, 4)) for p in proposals}
@@ -78,8 +83,10 @@ def main() -> None:
     climate = night_climate(observatory, grid.night_months)
     prepare = (time.perf_counter() - started, time.process_time() - cpu)
     candidates = sum(c.size for c in plan.candidates)
-    print(f"semester {SEMESTER}: {len(proposals)} proposals, {plan.n_requests} requests, {plan.n_slots} slots, "
-          f"{candidates / max(1, plan.n_slots):.1f} candidate requests per slot on average")
+    print(
+        f"semester {SEMESTER}: {len(proposals)} proposals, {plan.n_requests} requests, {plan.n_slots} slots, "
+        f"{candidates / max(1, plan.n_slots):.1f} candidate requests per slot on average"
+    )
     print(f"prepare (engine checks + slots): {prepare[0]:7.2f} s wall, {prepare[1]:7.2f} s CPU")
 
     load_before = os.getloadavg()[0]
@@ -88,8 +95,10 @@ def main() -> None:
     summary = summarise(plan, items, outcomes, left_out)
     simulate = (time.perf_counter() - started, time.process_time() - cpu)
     print(f"{args.realisations} realisations, vectorised (NumPy):  {simulate[0]:7.2f} s wall, {simulate[1]:7.2f} s CPU")
-    print(f"prepare + realisations:                     {prepare[0] + simulate[0]:7.2f} s wall "
-          f"(goal: 1,000 realisations of a 200-proposal semester in at most 60 s)")
+    print(
+        f"prepare + realisations:                     {prepare[0] + simulate[0]:7.2f} s wall "
+        f"(goal: 1,000 realisations of a 200-proposal semester in at most 60 s)"
+    )
 
     # The plain Python loop over realisations, on the same weather as the vectorised dispatcher.
     generator = np.random.default_rng(args.seed)
@@ -97,23 +106,23 @@ def main() -> None:
     lottery = draw_lottery(plan.n_requests, args.loop_realisations, generator)
     vectorised = dispatch(plan, weather, lottery, slot_order(plan)).hours_obtained
     started, cpu = time.perf_counter(), time.process_time()
-    looped = [
-        dispatch_one(plan, weather.clear[r].tolist(), weather.ln_seeing[r].tolist(), lottery[r].tolist())
-        for r in range(args.loop_realisations)
-    ]
+    looped = [dispatch_one(plan, weather.clear[r].tolist(), weather.ln_seeing[r].tolist(), lottery[r].tolist()) for r in range(args.loop_realisations)]
     loop = (time.perf_counter() - started, time.process_time() - cpu)
     scale = args.realisations / args.loop_realisations
     assert np.allclose(np.array(looped), vectorised), "the plain loop and the vectorised dispatcher disagree"
     started, cpu = time.perf_counter(), time.process_time()
     dispatch(plan, weather, lottery, slot_order(plan))
     small = (time.perf_counter() - started, time.process_time() - cpu)
-    print(f"plain Python loop, {args.loop_realisations} realisations: {loop[0]:7.2f} s wall, {loop[1]:7.2f} s CPU; "
-          f"scaled to {args.realisations}: {loop[1] * scale:8.1f} s CPU (same hours as the vectorised dispatcher: yes)")
-    print(f"speed ratio, vectorised over the plain loop at {args.realisations} realisations: {loop[1] * scale / simulate[1]:6.1f}x CPU "
-          f"(dispatch alone on {args.loop_realisations} realisations: {small[1]:.2f} s CPU)")
+    print(
+        f"plain Python loop, {args.loop_realisations} realisations: {loop[0]:7.2f} s wall, {loop[1]:7.2f} s CPU; "
+        f"scaled to {args.realisations}: {loop[1] * scale:8.1f} s CPU (same hours as the vectorised dispatcher: yes)"
+    )
+    print(
+        f"speed ratio, vectorised over the plain loop at {args.realisations} realisations: {loop[1] * scale / simulate[1]:6.1f}x CPU "
+        f"(dispatch alone on {args.loop_realisations} realisations: {small[1]:.2f} s CPU)"
+    )
     complete = [row["chance_of_completion"] for row in summary["requests"]]
-    print(f"requests: mean chance of completion {np.mean(complete):.3f}; "
-          f"{sum(c >= 0.9 for c in complete)} of {len(complete)} at 0.9 or more")
+    print(f"requests: mean chance of completion {np.mean(complete):.3f}; {sum(c >= 0.9 for c in complete)} of {len(complete)} at 0.9 or more")
     print(f"load average (1 min) before and after: {load_before:.1f}, {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
 
 

@@ -51,16 +51,81 @@ _AIM_LOG_HOURS = (math.log(0.6), math.log(6.0))
 #: Rounds of moving the targets' magnitudes towards their aimed-at needs (each one engine check of the moved drafts).
 _BRIGHTNESS_ROUNDS = 3
 
-_GIVEN = ("Ilona", "Tavi", "Marek", "Oona", "Rafi", "Selin", "Bruno", "Keziah", "Anouk", "Dario", "Lumi", "Femke",
-          "Ostap", "Yara", "Caio", "Nell", "Ivo", "Zaida", "Pim", "Rhea", "Teodor", "Ines", "Kaito", "Maren")
-_FAMILY = ("Varnholt", "Quenby", "Lisandru", "Okavé", "Brennick", "Tamsort", "Villaro", "Haskeld", "Moravy", "Ferrent",
-           "Oduya", "Castrel", "Nieminô", "Pellago", "Drossel", "Ambrin", "Kellisto", "Sorvane", "Uttley", "Marwick")
-_PLACES = ("Institute of Invented Astrophysics", "Observatorio de la Meseta (invented)", "Lakeshore Physics School (invented)",
-           "Northfold University (invented)", "Centro de Cielo Austral (invented)")
-_TOPICS = ("Variable stars in", "Star formation across", "Chemical abundances in", "Faint companions in",
-           "Dust and gas in", "Rotation curves of", "Transients in", "Stellar populations of")
-_SUBJECTS = ("a southern field", "the outer disc of an invented spiral", "an invented open cluster", "a dwarf galaxy field",
-             "a high-latitude cloud", "an invented group of galaxies", "a bulge window", "a young association")
+_GIVEN = (
+    "Ilona",
+    "Tavi",
+    "Marek",
+    "Oona",
+    "Rafi",
+    "Selin",
+    "Bruno",
+    "Keziah",
+    "Anouk",
+    "Dario",
+    "Lumi",
+    "Femke",
+    "Ostap",
+    "Yara",
+    "Caio",
+    "Nell",
+    "Ivo",
+    "Zaida",
+    "Pim",
+    "Rhea",
+    "Teodor",
+    "Ines",
+    "Kaito",
+    "Maren",
+)
+_FAMILY = (
+    "Varnholt",
+    "Quenby",
+    "Lisandru",
+    "Okavé",
+    "Brennick",
+    "Tamsort",
+    "Villaro",
+    "Haskeld",
+    "Moravy",
+    "Ferrent",
+    "Oduya",
+    "Castrel",
+    "Nieminô",
+    "Pellago",
+    "Drossel",
+    "Ambrin",
+    "Kellisto",
+    "Sorvane",
+    "Uttley",
+    "Marwick",
+)
+_PLACES = (
+    "Institute of Invented Astrophysics",
+    "Observatorio de la Meseta (invented)",
+    "Lakeshore Physics School (invented)",
+    "Northfold University (invented)",
+    "Centro de Cielo Austral (invented)",
+)
+_TOPICS = (
+    "Variable stars in",
+    "Star formation across",
+    "Chemical abundances in",
+    "Faint companions in",
+    "Dust and gas in",
+    "Rotation curves of",
+    "Transients in",
+    "Stellar populations of",
+)
+_SUBJECTS = (
+    "a southern field",
+    "the outer disc of an invented spiral",
+    "an invented open cluster",
+    "a dwarf galaxy field",
+    "a high-latitude cloud",
+    "an invented group of galaxies",
+    "a bulge window",
+    "a young association",
+)
 _SKIES = ("dark", "grey", "bright", None)
 
 
@@ -172,9 +237,7 @@ def _request(rng: random.Random, index: int, kind: str) -> tuple[dict[str, Any],
     return request, sizing
 
 
-def _settle_brightness(
-    document: dict[str, Any], sizings: list[_Sizing], needs: dict[str, tuple[float | None, float | None]]
-) -> bool:
+def _settle_brightness(document: dict[str, Any], sizings: list[_Sizing], needs: dict[str, tuple[float | None, float | None]]) -> bool:
     """Move each target's magnitude towards its aimed-at need (hours ∝ flux⁻² when the sky dominates); True if any moved."""
     moved = False
     for request, sizing in zip(document["requests"], sizings, strict=True):
@@ -213,10 +276,7 @@ def _engine_for(semester: str) -> Any:
 
     def needs(document: dict[str, Any]) -> dict[str, tuple[float | None, float | None]]:
         result = check_proposal(parse_document(Proposal, document, "proposal"), observatory, schedule)
-        return {
-            item.label: (_positive(item.figures.get("hours_needed")), _positive(item.figures.get("hours_needed_typical")))
-            for item in result.requests
-        }
+        return {item.label: (_positive(item.figures.get("hours_needed")), _positive(item.figures.get("hours_needed_typical"))) for item in result.requests}
 
     return needs
 

@@ -44,7 +44,9 @@ class Settings(BaseModel):
 
     # The store and the broker.
     database_url: str | None = Field(None, description="The store (SQLAlchemy URL); DATABASE_URL. None: an SQLite file in `home`.")
-    broker_url: str | None = Field(None, description="The Celery broker (redis://...); BROKER_URL. None: check runs are computed by threads in the web process.")
+    broker_url: str | None = Field(
+        None, description="The Celery broker (redis://...); BROKER_URL. None: check runs are computed by threads in the web process."
+    )
     home: Path | None = Field(None, description="The instance folder (embedded SQLite store, session-signing key); FEASIBILITY_HOME. None: ./instance.")
     cache_dir: Path | None = Field(None, description="Sky grids and semester offers cached on disk; FEASIBILITY_CACHE_DIR. None: ~/.cache/feasibility.")
     migrations: Path | None = Field(None, description="The Alembic migrations folder; FEASIBILITY_MIGRATIONS. None: the one installed with the package.")

@@ -112,7 +112,7 @@ def cycle_in(graph: dict[str, set[str]]) -> list[str] | None:
         path.append(node)
         for nxt in sorted(graph.get(node, ())):
             if state.get(nxt) == 1:
-                return path[path.index(nxt):] + [nxt]
+                return path[path.index(nxt) :] + [nxt]
             if nxt not in state and (found := visit(nxt)) is not None:
                 return found
         path.pop()
@@ -137,8 +137,7 @@ def test_the_parts_form_no_cycle() -> None:
 
 
 def test_every_module_belongs_to_a_floor() -> None:
-    loose = [str(p.relative_to(ROOT)) for top in ("feasibility", "worker") for p in (ROOT / top).rglob("*.py")
-             if part_of(module_name(p, ROOT)) is None]
+    loose = [str(p.relative_to(ROOT)) for top in ("feasibility", "worker") for p in (ROOT / top).rglob("*.py") if part_of(module_name(p, ROOT)) is None]
     assert loose == []
 
 

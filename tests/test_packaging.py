@@ -23,13 +23,17 @@ def test_a_plain_install_migrates_a_database(tmp_path: Path) -> None:
     dist, site = tmp_path / "dist", tmp_path / "site"
     build = subprocess.run(
         [sys.executable, "-m", "pip", "wheel", "-q", "--no-deps", "--no-build-isolation", "-w", str(dist), str(ROOT)],
-        capture_output=True, text=True, cwd=tmp_path,
+        capture_output=True,
+        text=True,
+        cwd=tmp_path,
     )
     assert build.returncode == 0, build.stderr
     (wheel,) = dist.glob("feasibility-*.whl")
     install = subprocess.run(
         [sys.executable, "-m", "pip", "install", "-q", "--no-deps", "--no-index", "--target", str(site), str(wheel)],
-        capture_output=True, text=True, cwd=tmp_path,
+        capture_output=True,
+        text=True,
+        cwd=tmp_path,
     )
     assert install.returncode == 0, install.stderr
     database = tmp_path / "store.db"

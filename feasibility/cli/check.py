@@ -35,18 +35,22 @@ def register(main: click.Group) -> None:
 @click.command("check")
 @click.argument("proposal_path", metavar="PROPOSAL", type=click.Path(dir_okay=False, path_type=Path))
 @click.option(
-    "--observatory", "observatory_path", metavar="FILE", type=click.Path(dir_okay=False, path_type=Path),
+    "--observatory",
+    "observatory_path",
+    metavar="FILE",
+    type=click.Path(dir_okay=False, path_type=Path),
     help="Observatory description (YAML or JSON). Default: the packaged demo observatory.",
 )
 @click.option(
-    "--schedule", "schedule_path", metavar="FILE", type=click.Path(dir_okay=False, path_type=Path),
+    "--schedule",
+    "schedule_path",
+    metavar="FILE",
+    type=click.Path(dir_okay=False, path_type=Path),
     help="Instrument schedule. Default: the packaged demo schedule of the proposal's semester, if any.",
 )
 @click.option("--json", "as_json", is_flag=True, help="Print the full result as JSON instead of the report.")
 @click.pass_context
-def check(
-    ctx: click.Context, proposal_path: Path, observatory_path: Path | None, schedule_path: Path | None, as_json: bool
-) -> None:
+def check(ctx: click.Context, proposal_path: Path, observatory_path: Path | None, schedule_path: Path | None, as_json: bool) -> None:
     """Check the technical feasibility of the proposal in PROPOSAL (YAML or JSON)."""
     try:
         proposal, observatory, schedule, notes = _load_inputs(proposal_path, observatory_path, schedule_path)
@@ -69,7 +73,10 @@ def check(
 @click.command("schema")
 @click.argument("document", type=click.Choice(sorted(_SCHEMAS)))
 @click.option(
-    "--base-url", metavar="URL", envvar="FEASIBILITY_PUBLIC_URL", default=None,
+    "--base-url",
+    metavar="URL",
+    envvar="FEASIBILITY_PUBLIC_URL",
+    default=None,
     help="The service's public address, to make the schema's $id absolute (default: $FEASIBILITY_PUBLIC_URL, "
     "else the path /api/v1/schemas/DOCUMENT-VERSION.json).",
 )
@@ -81,8 +88,9 @@ def schema(document: str, base_url: str | None) -> None:
 @click.command("demo-files")
 @click.argument("directory", metavar="DIR", type=click.Path(file_okay=False, path_type=Path))
 @click.option("--force", is_flag=True, help="Overwrite files that already exist.")
-@click.option("--semester", "generated", is_flag=True,
-              help="Write the generated demo semester (about 150 invented proposals, the set `serve --demo` loads) instead.")
+@click.option(
+    "--semester", "generated", is_flag=True, help="Write the generated demo semester (about 150 invented proposals, the set `serve --demo` loads) instead."
+)
 @click.pass_context
 def demo_files(ctx: click.Context, directory: Path, force: bool, generated: bool) -> None:
     """Write the demo observatory, schedule and example proposals into DIR, to edit and check."""

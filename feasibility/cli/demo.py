@@ -57,8 +57,7 @@ def seed_demo_store() -> None:
     passwords = make_demo_people()
     for person in DEMO_PEOPLE:
         if person.name in passwords:
-            click.echo(f"Dashboard sign-in as {person.role} ({person.purpose}), shown once; keep it: "
-                       f"user {person.name!r}, password {passwords[person.name]!r}")
+            click.echo(f"Dashboard sign-in as {person.role} ({person.purpose}), shown once; keep it: user {person.name!r}, password {passwords[person.name]!r}")
     if passwords:
         click.echo("A new password for any of them: feasibility user set-password NAME")
 

@@ -34,7 +34,11 @@ def register(main: click.Group) -> None:
 
 
 _WAIT = click.option(
-    "--wait", "wait_s", type=click.FloatRange(0), default=None, metavar="SECONDS",
+    "--wait",
+    "wait_s",
+    type=click.FloatRange(0),
+    default=None,
+    metavar="SECONDS",
     help="Wait up to SECONDS for the queued re-checks (on the embedded store: compute them here).",
 )
 _JSON = click.option("--json", "as_json", is_flag=True, help="Print the outcome as JSON.")
@@ -74,11 +78,16 @@ def observatory_upload(path: Path, as_json: bool, wait_s: float | None) -> None:
 
 @click.command("recheck")
 @click.option(
-    "--changed-since", "changed_since", metavar="ISO-TIME", default=None,
+    "--changed-since",
+    "changed_since",
+    metavar="ISO-TIME",
+    default=None,
     help="Count schedule and observatory changes uploaded at or after this time only (e.g. 2027-05-01T03:00Z).",
 )
 @click.option(
-    "--stale-days", type=click.FloatRange(min=0, min_open=True), default=None,
+    "--stale-days",
+    type=click.FloatRange(min=0, min_open=True),
+    default=None,
     help="Re-check results older than this many days (default: FEASIBILITY_STALE_DAYS or 30).",
 )
 @_JSON
@@ -152,8 +161,7 @@ def _dispatch(runtime: Any, plan: Any, wait_s: float | None) -> None:
     dispatcher = runtime.dispatcher
     if dispatcher.mode == "embedded" and wait_s is None:
         click.echo(
-            f"{len(plan.run_ids)} re-checks wait in the store; a running `feasibility serve` computes them, "
-            "or pass --wait SECONDS to compute them now.",
+            f"{len(plan.run_ids)} re-checks wait in the store; a running `feasibility serve` computes them, or pass --wait SECONDS to compute them now.",
             err=True,
         )
         return
@@ -178,9 +186,7 @@ def _wait_for_runs(run_ids: list[int], wait_s: float) -> bool:
     deadline = time.monotonic() + wait_s
     while True:
         with session_scope(read_only=True) as session:  # a poll: never queue for SQLite's write lock
-            left = session.scalar(
-                select(func.count()).select_from(CheckRun).where(CheckRun.id.in_(run_ids), CheckRun.state.in_(["queued", "running"]))
-            )
+            left = session.scalar(select(func.count()).select_from(CheckRun).where(CheckRun.id.in_(run_ids), CheckRun.state.in_(["queued", "running"])))
         if not left:
             return True
         if time.monotonic() >= deadline:

@@ -18,7 +18,9 @@ __all__ = ["serve"]
 @click.option("--host", default="127.0.0.1", show_default=True, help="Address to listen on.")
 @click.option("--port", default=5000, show_default=True, type=click.IntRange(0, 65535), help="Port to listen on (0: any free port).")
 @click.option("--workers", default=2, show_default=True, type=click.IntRange(1, 32), help="Embedded check workers (threads).")
-@click.option("--demo", is_flag=True, help="Also submit the demo proposals and a generated semester, and make a reviewer, a proposer and an admin to sign in as.")
+@click.option(
+    "--demo", is_flag=True, help="Also submit the demo proposals and a generated semester, and make a reviewer, a proposer and an admin to sign in as."
+)
 def serve(host: str, port: int, workers: int, demo: bool) -> None:
     """Run the service on this machine: store (SQLite by default), embedded workers, API and pages.
 
@@ -51,8 +53,10 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
     mode = "Celery workers via BROKER_URL" if app.config["BROKER_URL"] else f"{workers} embedded workers"
     click.echo(f"Serving on http://{host}:{server.server_port}/  (dashboard: /, API: /api/v1, store: {safe_url(app.config['DATABASE_URL'])}, {mode})")
     if app.config["SESSION_COOKIE_SECURE"]:
-        click.echo("The dashboard's cookie is sent over https only: sign in through an https proxy, "
-                   "or set FEASIBILITY_SESSION_COOKIE_SECURE=false on a closed network.")
+        click.echo(
+            "The dashboard's cookie is sent over https only: sign in through an https proxy, "
+            "or set FEASIBILITY_SESSION_COOKIE_SECURE=false on a closed network."
+        )
     click.echo("Press Ctrl+C to stop.")
     try:
         server.serve_forever()

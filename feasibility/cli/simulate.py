@@ -37,22 +37,33 @@ def register(main: click.Group) -> None:
 @click.command("simulate")
 @click.argument("directory", metavar="DIR", type=click.Path(file_okay=False, exists=True, path_type=Path))
 @click.option(
-    "--observatory", "observatory_path", metavar="FILE", type=click.Path(dir_okay=False, path_type=Path),
+    "--observatory",
+    "observatory_path",
+    metavar="FILE",
+    type=click.Path(dir_okay=False, path_type=Path),
     help="Observatory description (YAML or JSON). Default: the packaged demo observatory.",
 )
 @click.option(
-    "--schedule", "schedule_path", metavar="FILE", type=click.Path(dir_okay=False, path_type=Path),
+    "--schedule",
+    "schedule_path",
+    metavar="FILE",
+    type=click.Path(dir_okay=False, path_type=Path),
     help="Instrument schedule. Default: the packaged demo schedule of the proposals' semester, if any.",
 )
 @click.option(
-    "--ranks", "ranks_path", metavar="FILE", type=click.Path(dir_okay=False, path_type=Path),
-    help="Proposal ranks: a mapping of proposal id to a number, smaller goes first; unlisted proposals come last. "
-    "Default: all equal.",
+    "--ranks",
+    "ranks_path",
+    metavar="FILE",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Proposal ranks: a mapping of proposal id to a number, smaller goes first; unlisted proposals come last. Default: all equal.",
 )
 @click.option("--seed", type=click.IntRange(min=0), default=0, show_default=True, help="Seed of the random weather: same seed, same answer.")
 @click.option("--realisations", type=click.IntRange(1, 100_000), default=1000, show_default=True, help="Semesters of weather to simulate.")
 @click.option(
-    "--hours", type=click.Choice(["needed", "requested"]), default="needed", show_default=True,
+    "--hours",
+    type=click.Choice(["needed", "requested"]),
+    default="needed",
+    show_default=True,
     help="Hours each request must obtain: the engine's hours needed for its goal, or the hours requested.",
 )
 @click.option("--json", "as_json", is_flag=True, help="Print the full result as JSON instead of the report.")
@@ -81,7 +92,12 @@ def simulate(
         click.echo(f"simulated {done} of {total} realisations", err=True)
 
     result = simulate_semester(
-        proposals, observatory, schedule, ranks=ranks, realisations=realisations, seed=seed,
+        proposals,
+        observatory,
+        schedule,
+        ranks=ranks,
+        realisations=realisations,
+        seed=seed,
         hours=hours,  # type: ignore[arg-type]
         progress=progress if realisations > BLOCK else None,
     )
@@ -187,7 +203,9 @@ def _mixed(proposals: list[tuple[Path, Proposal]]) -> list[DocumentError]:
     for path, proposal in proposals:
         problems = []
         if proposal.semester != first.semester:
-            problems.append(Problem("semester", f"{proposal.semester!r} is not the semester of {first_path.name} ({first.semester!r}); simulate one semester at a time"))
+            problems.append(
+                Problem("semester", f"{proposal.semester!r} is not the semester of {first_path.name} ({first.semester!r}); simulate one semester at a time")
+            )
         if proposal.id in seen:
             problems.append(Problem("id", f"{proposal.id!r} is also the id of {seen[proposal.id].name}"))
         seen.setdefault(proposal.id, path)

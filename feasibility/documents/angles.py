@@ -46,17 +46,23 @@ DECLINATION_PATTERN = (
 RIGHT_ASCENSION_SCHEMA: dict[str, Any] = {
     "anyOf": [
         {"type": "number", "minimum": 0, "exclusiveMaximum": 360, "description": "Degrees."},
-        {"type": "string", "pattern": RIGHT_ASCENSION_PATTERN,
-         "description": "Sexagesimal HOURS ('13:25:27.6', '13 25 27.6', '13h25m27.6s'), or degrees: a plain number in text, "
-                        "or ending in 'd' or 'deg' ('201.365d', '201d21m54s')."},
+        {
+            "type": "string",
+            "pattern": RIGHT_ASCENSION_PATTERN,
+            "description": "Sexagesimal HOURS ('13:25:27.6', '13 25 27.6', '13h25m27.6s'), or degrees: a plain number in text, "
+            "or ending in 'd' or 'deg' ('201.365d', '201d21m54s').",
+        },
     ],
     "examples": ["13:25:27.6", "13h25m27.6s", 201.365],
 }
 DECLINATION_SCHEMA: dict[str, Any] = {
     "anyOf": [
         {"type": "number", "minimum": -90, "maximum": 90, "description": "Degrees."},
-        {"type": "string", "pattern": DECLINATION_PATTERN,
-         "description": "Sexagesimal degrees ('-43:01:09', '-43 01 09', '-43d01m09s'), or a number of degrees in text, optionally ending in 'd' or 'deg'."},
+        {
+            "type": "string",
+            "pattern": DECLINATION_PATTERN,
+            "description": "Sexagesimal degrees ('-43:01:09', '-43 01 09', '-43d01m09s'), or a number of degrees in text, optionally ending in 'd' or 'deg'.",
+        },
     ],
     "examples": ["-43:01:09", "-43d01m09s", -43.019],
 }

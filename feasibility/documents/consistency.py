@@ -112,10 +112,7 @@ def semester_span_utc(observatory: Observatory, semester: Semester) -> tuple[dat
 def window_problems(where: str, windows: list[TimeWindow], observatory: Observatory, semester: Semester) -> list[Problem]:
     """Every time window that reaches outside the semester's nights (a window there could never be scheduled)."""
     start, end = semester_span_utc(observatory, semester)
-    nights = (
-        f"semester {semester.name} runs from the night of {semester.first_night.isoformat()} "
-        f"to the night of {semester.last_night.isoformat()}"
-    )
+    nights = f"semester {semester.name} runs from the night of {semester.first_night.isoformat()} to the night of {semester.last_night.isoformat()}"
     problems = []
     for j, window in enumerate(windows):
         shown = f"{_utc(window.start)} to {_utc(window.end)}"
@@ -144,9 +141,7 @@ def schedule_problems(schedule: InstrumentSchedule, observatory: Observatory) ->
     return problems
 
 
-def require_consistent(
-    proposal: Proposal, observatory: Observatory, schedule: InstrumentSchedule | None = None
-) -> None:
+def require_consistent(proposal: Proposal, observatory: Observatory, schedule: InstrumentSchedule | None = None) -> None:
     """Raise :class:`DocumentError` when the proposal (or schedule) does not fit the observatory."""
     problems = proposal_problems(proposal, observatory)
     if problems:

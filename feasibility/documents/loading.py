@@ -94,5 +94,3 @@ def json_schema(model: type[BaseModel], base_url: str | None = None) -> str:
     if document is None:
         return json.dumps(model.model_json_schema(by_alias=True), indent=2)
     return schema_text(document, base_url)
-
-

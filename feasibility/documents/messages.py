@@ -125,7 +125,7 @@ def plain_message(error: Mapping[str, Any], model: type[BaseModel] | None = None
     message = str(error.get("msg", "is not valid"))
     for library, ours in (("Input should be", "must be"), ("String should", "must"), ("List should", "must"), ("Value should", "must")):
         if message.startswith(library):
-            return f"{name} {ours}{message[len(library):]}"
+            return f"{name} {ours}{message[len(library) :]}"
     return message
 
 
@@ -178,14 +178,18 @@ def _range(field: FieldInfo | None) -> str | None:
 
 
 def _range_from_context(kind: str, context: dict[str, Any]) -> str:
-    words = {"greater_than": ("more than", "gt"), "greater_than_equal": ("at least", "ge"),
-             "less_than": ("less than", "lt"), "less_than_equal": ("at most", "le")}
+    words = {
+        "greater_than": ("more than", "gt"),
+        "greater_than_equal": ("at least", "ge"),
+        "less_than": ("less than", "lt"),
+        "less_than_equal": ("at most", "le"),
+    }
     text, key = words[kind]
     return f"{text} {_number(context.get(key))}"
 
 
 def _unknown_key(model: type[BaseModel] | None, location: tuple[int | str, ...]) -> str:
-    """"is not a known field", with the closest known key when one is close (difflib)."""
+    """ "is not a known field", with the closest known key when one is close (difflib)."""
     key = str(location[-1]) if location else ""
     parent = _model_at(model, location[:-1]) if model is not None else None
     if parent is None:

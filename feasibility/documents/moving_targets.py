@@ -75,9 +75,7 @@ class OrbitalElementsTarget(DocumentModel):
     mean_anomaly: float | None = Field(default=None, ge=-360, le=360, description="M at the epoch, degrees (ellipses only).")
     perihelion_time: UtcDatetime | None = Field(default=None, description="T, the time of perihelion passage (read as TT).")
     absolute_magnitude: float | None = Field(default=None, ge=-10, le=40, description="H of the IAU H, G system (V).")
-    slope_parameter: float | None = Field(
-        default=None, ge=-0.5, le=1.5, description="G of the IAU H, G system; 0.15 when H is given alone."
-    )
+    slope_parameter: float | None = Field(default=None, ge=-0.5, le=1.5, description="G of the IAU H, G system; 0.15 when H is given alone.")
     total_absolute_magnitude: float | None = Field(
         default=None, ge=-10, le=40, description="A comet's M1: its total V magnitude at 1 au from the Sun and the Earth."
     )
@@ -162,4 +160,3 @@ class EphemerisTableTarget(DocumentModel):
     def span_days(self) -> float:
         """Days between the first and the last row."""
         return (self.ephemeris_table[-1].time - self.ephemeris_table[0].time).total_seconds() / 86400.0
-

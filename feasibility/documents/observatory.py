@@ -90,11 +90,15 @@ class Telescope(_Part):
     min_altitude_deg: float = Field(default=15.0, ge=0, le=89, description="Lowest altitude the mount reaches.")
     max_altitude_deg: float = Field(default=90.0, gt=0, le=90, description="Highest altitude the mount tracks (alt-az zenith gap).")
     min_sun_separation_deg: float = Field(
-        default=45.0, ge=0, le=180,
+        default=45.0,
+        ge=0,
+        le=180,
         description="Closest approach to the Sun's direction allowed by the observatory's safety rules.",
     )
     max_tracking_rate_arcsec_per_hour: float | None = Field(
-        default=None, gt=0, le=1e7,
+        default=None,
+        gt=0,
+        le=1e7,
         description=(
             "Fastest non-sidereal rate the mount can follow, in arcseconds per HOUR on the sky (the motion of a "
             "solar-system body relative to the stars). Not given: not stated, and no rate is refused."
@@ -138,9 +142,7 @@ class Climate(_Part):
     """
 
     bands: dict[str, Band] = Field(min_length=1)
-    extinction_by_wavelength: list[ExtinctionPoint] = Field(
-        default_factory=list, description="Optional extinction curve for spectra, wavelengths increasing."
-    )
+    extinction_by_wavelength: list[ExtinctionPoint] = Field(default_factory=list, description="Optional extinction curve for spectra, wavelengths increasing.")
     dark_sky_by_wavelength: list[DarkSkyPoint] = Field(
         default_factory=list, description="Optional dark-sky continuum at the zenith for spectra, wavelengths increasing."
     )
@@ -163,14 +165,18 @@ class Climate(_Part):
         ),
     )
     seeing_log_spread: float | None = Field(
-        default=None, gt=0, le=2,
+        default=None,
+        gt=0,
+        le=2,
         description=(
             "Spread of the site's seeing, the standard deviation of ln(FWHM) around the median (log-normal). "
             "Default: the engine's common-practice value. Used by the semester simulation."
         ),
     )
     design_percentile: float = Field(
-        default=80.0, ge=50, lt=100,
+        default=80.0,
+        ge=50,
+        lt=100,
         description=(
             "Percentile of airmass, sky brightness and seeing over a request's usable time at which a verdict must "
             "hold (the design conditions); the median gives the typical conditions."
@@ -218,17 +224,15 @@ class Climate(_Part):
             if not 0.0 <= fraction <= 1.0:
                 raise ValueError(f"usable_night_fraction: month {month} has fraction {fraction}, not between 0 and 1")
         curves: tuple[tuple[str, Sequence[ExtinctionPoint | DarkSkyPoint]], ...] = (
-            ("extinction_by_wavelength", self.extinction_by_wavelength), ("dark_sky_by_wavelength", self.dark_sky_by_wavelength)
+            ("extinction_by_wavelength", self.extinction_by_wavelength),
+            ("dark_sky_by_wavelength", self.dark_sky_by_wavelength),
         )
         for name, points in curves:
             if len(points) == 1:
                 raise ValueError(f"{name}: give at least two points, or none")
             for i, (before, after) in enumerate(zip(points, points[1:]), start=1):
                 if after.wavelength_nm <= before.wavelength_nm:
-                    raise ValueError(
-                        f"{name}: wavelengths must increase; point {i} ({after.wavelength_nm:g} nm) "
-                        f"does not follow {before.wavelength_nm:g} nm"
-                    )
+                    raise ValueError(f"{name}: wavelengths must increase; point {i} ({after.wavelength_nm:g} nm) does not follow {before.wavelength_nm:g} nm")
         return self
 
 
@@ -286,9 +290,7 @@ class Detector(_Part):
     full_well_e: float = Field(gt=0)
     slit_length_arcsec: float | None = Field(default=None, gt=0)
     adc_bits: int = Field(default=16, ge=8, le=32, description="Bit depth of the analogue-to-digital converter.")
-    linearity_fraction: float = Field(
-        default=0.8, gt=0, le=1, description="Fraction of full well up to which the detector stays linear."
-    )
+    linearity_fraction: float = Field(default=0.8, gt=0, le=1, description="Fraction of full well up to which the detector stays linear.")
 
 
 class Overheads(_Part):
@@ -365,10 +367,7 @@ class Observatory(_Part):
         for instrument in self.instruments:
             for item in instrument.filters:
                 if item.band not in self.climate.bands:
-                    raise ValueError(
-                        f"instrument {instrument.name!r} filter {item.name!r} names band {item.band!r}, "
-                        f"which climate.bands does not define"
-                    )
+                    raise ValueError(f"instrument {instrument.name!r} filter {item.name!r} names band {item.band!r}, which climate.bands does not define")
         return self
 
     def semester_named(self, name: str) -> Semester | None:

@@ -109,9 +109,7 @@ class Goal(_Document):
 
     snr: float | None = Field(default=None, gt=0, le=1e5)
     exposure_time_s: float | None = Field(default=None, gt=0, le=1e7)
-    wavelength_nm: float | None = Field(
-        default=None, gt=0, description="Where a spectrum's signal-to-noise is wanted (default: setup's central wavelength)."
-    )
+    wavelength_nm: float | None = Field(default=None, gt=0, description="Where a spectrum's signal-to-noise is wanted (default: setup's central wavelength).")
 
     @model_validator(mode="after")
     def _exactly_one(self) -> Goal:

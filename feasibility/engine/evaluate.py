@@ -138,9 +138,7 @@ _AVAILABILITY_SIZE = 64
 _AVAILABILITY_LOCK = threading.Lock()
 
 
-def check_request(
-    request: ObservationRequest, observatory: Observatory, instrument: Instrument, context: _SemesterContext
-) -> RequestResult:
+def check_request(request: ObservationRequest, observatory: Observatory, instrument: Instrument, context: _SemesterContext) -> RequestResult:
     """All checks of one request already known to fit the observatory."""
     try:
         sky = measure_sky(
@@ -155,9 +153,7 @@ def check_request(
         motion: MotionOutcome | None = None
         if sky.track is not None:  # a solar-system body: its magnitude on the usable nights, its rate, trailing
             motion = assess_motion(request, observatory, instrument, sky)
-        exposure = assess_exposure(
-            motion.request if motion else request, observatory, motion.instrument if motion else instrument, sky.conditions
-        )
+        exposure = assess_exposure(motion.request if motion else request, observatory, motion.instrument if motion else instrument, sky.conditions)
     except Exception as exc:  # one request's failure must not lose the others' results
         log.exception("request %r could not be evaluated", request.label)
         return _unchecked(request, [], f"could not be evaluated ({type(exc).__name__}: {exc})")

@@ -138,7 +138,7 @@ def image_quality_finding(
         return Finding(
             check="image-quality",
             level=Level.FEASIBLE,
-            message=f"No image-quality limit asked; expect {delivered:.2f}\" FWHM at airmass {airmass:.2f}.",
+            message=f'No image-quality limit asked; expect {delivered:.2f}" FWHM at airmass {airmass:.2f}.',
             figures=figures,
             method=method,
         )
@@ -146,10 +146,7 @@ def image_quality_finding(
         return Finding(
             check="image-quality",
             level=Level.INFEASIBLE,
-            message=(
-                f"Requested image quality {limit:g}\" is finer than the telescope's diffraction limit "
-                f"{rayleigh:.3f}\" at {wavelength_nm:g} nm."
-            ),
+            message=(f'Requested image quality {limit:g}" is finer than the telescope\'s diffraction limit {rayleigh:.3f}" at {wavelength_nm:g} nm.'),
             figures=figures,
             suggestion="Relax the image-quality limit to at least the diffraction limit, or use a larger telescope.",
             method=method,
@@ -159,35 +156,32 @@ def image_quality_finding(
     figures["hours_with_seeing"] = round(hours_usable * fraction, 2)
     share = f"{100 * fraction:.0f}% of the time"
     if fraction < SEEING_INFEASIBLE_FRACTION:
-        level, text = Level.INFEASIBLE, f"the site delivers {limit:g}\" or better only {share}"
-        suggestion = f"Relax the image-quality limit towards the expected {delivered:.2f}\"."
+        level, text = Level.INFEASIBLE, f'the site delivers {limit:g}" or better only {share}'
+        suggestion = f'Relax the image-quality limit towards the expected {delivered:.2f}".'
     elif fraction < SEEING_MARGINAL_FRACTION:
-        level, text = Level.MARGINAL, f"better than the median: the site delivers {limit:g}\" or better {share}"
+        level, text = Level.MARGINAL, f'better than the median: the site delivers {limit:g}" or better {share}'
         suggestion = "Expect the request to wait for good seeing; relaxing the limit makes scheduling easier."
     else:
-        level, text = Level.FEASIBLE, f"the site delivers {limit:g}\" or better {share}"
+        level, text = Level.FEASIBLE, f'the site delivers {limit:g}" or better {share}'
         suggestion = None
     return Finding(
         check="image-quality",
         level=level,
-        message=f"Image quality {limit:g}\" asked, median {delivered:.2f}\" at airmass {airmass:.2f}: {text}.",
+        message=f'Image quality {limit:g}" asked, median {delivered:.2f}" at airmass {airmass:.2f}: {text}.',
         figures=figures,
         suggestion=suggestion,
         method=method,
     )
 
 
-def instrument_setup_problems(
-    request: ObservationRequest, instrument: Instrument, wavelength_nm: float
-) -> list[InstrumentProblem]:
+def instrument_setup_problems(request: ObservationRequest, instrument: Instrument, wavelength_nm: float) -> list[InstrumentProblem]:
     """Is the requested wavelength within the instrument's range and, for a spectrum, the grating's coverage?"""
     problems: list[InstrumentProblem] = []
     if not instrument.min_wavelength_nm <= wavelength_nm <= instrument.max_wavelength_nm:
         problems.append(
             InstrumentProblem(
                 Level.INFEASIBLE,
-                f"{wavelength_nm:g} nm is outside {instrument.name}'s range "
-                f"{instrument.min_wavelength_nm:g}-{instrument.max_wavelength_nm:g} nm",
+                f"{wavelength_nm:g} nm is outside {instrument.name}'s range {instrument.min_wavelength_nm:g}-{instrument.max_wavelength_nm:g} nm",
                 "Choose an instrument that covers this wavelength.",
             )
         )
@@ -197,8 +191,7 @@ def instrument_setup_problems(
             problems.append(
                 InstrumentProblem(
                     Level.INFEASIBLE,
-                    f"{wavelength_nm:g} nm is outside grating {grating.name}'s coverage "
-                    f"{grating.min_wavelength_nm:g}-{grating.max_wavelength_nm:g} nm",
+                    f"{wavelength_nm:g} nm is outside grating {grating.name}'s coverage {grating.min_wavelength_nm:g}-{grating.max_wavelength_nm:g} nm",
                     "Choose a grating or central wavelength that covers the wavelength of interest.",
                 )
             )
@@ -207,11 +200,7 @@ def instrument_setup_problems(
 
 def seeing_fwhm_arcsec(median_zenith_500nm_arcsec: float, airmass: float, wavelength_nm: float) -> float:
     """Seeing FWHM at ``airmass`` and ``wavelength_nm`` from the zenith value at 500 nm (X^0.6, λ^-0.2; common practice)."""
-    return (
-        median_zenith_500nm_arcsec
-        * airmass**SEEING_AIRMASS_EXPONENT
-        * (wavelength_nm / SEEING_REFERENCE_NM) ** SEEING_WAVELENGTH_EXPONENT
-    )
+    return median_zenith_500nm_arcsec * airmass**SEEING_AIRMASS_EXPONENT * (wavelength_nm / SEEING_REFERENCE_NM) ** SEEING_WAVELENGTH_EXPONENT
 
 
 @functools.lru_cache(maxsize=64)
@@ -243,7 +232,7 @@ def fraction_seeing_better(limit_arcsec: float, median_arcsec: float, diffractio
 def _image_quality_method(median_seeing_arcsec: float) -> str:
     """The image-quality finding's method text (formatted once per site seeing)."""
     return (
-        f"median seeing {median_seeing_arcsec:g}\" at zenith and 500 nm × X^0.6 × (λ/500 nm)^-0.2 (common practice), "
+        f'median seeing {median_seeing_arcsec:g}" at zenith and 500 nm × X^0.6 × (λ/500 nm)^-0.2 (common practice), '
         f"log-normal spread σ(ln FWHM) = {SEEING_LOG_SPREAD} (common practice); Airy FWHM 1.029 λ/D added in quadrature; "
         "diffraction limit 1.21967 λ/D (Rayleigh criterion)"
     )

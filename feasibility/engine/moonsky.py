@@ -121,9 +121,7 @@ def moonlight_from_term(term: ArrayLike, separation_deg: ArrayLike, target_zenit
     return scattering_function(separation_deg) * np.asarray(term, dtype=float) * -np.expm1(-0.4 * _LN10 * extinction * optical_path(target_zenith_deg))
 
 
-def sky_components_nl(
-    zenith_mag_arcsec2: float, extinction: float, sin_altitude: ArrayLike, separation_deg: ArrayLike, term: ArrayLike
-) -> tuple[Array, Array]:
+def sky_components_nl(zenith_mag_arcsec2: float, extinction: float, sin_altitude: ArrayLike, separation_deg: ArrayLike, term: ArrayLike) -> tuple[Array, Array]:
     """Dark sky (eq. 2) and V-band moonlight (eq. 15, from :func:`moon_term`) in nL, through lookup tables.
 
     The same equations as :func:`dark_sky_nl` and :func:`moonlight_from_term`,

@@ -53,9 +53,7 @@ class MotionOutcome:
     series: dict[str, Any] = field(default_factory=dict)
 
 
-def sun_remark(
-    track: Track, midnight_mjd: NDArray[np.float64], night_names: list[str], cos_sun: NDArray[np.float64], limit_deg: float
-) -> tuple[str, bool]:
+def sun_remark(track: Track, midnight_mjd: NDArray[np.float64], night_names: list[str], cos_sun: NDArray[np.float64], limit_deg: float) -> tuple[str, bool]:
     """The sun-safety finding's remark on a moving target, and whether it is a warning (a body near the Sun)."""
     text = "The body's distance from the Sun in the sky was followed night by night along its own ephemeris."
     if track.sun_distance_au is None:
@@ -105,8 +103,10 @@ def assess_motion(request: ObservationRequest, observatory: Observatory, instrum
         chosen = magnitudes[nights] if nights.any() else magnitudes
         used = _weighted_median(magnitudes, weights) if nights.any() else float(np.median(magnitudes))
         figures.update(
-            magnitude_used=round(used, 2), magnitude_band=band,
-            magnitude_brightest=round(float(chosen.min()), 2), magnitude_faintest=round(float(chosen.max()), 2),
+            magnitude_used=round(used, 2),
+            magnitude_band=band,
+            magnitude_brightest=round(float(chosen.min()), 2),
+            magnitude_faintest=round(float(chosen.max()), 2),
         )
         parts.append(
             f"its magnitude then runs {w.magnitude(float(chosen.min()))}-{w.magnitude(float(chosen.max()))} in {band}; "
@@ -217,4 +217,3 @@ def _track_series(track: Track, midnights: NDArray[np.float64], rate: NDArray[np
         "magnitude": None if magnitudes is None else np.round(magnitudes, 2).tolist(),
         "magnitude_band": track.magnitude_band,
     }
-

@@ -163,9 +163,7 @@ def heliocentric_equatorial(orbit: Orbit, tt_jd: Array) -> Array:
     ecliptic = x[:, None] * p + y[:, None] * qv
     eps = math.radians(OBLIQUITY_J2000_DEG)
     ce, se = math.cos(eps), math.sin(eps)
-    return np.stack(
-        [ecliptic[:, 0], ce * ecliptic[:, 1] - se * ecliptic[:, 2], se * ecliptic[:, 1] + ce * ecliptic[:, 2]], axis=-1
-    )
+    return np.stack([ecliptic[:, 0], ce * ecliptic[:, 1] - se * ecliptic[:, 2], se * ecliptic[:, 1] + ce * ecliptic[:, 2]], axis=-1)
 
 
 def earth_heliocentric(tt_jd: Array) -> Array:

@@ -70,9 +70,7 @@ def source_rate(
     return above_atmosphere * extinction_factor(extinction_mag_per_airmass, airmass)
 
 
-def sky_rate_per_arcsec2(
-    sky_mag_arcsec2: float, zero_point_jy: float, fractional_bandwidth: float, area_m2: float, throughput: float
-) -> float:
+def sky_rate_per_arcsec2(sky_mag_arcsec2: float, zero_point_jy: float, fractional_bandwidth: float, area_m2: float, throughput: float) -> float:
     """Detected electrons per second per square arcsecond from a sky of ``sky_mag_arcsec2`` (Vega).
 
     The sky brightness is what is seen from the ground, so no extinction applies.

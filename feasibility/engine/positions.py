@@ -83,9 +83,7 @@ def rot3(angle_rad: ArrayLike) -> Array:
     angle = np.asarray(angle_rad, dtype=float)
     c, s = np.cos(angle), np.sin(angle)
     zero, one = np.zeros_like(angle), np.ones_like(angle)
-    return np.stack(
-        [np.stack([c, s, zero], -1), np.stack([-s, c, zero], -1), np.stack([zero, zero, one], -1)], -2
-    )
+    return np.stack([np.stack([c, s, zero], -1), np.stack([-s, c, zero], -1), np.stack([zero, zero, one], -1)], -2)
 
 
 def enu_matrix(latitude_deg: float, longitude_deg: float) -> Array:

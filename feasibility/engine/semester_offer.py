@@ -179,7 +179,7 @@ def _compute(observatory: Observatory, first: date, last: date) -> SemesterOffer
         "ra_dark_hours": ra_dark.round(2).tolist(),
         "lunar": _lunar_split(grid, radec_from_vector),
         "method": "engine sky grid; night: Sun below -18 deg (USNO); "
-                  f"dark: also Moon down or illuminated <= {DARK_MOON_ILLUMINATION}; weighted by usable-night fraction",
+        f"dark: also Moon down or illuminated <= {DARK_MOON_ILLUMINATION}; weighted by usable-night fraction",
     }
 
 

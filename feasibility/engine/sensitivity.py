@@ -300,9 +300,7 @@ class ExposureMeasure:
         }
 
 
-def assess_exposure(
-    request: ObservationRequest, observatory: Observatory, instrument: Instrument, conditions: Conditions
-) -> ExposureAssessment:
+def assess_exposure(request: ObservationRequest, observatory: Observatory, instrument: Instrument, conditions: Conditions) -> ExposureAssessment:
     """Findings, figures and S/N curve of ``request`` observed with ``instrument`` under ``conditions``.
 
     Measures (:func:`measure_exposure`), then words the findings
@@ -350,7 +348,10 @@ def measure_exposure(
 
     # Saturation at the worst case: the best tenth of the seeing at the zenith, over the design sky.
     best = ObservingPoint(
-        "best", BEST_SEEING_PERCENT, 1.0, design.sky_mag_arcsec2,
+        "best",
+        BEST_SEEING_PERCENT,
+        1.0,
+        design.sky_mag_arcsec2,
         seeing_percentile_arcsec(climate.median_seeing_arcsec, BEST_SEEING_PERCENT),
     )
     peak_signal = _signal(request, observatory, instrument, wavelength, best, magnitude, optics)
@@ -374,18 +375,30 @@ def measure_exposure(
         faint_hours = _plan_for_goal(request, instrument, faint_signal, longest).hours
     alternatives = None
     if plan.hours > request.hours_requested:
-        alternatives = _price_alternatives(
-            request, observatory, instrument, conditions, wavelength, longest, optics, typical, design
-        )
+        alternatives = _price_alternatives(request, observatory, instrument, conditions, wavelength, longest, optics, typical, design)
     return ExposureMeasure(
-        wavelength=wavelength, observed_band=optics.observed_band, sky_band=conditions.sky_band,
-        hours_usable=conditions.hours_usable, typical=typical, design=design, best=best,
-        signal=signal, typical_signal=typical_signal, peak_signal=peak_signal,
-        plan=plan, typical_plan=typical_plan,
+        wavelength=wavelength,
+        observed_band=optics.observed_band,
+        sky_band=conditions.sky_band,
+        hours_usable=conditions.hours_usable,
+        typical=typical,
+        design=design,
+        best=best,
+        signal=signal,
+        typical_signal=typical_signal,
+        peak_signal=peak_signal,
+        plan=plan,
+        typical_plan=typical_plan,
         budget=_plan_for_hours(request.hours_requested, instrument, signal, longest),
         typical_budget=_plan_for_hours(request.hours_requested, instrument, typical_signal, longest),
-        level_e=level_e, safe=safe, longest=longest, saturated=saturated, dimming_mag=dimming,
-        usable_budget=usable_budget, faint_hours=faint_hours, alternatives=alternatives,
+        level_e=level_e,
+        safe=safe,
+        longest=longest,
+        saturated=saturated,
+        dimming_mag=dimming,
+        usable_budget=usable_budget,
+        faint_hours=faint_hours,
+        alternatives=alternatives,
     )
 
 
@@ -394,9 +407,7 @@ def saturation_level_e(detector: Detector) -> float:
     return min(detector.linearity_fraction * detector.full_well_e, (2**detector.adc_bits - 1) * detector.gain_e_adu)
 
 
-def resolution_element_pixels(
-    slit_arcsec: float, fwhm_arcsec: float, pixel_arcsec: float, grating_pixels: float, filled: bool = False
-) -> float:
+def resolution_element_pixels(slit_arcsec: float, fwhm_arcsec: float, pixel_arcsec: float, grating_pixels: float, filled: bool = False) -> float:
     """Pixels across one spectral resolution element.
 
     The projected slit width, or the seeing-limited image when it is narrower
@@ -492,9 +503,7 @@ class _Optics:
     area: float
 
 
-def _optics(
-    request: ObservationRequest, observatory: Observatory, instrument: Instrument, conditions: Conditions, wavelength: float
-) -> _Optics:
+def _optics(request: ObservationRequest, observatory: Observatory, instrument: Instrument, conditions: Conditions, wavelength: float) -> _Optics:
     """The point-independent part of :func:`_signal`."""
     climate = observatory.climate
     telescope = observatory.telescope
@@ -540,9 +549,7 @@ def _signal(
     zero_point, bandwidth, throughput, area = optics.zero_point, optics.bandwidth, optics.throughput, optics.area
     sky_mag = point.sky_mag_arcsec2 if optics.sky_offset is None else point.sky_mag_arcsec2 + optics.sky_offset
     brightness = request.brightness
-    rate = photometry.source_rate(
-        magnitude, brightness.system, zero_point, bandwidth, area, throughput, optics.extinction, airmass
-    )
+    rate = photometry.source_rate(magnitude, brightness.system, zero_point, bandwidth, area, throughput, optics.extinction, airmass)
     sky_arcsec2 = photometry.sky_rate_per_arcsec2(sky_mag, optics.sky_zero_point, bandwidth, area, throughput)
     fwhm = _delivered_fwhm(request, point.zenith_seeing_arcsec, airmass, wavelength, telescope.aperture_m)
     pixel = detector.pixel_scale_arcsec
@@ -554,17 +561,26 @@ def _signal(
         sky_pix = sky_arcsec2 * pixel**2
         if extended:
             signal = Signal(
-                source_e_s=rate, sky_e_s_pix=sky_pix, n_pix=1.0 / pixel**2, peak_e_s_pix=rate * pixel**2 + sky_pix + dark,
-                aperture_radius_arcsec=None, enclosed_fraction=1.0, slit_transmission=None,
+                source_e_s=rate,
+                sky_e_s_pix=sky_pix,
+                n_pix=1.0 / pixel**2,
+                peak_e_s_pix=rate * pixel**2 + sky_pix + dark,
+                aperture_radius_arcsec=None,
+                enclosed_fraction=1.0,
+                slit_transmission=None,
                 **common,
             )
             return signal
         radius = APERTURE_RADIUS_FWHM * fwhm
         enclosed = encircled_fraction_gaussian(radius, fwhm)
         signal = Signal(
-            source_e_s=rate * enclosed, sky_e_s_pix=sky_pix, n_pix=math.pi * radius**2 / pixel**2,
+            source_e_s=rate * enclosed,
+            sky_e_s_pix=sky_pix,
+            n_pix=math.pi * radius**2 / pixel**2,
             peak_e_s_pix=rate * central_pixel_fraction(pixel, fwhm) + sky_pix + dark,
-            aperture_radius_arcsec=radius, enclosed_fraction=enclosed, slit_transmission=None,
+            aperture_radius_arcsec=radius,
+            enclosed_fraction=enclosed,
+            slit_transmission=None,
             **common,
         )
         return signal
@@ -580,10 +596,15 @@ def _signal(
     resolving = {"element_pixels": element, "resolving_power": grating.resolving_power / widening}
     if extended:
         signal = Signal(
-            source_e_s=rate * slit * widening, sky_e_s_pix=sky_pix, n_pix=element / pixel,
+            source_e_s=rate * slit * widening,
+            sky_e_s_pix=sky_pix,
+            n_pix=element / pixel,
             peak_e_s_pix=rate * slit * pixel * per_pixel_spectral + sky_pix + dark,
-            aperture_radius_arcsec=None, enclosed_fraction=1.0, slit_transmission=None,
-            **common, **resolving,
+            aperture_radius_arcsec=None,
+            enclosed_fraction=1.0,
+            slit_transmission=None,
+            **common,
+            **resolving,
         )
         return signal
     transmission = slit_transmission_gaussian(slit, fwhm)
@@ -592,11 +613,15 @@ def _signal(
         height = min(height, detector.slit_length_arcsec)
     along = slit_transmission_gaussian(height, fwhm)
     signal = Signal(
-        source_e_s=rate * transmission * along * widening, sky_e_s_pix=sky_pix,
+        source_e_s=rate * transmission * along * widening,
+        sky_e_s_pix=sky_pix,
         n_pix=element * max(height / pixel, 1.0),
         peak_e_s_pix=rate * transmission * per_pixel_spectral * slit_transmission_gaussian(pixel, fwhm) + sky_pix + dark,
-        aperture_radius_arcsec=height / 2.0, enclosed_fraction=along, slit_transmission=transmission,
-        **common, **resolving,
+        aperture_radius_arcsec=height / 2.0,
+        enclosed_fraction=along,
+        slit_transmission=transmission,
+        **common,
+        **resolving,
     )
     return signal
 
@@ -661,11 +686,12 @@ def _points(observatory: Observatory, conditions: Conditions) -> tuple[Observing
     """The typical (median) and design (percentile) conditions of a request (module docstring)."""
     climate = observatory.climate
     percent = climate.design_percentile
-    typical = ObservingPoint(
-        "typical", 50.0, max(conditions.airmass_median, 1.0), conditions.sky_mag_arcsec2, climate.median_seeing_arcsec
-    )
+    typical = ObservingPoint("typical", 50.0, max(conditions.airmass_median, 1.0), conditions.sky_mag_arcsec2, climate.median_seeing_arcsec)
     design = ObservingPoint(
-        "design", percent, max(conditions.airmass_at_design, typical.airmass), min(conditions.sky_at_design, typical.sky_mag_arcsec2),
+        "design",
+        percent,
+        max(conditions.airmass_at_design, typical.airmass),
+        min(conditions.sky_at_design, typical.sky_mag_arcsec2),
         seeing_percentile_arcsec(climate.median_seeing_arcsec, percent),
     )
     return typical, design

@@ -57,15 +57,17 @@ def unchecked_finding(request: ObservationRequest, instrument: Instrument, gap: 
     )
 
 
-def exposure_findings(
-    request: ObservationRequest, observatory: Observatory, instrument: Instrument, measure: ExposureMeasure
-) -> list[Finding]:
+def exposure_findings(request: ObservationRequest, observatory: Observatory, instrument: Instrument, measure: ExposureMeasure) -> list[Finding]:
     """The atmosphere, image-quality, instrument and sensitivity findings of one measured request."""
     findings = [atmosphere_finding(measure.wavelength)]
     findings.append(
         image_quality_finding(
-            request, observatory.climate.median_seeing_arcsec, measure.typical.airmass, measure.wavelength,
-            observatory.telescope.aperture_m, measure.hours_usable,
+            request,
+            observatory.climate.median_seeing_arcsec,
+            measure.typical.airmass,
+            measure.wavelength,
+            observatory.telescope.aperture_m,
+            measure.hours_usable,
         )
     )
     findings.append(_instrument_finding(request, instrument, measure))

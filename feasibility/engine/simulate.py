@@ -76,9 +76,7 @@ class Outcomes:
     """(realisations, buckets): hours of the slots requests took."""
 
 
-def run_realisations(
-    plan: Plan, climate: NightClimate, realisations: int, seed: int, progress: Progress | None = None
-) -> Outcomes:
+def run_realisations(plan: Plan, climate: NightClimate, realisations: int, seed: int, progress: Progress | None = None) -> Outcomes:
     """Draw ``realisations`` semesters of weather (in blocks of :data:`BLOCK`) and dispatch each; see the module docstring."""
     order = slot_order(plan)
     children = np.random.SeedSequence(seed).spawn(-(-realisations // BLOCK))
@@ -159,9 +157,7 @@ def simulate_semester(
     }
 
 
-def summarise(
-    plan: Plan, items: Sequence[PlanRequest], outcomes: Outcomes, left_out: Sequence[LeftOut] = ()
-) -> dict[str, list[dict[str, Any]]]:
+def summarise(plan: Plan, items: Sequence[PlanRequest], outcomes: Outcomes, left_out: Sequence[LeftOut] = ()) -> dict[str, list[dict[str, Any]]]:
     """Per request, per proposal and per (instrument, lunar time): chances, expected hours and their spread.
 
     ``left_out`` requests (infeasible) are listed with a chance of 0; a proposal with one is never complete.
@@ -175,30 +171,34 @@ def summarise(
 
     requests = []
     for k, item in enumerate(items):
-        requests.append({
-            "proposal_id": item.proposal_id,
-            "label": item.label,
-            "instrument": item.instrument.name,
-            "rank": item.rank,
-            "hours_to_obtain": round(float(needed[k]), 3),
-            "hours_offered_clear_sky": round(float(opportunity[k]), 2),
-            "dispatched": True,
-            **_chances(complete[:, k], half[:, k], obtained[:, k]),
-        })
+        requests.append(
+            {
+                "proposal_id": item.proposal_id,
+                "label": item.label,
+                "instrument": item.instrument.name,
+                "rank": item.rank,
+                "hours_to_obtain": round(float(needed[k]), 3),
+                "hours_offered_clear_sky": round(float(opportunity[k]), 2),
+                "dispatched": True,
+                **_chances(complete[:, k], half[:, k], obtained[:, k]),
+            }
+        )
     runs = obtained.shape[0]
     never = np.zeros(runs, dtype=bool)
     for out in left_out:
-        requests.append({
-            "proposal_id": out.proposal_id,
-            "label": out.label,
-            "instrument": out.instrument,
-            "rank": out.rank,
-            "hours_to_obtain": round(out.hours_requested, 3),
-            "hours_offered_clear_sky": 0.0,
-            "dispatched": False,
-            "left_out_because": out.reason,
-            **_chances(never, never, np.zeros(runs)),
-        })
+        requests.append(
+            {
+                "proposal_id": out.proposal_id,
+                "label": out.label,
+                "instrument": out.instrument,
+                "rank": out.rank,
+                "hours_to_obtain": round(out.hours_requested, 3),
+                "hours_offered_clear_sky": 0.0,
+                "dispatched": False,
+                "left_out_because": out.reason,
+                **_chances(never, never, np.zeros(runs)),
+            }
+        )
 
     proposals = []
     order: dict[str, tuple[list[int], list[LeftOut]]] = {}
@@ -211,14 +211,16 @@ def summarise(
         total = obtained[:, members].sum(axis=1)
         wanted = float(needed[members].sum()) + sum(out.hours_requested for out in outs)
         done = np.all(complete[:, members], axis=1) & (not outs)
-        proposals.append({
-            "proposal_id": proposal_id,
-            "rank": ranks[proposal_id],
-            "requests": len(members) + len(outs),
-            "requests_infeasible": len(outs),
-            "hours_to_obtain": round(wanted, 3),
-            **_chances(done, total >= 0.5 * wanted - 1e-9, total),
-        })
+        proposals.append(
+            {
+                "proposal_id": proposal_id,
+                "rank": ranks[proposal_id],
+                "requests": len(members) + len(outs),
+                "requests_infeasible": len(outs),
+                "hours_to_obtain": round(wanted, 3),
+                **_chances(done, total >= 0.5 * wanted - 1e-9, total),
+            }
+        )
 
     demand = _demand(plan)
     offered = plan.slot_hours @ _bucket_matrix(plan) if plan.n_slots else np.zeros(len(plan.buckets))
@@ -227,16 +229,18 @@ def summarise(
         lost = outcomes.hours_lost[:, b]
         used = outcomes.hours_used[:, b]
         clear = float(offered[b] - lost.mean())
-        time.append({
-            "instrument": instrument,
-            "lunar_time": lunar,
-            "hours_offered": round(float(offered[b]), 2),
-            "hours_lost_to_weather": _spread(lost),
-            "hours_used": _spread(used),
-            "used_fraction_of_offered": round(float(used.mean() / offered[b]), 4) if offered[b] else None,
-            "hours_asked": round(float(demand[b]), 2),
-            "oversubscription": round(float(demand[b] / clear), 3) if clear > 0 else None,
-        })
+        time.append(
+            {
+                "instrument": instrument,
+                "lunar_time": lunar,
+                "hours_offered": round(float(offered[b]), 2),
+                "hours_lost_to_weather": _spread(lost),
+                "hours_used": _spread(used),
+                "used_fraction_of_offered": round(float(used.mean() / offered[b]), 4) if offered[b] else None,
+                "hours_asked": round(float(demand[b]), 2),
+                "oversubscription": round(float(demand[b] / clear), 3) if clear > 0 else None,
+            }
+        )
     time.sort(key=lambda row: (row["instrument"], LUNAR_TIMES.index(row["lunar_time"])))
     return {"requests": requests, "proposals": proposals, "time": time}
 
@@ -307,28 +311,32 @@ def _plan_requests(
                 notes.append(f"{proposal.id} {request.label}: left out, the engine could not check it")
                 continue
             if checked.verdict.value == "infeasible":
-                left_out.append(LeftOut(
-                    proposal_id=proposal.id,
-                    label=request.label,
-                    instrument=instrument.name,
-                    rank=rank,
-                    hours_requested=float(request.hours_requested),
-                    reason="the engine found it infeasible",
-                ))
+                left_out.append(
+                    LeftOut(
+                        proposal_id=proposal.id,
+                        label=request.label,
+                        instrument=instrument.name,
+                        rank=rank,
+                        hours_requested=float(request.hours_requested),
+                        reason="the engine found it infeasible",
+                    )
+                )
                 continue
             figures = checked.figures
             needed = _positive(figures.get("hours_needed"))
             to_obtain = request.hours_requested if hours == "requested" or needed is None else needed
-            items.append(PlanRequest(
-                proposal_id=proposal.id,
-                label=request.label,
-                request=request,
-                instrument=instrument,
-                hours=to_obtain,
-                rank=rank,
-                airmass=_positive(figures.get("airmass_median")) or 1.0,
-                wavelength_nm=_positive(figures.get("wavelength_nm")) or 500.0,
-            ))
+            items.append(
+                PlanRequest(
+                    proposal_id=proposal.id,
+                    label=request.label,
+                    request=request,
+                    instrument=instrument,
+                    hours=to_obtain,
+                    rank=rank,
+                    airmass=_positive(figures.get("airmass_median")) or 1.0,
+                    wavelength_nm=_positive(figures.get("wavelength_nm")) or 500.0,
+                )
+            )
     return items, left_out, notes
 
 

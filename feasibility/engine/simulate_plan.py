@@ -123,10 +123,13 @@ def build_plan(
     bucket_index: dict[tuple[str, str], int] = {}
     bucket_of_slot = np.full(starts.size, -1, dtype=np.intp)
     limits = {i.name: TWILIGHT_SUN_ALTITUDE_DEG[i.twilight] for i in observatory.instruments}
-    dark_enough = {  # per twilight limit: whether at least half of each slot's instants lie below it (as for requests)
-        limit: 2 * np.add.reduceat((view.sun_alt_deg < limit).view(np.uint8), starts, dtype=np.int32) >= counts
-        for limit in {*limits.values(), loosest}
-    } if starts.size else {}
+    dark_enough = (
+        {  # per twilight limit: whether at least half of each slot's instants lie below it (as for requests)
+            limit: 2 * np.add.reduceat((view.sun_alt_deg < limit).view(np.uint8), starts, dtype=np.int32) >= counts for limit in {*limits.values(), loosest}
+        }
+        if starts.size
+        else {}
+    )
     for s, night in enumerate(nights.tolist()):
         name = night_instrument[night]
         if name is not None and name != ANY_INSTRUMENT:
@@ -187,7 +190,11 @@ def request_instants(
     target = request.target
     if isinstance(target, Target):
         vector = target_vector(
-            target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch,
+            target.ra_deg,
+            target.dec_deg,
+            target.pm_ra_cosdec_mas_yr,
+            target.pm_dec_mas_yr,
+            target.epoch,
             2000.0 + (grid_mid - 51544.5) / 365.25,
         )
     elif grid is None:
@@ -195,9 +202,7 @@ def request_instants(
     else:
         vector = track_for(target, grid).directions(view)
     sin_alt = along(view.up, vector)
-    min_alt = max(
-        limit_altitude(constraints.max_airmass, observatory.airmass_limit_formula), site.min_altitude_deg, telescope.min_altitude_deg
-    )
+    min_alt = max(limit_altitude(constraints.max_airmass, observatory.airmass_limit_formula), site.min_altitude_deg, telescope.min_altitude_deg)
     windows = in_windows(request.windows, view.mjd) if request.windows else None
     usable = visible_mask(view, vector, sin_alt, min_alt, telescope.max_altitude_deg, site, windows)
     usable &= view.sun_alt_deg < TWILIGHT_SUN_ALTITUDE_DEG[instrument.twilight]

@@ -196,9 +196,7 @@ def measure_sky(
     track: Track | None = None
     if isinstance(target, Target):
         mid_jyear = 2000.0 + (float(grid.midnight_mjd[n_nights // 2]) - 51544.5) / 365.25
-        vector = target_vector(
-            target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch, mid_jyear
-        )
+        vector = target_vector(target.ra_deg, target.dec_deg, target.pm_ra_cosdec_mas_yr, target.pm_dec_mas_yr, target.epoch, mid_jyear)
     else:  # a moving target: one topocentric direction per instant (feasibility.engine.tracks)
         track = track_for(target, grid)
         vector = track.directions(view)
@@ -352,10 +350,20 @@ def measure_sky(
             "sky": constraints.sky or "bright",
         },
         night_curve=_night_curve(
-            grid, vector if track is None else track, hours_usable, hours_observable, hours_visible,
-            _NightMarks(view=view, usable=usable, site=site, limit_alt=limit_altitude(constraints.max_airmass, formula),
-                        floor_alt=max(site.min_altitude_deg, telescope.min_altitude_deg), airmass_limit=constraints.max_airmass,
-                        formula=formula),
+            grid,
+            vector if track is None else track,
+            hours_usable,
+            hours_observable,
+            hours_visible,
+            _NightMarks(
+                view=view,
+                usable=usable,
+                site=site,
+                limit_alt=limit_altitude(constraints.max_airmass, formula),
+                floor_alt=max(site.min_altitude_deg, telescope.min_altitude_deg),
+                airmass_limit=constraints.max_airmass,
+                formula=formula,
+            ),
         ),
         probe=SkyProbe(
             view=view,

@@ -118,29 +118,20 @@ def visibility_finding(sky: SkyMeasure) -> Finding:
     needed = sky.hours_requested
     level = level_for_hours(clear, hours, needed, sky.has_windows)
     nights = int(np.count_nonzero(sky.visible))
-    limit = (
-        f"airmass {w.airmass(sky.airmass_limit)} ({formula_label(sky.airmass_formula)}; "
-        f"altitude {w.degrees(sky.min_altitude_deg)})"
-    )
+    limit = f"airmass {w.airmass(sky.airmass_limit)} ({formula_label(sky.airmass_formula)}; altitude {w.degrees(sky.min_altitude_deg)})"
     where = f"above {limit} in {sky.twilight} night" + (" within the time windows" if sky.has_windows else "")
     never_up = not math.isfinite(sky.lowest_airmass)
     if hours <= 0.0:
         if never_up:
             message = f"Never rises in {sky.twilight} night this semester."
         elif sky.has_windows:
-            message = (
-                f"Not {where} at any time (lowest airmass in true night this semester "
-                f"{w.airmass(sky.lowest_limit_airmass)})."
-            )
+            message = f"Not {where} at any time (lowest airmass in true night this semester {w.airmass(sky.lowest_limit_airmass)})."
         elif sky.lowest_limit_airmass > sky.airmass_limit:
             message = f"Never {where}: its lowest airmass in true night is {w.airmass(sky.lowest_limit_airmass)}."
         else:
             message = f"Never {where} while clear of the site's horizon and the telescope's limits."
     else:
-        message = (
-            f"{w.hours(hours)} {where} over {w.count(nights, 'night')}; {w.hours(clear)} expected clear; "
-            f"{w.hours(needed)} requested."
-        )
+        message = f"{w.hours(hours)} {where} over {w.count(nights, 'night')}; {w.hours(clear)} expected clear; {w.hours(needed)} requested."
     suggestion = None
     cause = None
     if level is not Level.FEASIBLE:
@@ -342,10 +333,7 @@ def schedule_finding(sky: SkyMeasure, hours_needed: float | None, schedule: Inst
     if observable <= 0.0:
         message = f"No observable hours (see visibility and moon) to place {where}"
     else:
-        message = (
-            f"{w.hours(hours)} of the {w.hours(observable)} observable fall {where}; "
-            f"{w.hours(clear)} expected clear over {w.count(nights, 'night')}"
-        )
+        message = f"{w.hours(hours)} of the {w.hours(observable)} observable fall {where}; {w.hours(clear)} expected clear over {w.count(nights, 'night')}"
     if goal_decides:
         message += f"; the goal needs {w.hours(need)} with overheads ({w.hours(sky.hours_requested)} requested)."
     else:
@@ -439,10 +427,7 @@ def _schedule_suggestion(sky: SkyMeasure, goal_decides: bool, clear: float) -> s
     parts: list[str | None] = []
     if goal_decides:
         if clear > 0.0:
-            parts.append(
-                f"the usable nights give {w.hours(clear)} expected clear: a goal that needs at most "
-                f"{w.hours(clear / MARGIN)} fits (see sensitivity)"
-            )
+            parts.append(f"the usable nights give {w.hours(clear)} expected clear: a goal that needs at most {w.hours(clear / MARGIN)} fits (see sensitivity)")
         else:
             parts.append("see sensitivity: the goal's time is not available")
     probe = sky.probe
@@ -490,15 +475,9 @@ def sun_safety_finding(sky: SkyMeasure) -> Finding:
             f"{w.degrees(closest)} < {w.degrees(limit)}. {defer}"
         )
         if safe_hours > 0.0:
-            suggestion = (
-                f"Do not point there: {w.hours(safe_hours)} of the visible hours keep farther than {w.degrees(limit)} "
-                "from the Sun; observe only then."
-            )
+            suggestion = f"Do not point there: {w.hours(safe_hours)} of the visible hours keep farther than {w.degrees(limit)} from the Sun; observe only then."
         else:
-            suggestion = (
-                f"Do not point there: no visible hour {span} keeps {w.degrees(limit)} from the Sun; "
-                "choose another semester."
-            )
+            suggestion = f"Do not point there: no visible hour {span} keeps {w.degrees(limit)} from the Sun; choose another semester."
     elif closest < limit:
         # Never visible at night, yet near the Sun: anyone trying to catch it in twilight or
         # daylight would point inside the limit, so a reviewer must see the warning.
@@ -558,8 +537,7 @@ def sun_safety_finding(sky: SkyMeasure) -> Finding:
 def _visibility_method(step_minutes: float) -> str:
     """The visibility finding's method text (formatted once per grid step)."""
     return (
-        _GRID_METHOD.format(step=step_minutes)
-        + "; airmass limits in the observatory's stated formula (plain sec z unless it says Hardie 1962, Kasten & Young "
+        _GRID_METHOD.format(step=step_minutes) + "; airmass limits in the observatory's stated formula (plain sec z unless it says Hardie 1962, Kasten & Young "
         "1989 or Young 1994); twilight: Sun's centre at -6/-12/-18 deg (U.S. Naval Observatory); "
         "expected clear hours weight each night by climate.usable_night_fraction of its month"
     )

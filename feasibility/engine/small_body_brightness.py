@@ -30,9 +30,7 @@ def hg_magnitude(
     return absolute_magnitude + 5.0 * np.log10(r * delta) - 2.5 * np.log10((1.0 - slope) * phi1 + slope * phi2)
 
 
-def comet_total_magnitude(
-    total_absolute_magnitude: float, slope: float, sun_distance_au: ArrayLike, earth_distance_au: ArrayLike
-) -> NDArray[np.float64]:
+def comet_total_magnitude(total_absolute_magnitude: float, slope: float, sun_distance_au: ArrayLike, earth_distance_au: ArrayLike) -> NDArray[np.float64]:
     """A comet's total magnitude m = M1 + 5 log₁₀ Δ + K1 log₁₀ r (``slope`` is K1)."""
     r = np.asarray(sun_distance_au, dtype=float)
     delta = np.asarray(earth_distance_au, dtype=float)

@@ -59,12 +59,7 @@ class SmoothCurve:
         h = x[i + 1] - x[i]
         t = (at - x[i]) / h
         t2, t3 = t * t, t * t * t
-        return (
-            (2 * t3 - 3 * t2 + 1) * y[i]
-            + (t3 - 2 * t2 + t) * h * d[i]
-            + (-2 * t3 + 3 * t2) * y[i + 1]
-            + (t3 - t2) * h * d[i + 1]
-        )
+        return (2 * t3 - 3 * t2 + 1) * y[i] + (t3 - 2 * t2 + t) * h * d[i] + (-2 * t3 + 3 * t2) * y[i + 1] + (t3 - t2) * h * d[i + 1]
 
 
 def _pchip_slopes(x: list[float], y: list[float]) -> list[float]:

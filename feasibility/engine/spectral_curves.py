@@ -104,12 +104,54 @@ AEROSOL_FIT_LIMIT_NM = 1000.0
 #: (Serdyuchenko et al. 2014, as binned by Bruneton 2017); the values are placed at the bins' centres, 365-835 nm.
 _OZONE_BIN_START_NM = 360.0
 _OZONE_CROSS_SECTION_M2 = (
-    1.18e-27, 2.182e-28, 2.818e-28, 6.636e-28, 1.527e-27, 2.763e-27, 5.52e-27, 8.451e-27,
-    1.582e-26, 2.316e-26, 3.669e-26, 4.924e-26, 7.752e-26, 9.016e-26, 1.48e-25, 1.602e-25,
-    2.139e-25, 2.755e-25, 3.091e-25, 3.5e-25, 4.266e-25, 4.672e-25, 4.398e-25, 4.701e-25,
-    5.019e-25, 4.305e-25, 3.74e-25, 3.215e-25, 2.662e-25, 2.238e-25, 1.852e-25, 1.473e-25,
-    1.209e-25, 9.423e-26, 7.455e-26, 6.566e-26, 5.105e-26, 4.15e-26, 4.228e-26, 3.237e-26,
-    2.451e-26, 2.801e-26, 2.534e-26, 1.624e-26, 1.465e-26, 2.078e-26, 1.383e-26, 7.105e-27,
+    1.18e-27,
+    2.182e-28,
+    2.818e-28,
+    6.636e-28,
+    1.527e-27,
+    2.763e-27,
+    5.52e-27,
+    8.451e-27,
+    1.582e-26,
+    2.316e-26,
+    3.669e-26,
+    4.924e-26,
+    7.752e-26,
+    9.016e-26,
+    1.48e-25,
+    1.602e-25,
+    2.139e-25,
+    2.755e-25,
+    3.091e-25,
+    3.5e-25,
+    4.266e-25,
+    4.672e-25,
+    4.398e-25,
+    4.701e-25,
+    5.019e-25,
+    4.305e-25,
+    3.74e-25,
+    3.215e-25,
+    2.662e-25,
+    2.238e-25,
+    1.852e-25,
+    1.473e-25,
+    1.209e-25,
+    9.423e-26,
+    7.455e-26,
+    6.566e-26,
+    5.105e-26,
+    4.15e-26,
+    4.228e-26,
+    3.237e-26,
+    2.451e-26,
+    2.801e-26,
+    2.534e-26,
+    1.624e-26,
+    1.465e-26,
+    2.078e-26,
+    1.383e-26,
+    7.105e-27,
 )
 #: Curves built, by climate and elevation (a few observatory versions at most; the oldest is dropped beyond this).
 _CURVES_KEPT = 16
@@ -117,9 +159,7 @@ _CURVES: dict[tuple[object, ...], SpectralCurves] = {}
 #: The same, by the climate object itself (its id, the object kept so the id stays its own): skips building the key.
 _LAST: dict[int, tuple[Climate, float, SpectralCurves]] = {}
 
-_OZONE_CURVE = SmoothCurve(
-    [_OZONE_BIN_START_NM + 5.0 + 10.0 * i for i in range(len(_OZONE_CROSS_SECTION_M2))], _OZONE_CROSS_SECTION_M2
-)
+_OZONE_CURVE = SmoothCurve([_OZONE_BIN_START_NM + 5.0 + 10.0 * i for i in range(len(_OZONE_CROSS_SECTION_M2))], _OZONE_CROSS_SECTION_M2)
 
 
 @dataclass(frozen=True)
@@ -174,8 +214,7 @@ class SpectralCurves:
             self._sky = SmoothCurve(
                 wavelengths,
                 [
-                    mean([math.log(b.zero_point_jy) - 0.4 * math.log(10.0) * b.sky_mag_arcsec2 for b in by_wavelength[w]])
-                    - 2.0 * math.log(w)
+                    mean([math.log(b.zero_point_jy) - 0.4 * math.log(10.0) * b.sky_mag_arcsec2 for b in by_wavelength[w]]) - 2.0 * math.log(w)
                     for w in wavelengths
                 ],
                 beyond="slope",
@@ -184,9 +223,7 @@ class SpectralCurves:
         self.pressure_hpa = site_pressure_hpa(elevation_m)
         if climate.extinction_by_wavelength:
             table = climate.extinction_by_wavelength
-            self._extinction_table: SmoothCurve | None = SmoothCurve(
-                [p.wavelength_nm for p in table], [p.mag_per_airmass for p in table]
-            )
+            self._extinction_table: SmoothCurve | None = SmoothCurve([p.wavelength_nm for p in table], [p.mag_per_airmass for p in table])
         else:
             self._extinction_table = None
             measured = [(w, mean([b.extinction_mag_per_airmass for b in by_wavelength[w]])) for w in wavelengths]
@@ -196,11 +233,7 @@ class SpectralCurves:
 
         colours = [(b.wavelength_nm, SOLAR_COLOUR_MINUS_V[name]) for name, b in bands if name in SOLAR_COLOUR_MINUS_V]
         colour_wavelengths = _distinct([w for w, _ in colours])
-        self._solar_colour = (
-            SmoothCurve(colour_wavelengths, [mean([c for w, c in colours if w == cw]) for cw in colour_wavelengths])
-            if colours
-            else None
-        )
+        self._solar_colour = SmoothCurve(colour_wavelengths, [mean([c for w, c in colours if w == cw]) for cw in colour_wavelengths]) if colours else None
 
     def zero_point_jy(self, wavelength_nm: float) -> float:
         """f_ν of Vega magnitude 0 at ``wavelength_nm`` (Jy)."""
@@ -250,10 +283,7 @@ def curves_for(observatory: Observatory) -> SpectralCurves:
         return last[2]
     key = (
         observatory.site.elevation_m,
-        tuple(
-            (name, b.wavelength_nm, b.zero_point_jy, b.sky_mag_arcsec2, b.extinction_mag_per_airmass)
-            for name, b in climate.bands.items()
-        ),
+        tuple((name, b.wavelength_nm, b.zero_point_jy, b.sky_mag_arcsec2, b.extinction_mag_per_airmass) for name, b in climate.bands.items()),
         tuple((p.wavelength_nm, p.mag_per_airmass) for p in climate.extinction_by_wavelength),
         tuple((p.wavelength_nm, p.ab_mag_arcsec2) for p in climate.dark_sky_by_wavelength),
     )

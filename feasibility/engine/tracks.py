@@ -166,8 +166,13 @@ def cubic_coefficients(values: Array) -> Array:
 def track_for(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget, grid: SkyGrid) -> Track:
     """The track of a moving ``target`` over ``grid``'s semester (computed once per target and semester)."""
     return _cached_track(
-        target.model_dump_json(), target.kind, float(grid.midnight_mjd[0]), float(grid.midnight_mjd[-1]),
-        grid.latitude_deg, grid.longitude_deg, grid.elevation_m,
+        target.model_dump_json(),
+        target.kind,
+        float(grid.midnight_mjd[0]),
+        float(grid.midnight_mjd[-1]),
+        grid.latitude_deg,
+        grid.longitude_deg,
+        grid.elevation_m,
     )
 
 
@@ -179,9 +184,7 @@ def forget_tracks() -> None:
 
 
 @functools.lru_cache(maxsize=512)  # about 50 kB each
-def _cached_track(
-    document: str, kind: str, first_midnight: float, last_midnight: float, latitude: float, longitude: float, elevation: float
-) -> Track:
+def _cached_track(document: str, kind: str, first_midnight: float, last_midnight: float, latitude: float, longitude: float, elevation: float) -> Track:
     import erfa
 
     target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget
@@ -197,8 +200,13 @@ def _cached_track(
     site = enu_matrix(latitude, longitude) @ (erfa.gd2gc(1, math.radians(longitude), math.radians(latitude), elevation) / erfa.DAU)
     if isinstance(target, MajorBodyTarget):
         return Track(
-            kind=target.kind, mjd=mjd, position=major_body_geocentric(target.body, mjd), known_span=None,
-            magnitude=None, magnitude_band=None, site_offset=site,
+            kind=target.kind,
+            mjd=mjd,
+            position=major_body_geocentric(target.body, mjd),
+            known_span=None,
+            magnitude=None,
+            magnitude_band=None,
+            site_offset=site,
             method=f"{target.body.capitalize()} from astropy get_body with the built-in ephemeris (ERFA epv00, plan94, "
             f"moon98; light-time corrected), every {step * 24:g} h, interpolated; topocentric with the site's position",
         )
@@ -207,8 +215,13 @@ def _cached_track(
     table = interpolate_table(target, mjd)
     times = table_times_mjd(target)
     return Track(
-        kind=target.kind, mjd=mjd, position=table.directions, known_span=(float(times[0]), float(times[-1])), magnitude=table.magnitude,
-        magnitude_band=None, parallax=False,
+        kind=target.kind,
+        mjd=mjd,
+        position=table.directions,
+        known_span=(float(times[0]), float(times[-1])),
+        magnitude=table.magnitude,
+        magnitude_band=None,
+        parallax=False,
         method=f"the proposer's ephemeris table ({len(target.ephemeris_table)} rows), interpolated linearly as unit "
         "vectors and used as given (no parallax); outside its span the position is unknown and those instants do not count",
     )
@@ -225,13 +238,20 @@ def _elements_track(target: OrbitalElementsTarget, mjd: Array, site: Array, step
         law = f"V from the IAU H, G system (Bowell et al. 1989), H = {target.absolute_magnitude:g}, G = {target.slope:g}"
     elif target.total_absolute_magnitude is not None and target.total_magnitude_slope is not None:
         magnitude = comet_total_magnitude(target.total_absolute_magnitude, target.total_magnitude_slope, seen.sun_distance_au, seen.earth_distance_au)
-        law = (f"V from the comet total-magnitude law m = M1 + 5 log Δ + K1 log r, M1 = {target.total_absolute_magnitude:g}, "
-               f"K1 = {target.total_magnitude_slope:g}")
+        law = (
+            f"V from the comet total-magnitude law m = M1 + 5 log Δ + K1 log r, M1 = {target.total_absolute_magnitude:g}, K1 = {target.total_magnitude_slope:g}"
+        )
     kind = "ellipse" if orbit.eccentricity < 1.0 else ("hyperbola" if orbit.eccentricity > 1.0 else "parabola")
     return Track(
-        kind=target.kind, mjd=mjd, position=seen.geocentric, known_span=None, magnitude=magnitude,
-        magnitude_band="V" if magnitude is not None else None, sun_distance_au=seen.sun_distance_au,
-        earth_distance_au=seen.earth_distance_au, site_offset=site,
+        kind=target.kind,
+        mjd=mjd,
+        position=seen.geocentric,
+        known_span=None,
+        magnitude=magnitude,
+        magnitude_band="V" if magnitude is not None else None,
+        sun_distance_au=seen.sun_distance_au,
+        earth_distance_au=seen.earth_distance_au,
+        site_offset=site,
         method=f"two-body {kind} from the osculating elements (ecliptic J2000.0; Kepler's equation, Meeus ch. 33-34), "
         f"the Earth from ERFA epv00, light-time corrected, every {step * 24:g} h, interpolated; topocentric with the "
         f"site's position; {law}",

@@ -90,13 +90,9 @@ class SkyProbe:
     def _visible(self, airmass_limit: float | None, windows: bool) -> NDArray[np.bool_]:
         limit = self.airmass_limit if airmass_limit is None else airmass_limit
         min_alt = max(limit_altitude(limit, self.formula), self.floor_alt)
-        return visible_mask(
-            self.view, self.vector, self.sin_alt, min_alt, self.max_alt, self.site, self.windows if windows else None
-        )
+        return visible_mask(self.view, self.vector, self.sin_alt, min_alt, self.max_alt, self.site, self.windows if windows else None)
 
-    def _observable(
-        self, visible: NDArray[np.bool_], separation: float | None, illumination: float | None
-    ) -> NDArray[np.bool_]:
+    def _observable(self, visible: NDArray[np.bool_], separation: float | None, illumination: float | None) -> NDArray[np.bool_]:
         separation = self.min_moon_separation_deg if separation is None else separation
         illumination = self.max_moon_illumination if illumination is None else illumination
         observable = visible.copy()
@@ -112,9 +108,7 @@ class SkyProbe:
         """The sines of the altitudes and the nights of the instants visible at the floor altitude (cached)."""
         cached = self._floor_cache.get(windows)
         if cached is None:
-            mask = visible_mask(
-                self.view, self.vector, self.sin_alt, self.floor_alt, self.max_alt, self.site, self.windows if windows else None
-            )
+            mask = visible_mask(self.view, self.vector, self.sin_alt, self.floor_alt, self.max_alt, self.site, self.windows if windows else None)
             chosen = np.flatnonzero(mask)
             cached = self._floor_cache[windows] = (self.sin_alt[chosen], self.view.night_index[chosen])
         return cached

@@ -10,8 +10,20 @@ from __future__ import annotations
 import math
 
 __all__ = [
-    "airmass", "arcsec", "count", "degrees", "fraction", "hours", "magnitude", "nanometres", "percent", "percentile",
-    "pixels", "ratio", "seconds", "snr",
+    "airmass",
+    "arcsec",
+    "count",
+    "degrees",
+    "fraction",
+    "hours",
+    "magnitude",
+    "nanometres",
+    "percent",
+    "percentile",
+    "pixels",
+    "ratio",
+    "seconds",
+    "snr",
 ]
 
 
@@ -57,7 +69,7 @@ def degrees(value: float) -> str:
 
 def arcsec(value: float) -> str:
     """Angles in arcseconds, two decimals: "0.85\"" (seeing, slits, image quality)."""
-    return f"{value:.2f}\""
+    return f'{value:.2f}"'
 
 
 def rate(value: float) -> str:
@@ -105,7 +117,7 @@ def percentile(value: float) -> str:
     text = f"{value:g}"
     whole = int(value) if float(value).is_integer() else None
     if whole is not None and whole % 100 not in (11, 12, 13) and whole % 10 in (1, 2, 3):
-        return f"{text}{ {1: 'st', 2: 'nd', 3: 'rd'}[whole % 10]} percentile"
+        return f"{text}{ {1: 'st', 2: 'nd', 3: 'rd'}[whole % 10] } percentile"
     return f"{text}th percentile"
 
 

@@ -43,6 +43,7 @@ MIN_PASSWORD_LENGTH = 8
 #: Longest password accepted: enough for any passphrase, short enough that hashing it costs nothing extra.
 MAX_PASSWORD_LENGTH = 1000
 
+
 def create_user(session: Session, name: str, role: str, *, password: str | None = None, email: str | None = None) -> User:
     """Store a new user; the password, when given, is kept as a werkzeug salted hash."""
     if role not in ROLES:
@@ -124,18 +125,19 @@ def hash_token(raw: str) -> str:
 
 def user_for_token(session: Session, raw: str) -> User | None:
     """The user holding the (not revoked) token ``raw``, or None."""
-    query = select(User).join(ApiToken, ApiToken.user_id == User.id).where(
-        ApiToken.token_hash == hash_token(raw), ApiToken.revoked_at.is_(None)
-    )
+    query = select(User).join(ApiToken, ApiToken.user_id == User.id).where(ApiToken.token_hash == hash_token(raw), ApiToken.revoked_at.is_(None))
     return session.scalar(query)
 
 
 def revoke_user_sessions(db: Session, user_id: int) -> int:
     """Revoke every live dashboard session of the user (after a password change); how many were live."""
-    result = cast(CursorResult[Any], db.execute(
-        update(PageSession)
-        .where(PageSession.user_id == user_id, PageSession.revoked_at.is_(None), PageSession.expires_at > utcnow())
-        .values(revoked_at=utcnow())
-        .execution_options(synchronize_session=False)
-    ))
+    result = cast(
+        CursorResult[Any],
+        db.execute(
+            update(PageSession)
+            .where(PageSession.user_id == user_id, PageSession.revoked_at.is_(None), PageSession.expires_at > utcnow())
+            .values(revoked_at=utcnow())
+            .execution_options(synchronize_session=False)
+        ),
+    )
     return int(result.rowcount or 0)

@@ -131,15 +131,17 @@ def compare_results(before: dict[str, Any], after: dict[str, Any]) -> list[dict[
         changed = [name for name, f in figures.items() if f["changed"]]
         if verdict_a == verdict_b and not changed:
             continue
-        entries.append({
-            "label": label,
-            "instrument": (b or a or {}).get("instrument"),
-            "target": (b or a or {}).get("target"),
-            "verdict_before": verdict_a,
-            "verdict_after": verdict_b,
-            "changed_figures": changed,
-            "figures": figures,
-        })
+        entries.append(
+            {
+                "label": label,
+                "instrument": (b or a or {}).get("instrument"),
+                "target": (b or a or {}).get("target"),
+                "verdict_before": verdict_a,
+                "verdict_after": verdict_b,
+                "changed_figures": changed,
+                "figures": figures,
+            }
+        )
     return entries
 
 

@@ -23,8 +23,20 @@ from feasibility.service.runtime import current_runtime
 from feasibility.settings import Settings
 
 __all__ = [
-    "BATCH_FROM", "BULK_PRIORITY", "CHECK_BATCH_TASK", "CHECK_TASK", "RUNS_HEADER", "RUNS_PER_MESSAGE", "SUBMISSION_PRIORITY", "CeleryDispatcher",
-    "Dispatcher", "batches", "control_queue_name", "enqueue", "mark_with_commit", "queue_names",
+    "BATCH_FROM",
+    "BULK_PRIORITY",
+    "CHECK_BATCH_TASK",
+    "CHECK_TASK",
+    "RUNS_HEADER",
+    "RUNS_PER_MESSAGE",
+    "SUBMISSION_PRIORITY",
+    "CeleryDispatcher",
+    "Dispatcher",
+    "batches",
+    "control_queue_name",
+    "enqueue",
+    "mark_with_commit",
+    "queue_names",
 ]
 
 #: Message priorities. With the Redis transport 0 is the highest priority (the opposite of AMQP).

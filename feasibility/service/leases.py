@@ -164,8 +164,6 @@ class Heartbeat:
     def _renew_here(self, until: datetime) -> bool:
         with session_scope() as session:
             statement = (
-                update(_RUNS)
-                .where(_RUNS.c.id == self.run_id, _RUNS.c.state == "running", _RUNS.c.attempts == self.attempt)
-                .values(lease_expires_at=until)
+                update(_RUNS).where(_RUNS.c.id == self.run_id, _RUNS.c.state == "running", _RUNS.c.attempts == self.attempt).values(lease_expires_at=until)
             )
             return bool(cast(CursorResult[Any], session.execute(statement)).rowcount)

@@ -55,4 +55,3 @@ def version_answer(version: ScheduleVersion | ObservatoryVersion) -> dict[str, A
     else:
         data["name"] = version.name
     return data
-

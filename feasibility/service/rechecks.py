@@ -148,8 +148,7 @@ def upload_observatory(session: Session, data: dict[str, Any] | str | bytes, upl
         if schedule is None:
             continue
         for problem in schedule_problems(schedule, observatory):
-            problems.append(Problem(_schedule_field(problem.field),
-                                    f"the schedule in force for {semester} no longer fits: {problem.field}: {problem.message}"))
+            problems.append(Problem(_schedule_field(problem.field), f"the schedule in force for {semester} no longer fits: {problem.field}: {problem.message}"))
     if problems:
         raise DocumentError(problems, "observatory")
     before = current_observatory(session)
@@ -217,12 +216,7 @@ def plan_rechecks(
             if observatory_counts and basis.observatory_version_id != observatory_row.id:
                 reasons.append("observatory")
             schedule_key = schedule_row.id if schedule_row is not None else 0
-            if (
-                "schedule" in triggers
-                and basis.schedule_key != schedule_key
-                and schedule_row is not None
-                and _changed(schedule_row.uploaded_at, changed_since)
-            ):
+            if "schedule" in triggers and basis.schedule_key != schedule_key and schedule_row is not None and _changed(schedule_row.uploaded_at, changed_since):
                 instruments = _schedule_affects(session, basis, schedule_row, version, diffs)
                 if instruments:
                     reasons.append("schedule")

@@ -83,8 +83,9 @@ def relay(dispatcher: Any, settings: Settings, *, exclude: set[int] | None = Non
             if durable:
                 mark_sent(ids)
     if done.taken_back or done.sent:
-        log.info("relay: %d runs taken back from gone workers, %d sent%s", len(done.taken_back), done.sent,
-                 " (messages were lost)" if done.lost_messages else "")
+        log.info(
+            "relay: %d runs taken back from gone workers, %d sent%s", len(done.taken_back), done.sent, " (messages were lost)" if done.lost_messages else ""
+        )
     return done
 
 
@@ -114,7 +115,9 @@ def mark_sent(run_ids: Iterable[int]) -> None:
         return
     with session_scope() as session:
         session.execute(
-            update(CheckRun).where(CheckRun.id.in_(ids), CheckRun.state.in_(("queued", "running"))).values(dispatched_at=utcnow())
+            update(CheckRun)
+            .where(CheckRun.id.in_(ids), CheckRun.state.in_(("queued", "running")))
+            .values(dispatched_at=utcnow())
             .execution_options(synchronize_session=False)
         )
 
@@ -126,8 +129,7 @@ def mark_unsent(run_ids: Iterable[int]) -> None:
         return
     with session_scope() as session:
         session.execute(
-            update(CheckRun).where(CheckRun.id.in_(ids), CheckRun.state == "queued").values(dispatched_at=None)
-            .execution_options(synchronize_session=False)
+            update(CheckRun).where(CheckRun.id.in_(ids), CheckRun.state == "queued").values(dispatched_at=None).execution_options(synchronize_session=False)
         )
 
 

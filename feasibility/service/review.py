@@ -227,6 +227,7 @@ def for_proposer(review: Review, *, show_notes: bool) -> dict[str, Any]:
 
 # --- helpers -------------------------------------------------------------------------------
 
+
 def _reviewer(session: Session, name: Any) -> User:
     reviewer, problem = _find_reviewer(session, name)
     if problem is not None:

@@ -201,17 +201,27 @@ def _store_result(run_id: int, attempt: int, result: ProposalResult) -> str:
     finished = utcnow()
     with session_scope() as session:
         finish = _finish_statement(
-            run_id, attempt, finished, state="done", verdict=result.verdict.value, result=JSONText(json.dumps(stored, separators=(",", ":"), ensure_ascii=False)), error=None
+            run_id,
+            attempt,
+            finished,
+            state="done",
+            verdict=result.verdict.value,
+            result=JSONText(json.dumps(stored, separators=(",", ":"), ensure_ascii=False)),
+            error=None,
         )
         row = session.execute(finish.returning(_RUNS.c.proposal_version_id, _RUNS.c.reason, _finished_before(run_id).label("finished_before"))).first()
         if row is None:
             return "superseded"
         if result.requests:
             # One multi-row INSERT ("insertmanyvalues"); RETURNING in parameter order pairs ids with requests.
-            outcome_ids = session.execute(
-                insert(_OUTCOMES).returning(_OUTCOMES.c.id, sort_by_parameter_order=True),
-                [_outcome_row(run_id, request) for request in stored["requests"]],
-            ).scalars().all()
+            outcome_ids = (
+                session.execute(
+                    insert(_OUTCOMES).returning(_OUTCOMES.c.id, sort_by_parameter_order=True),
+                    [_outcome_row(run_id, request) for request in stored["requests"]],
+                )
+                .scalars()
+                .all()
+            )
             findings = [
                 {
                     "outcome_id": outcome_id,

@@ -97,8 +97,13 @@ def execute_simulation(simulation_id: int) -> str:
         if not proposals:
             raise ValueError(f"semester {semester!r} has no proposals")
         result = simulate_semester(
-            proposals, observatory, schedule, ranks=settings.ranks or None, realisations=settings.realisations,
-            seed=settings.seed, hours=settings.hours,  # type: ignore[arg-type]
+            proposals,
+            observatory,
+            schedule,
+            ranks=settings.ranks or None,
+            realisations=settings.realisations,
+            seed=settings.seed,
+            hours=settings.hours,  # type: ignore[arg-type]
         )
         state, error = "done", None
     except Exception as exc:  # noqa: BLE001 - the asker gets the reason, the service goes on

@@ -90,9 +90,7 @@ def queue_notices(session: Session, change: VerdictChange) -> list[WebhookDelive
 
     Runs inside the caller's transaction; nothing is sent here.
     """
-    users = session.scalars(
-        select(User).where(User.webhook_url.is_not(None), access.notice_recipients(change.proposal_ref)).order_by(User.id)
-    ).all()
+    users = session.scalars(select(User).where(User.webhook_url.is_not(None), access.notice_recipients(change.proposal_ref)).order_by(User.id)).all()
     record = session.get(ProposalRecord, change.proposal_ref)
     body = notice_body(change, record)
     deliveries = [WebhookDelivery(user_id=user.id, change_id=change.id, body=body) for user in users]
@@ -115,10 +113,7 @@ def notice_body(change: VerdictChange, record: ProposalRecord | None) -> str:
         "reason": details.get("reason"),
         "run_id": change.run_id,
         "recorded_at": (change.recorded_at or utcnow()).isoformat(),
-        "requests": [
-            {k: r.get(k) for k in ("label", "instrument", "verdict_before", "verdict_after", "changed_figures")}
-            for r in details.get("requests", [])
-        ],
+        "requests": [{k: r.get(k) for k in ("label", "instrument", "verdict_before", "verdict_after", "changed_figures")} for r in details.get("requests", [])],
     }
     return json.dumps(notice, sort_keys=True, separators=(",", ":"))
 
@@ -239,12 +234,15 @@ def _claim(sessions: SessionMaker, now: datetime, limit: int) -> list[tuple[int,
             if not url:
                 delivery.state, delivery.last_error = "failed", "the user no longer has a webhook address"
                 continue
-            taken = cast(CursorResult[Any], session.execute(
-                update(WebhookDelivery)
-                .where(WebhookDelivery.id == delivery.id, WebhookDelivery.next_attempt_at == delivery.next_attempt_at)
-                .values(next_attempt_at=now + CLAIM_LEASE)
-                .execution_options(synchronize_session=False)
-            ))
+            taken = cast(
+                CursorResult[Any],
+                session.execute(
+                    update(WebhookDelivery)
+                    .where(WebhookDelivery.id == delivery.id, WebhookDelivery.next_attempt_at == delivery.next_attempt_at)
+                    .values(next_attempt_at=now + CLAIM_LEASE)
+                    .execution_options(synchronize_session=False)
+                ),
+            )
             if taken.rowcount == 1:
                 claimed.append((delivery.id, url, secret, delivery.body, delivery.attempts))
     return claimed
@@ -351,4 +349,3 @@ def _post(url: str, secret: str, body: str, delivery_id: int, timeout_s: float, 
         reason = getattr(exc, "reason", exc)
         return f"not delivered: {reason}"
     return None if 200 <= status < 300 else f"HTTP {status}"
-

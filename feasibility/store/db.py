@@ -67,6 +67,8 @@ class JSONText(str):
     pydantic writes a large result's JSON several times faster than :func:`json.dumps`
     re-encodes the equivalent dict; any other value is encoded as usual.
     """
+
+
 class Store:
     """One engine and its two session factories (read-write and read-only); ``store["engine"]`` is the engine."""
 
@@ -137,9 +139,7 @@ def make_engine(url: str) -> Engine:
         path = url.split("///", 1)[1] if "///" in url else ""
         if path and path != ":memory:":
             Path(path).parent.mkdir(parents=True, exist_ok=True)
-        engine = create_engine(
-            url, json_serializer=_json_text, connect_args={"timeout": SQLITE_BUSY_TIMEOUT_MS / 1000, "check_same_thread": False}
-        )
+        engine = create_engine(url, json_serializer=_json_text, connect_args={"timeout": SQLITE_BUSY_TIMEOUT_MS / 1000, "check_same_thread": False})
         event.listen(engine, "connect", _sqlite_on_connect)
         event.listen(engine, "begin", _sqlite_on_begin)
     else:

@@ -95,9 +95,7 @@ def runs_of(session: Session, proposal: ProposalRecord, *, offset: int = 0, limi
 
 
 def _runs(proposal: ProposalRecord) -> Select:
-    return select(CheckRun).join(ProposalVersion, CheckRun.proposal_version_id == ProposalVersion.id).where(
-        ProposalVersion.proposal_ref == proposal.id
-    )
+    return select(CheckRun).join(ProposalVersion, CheckRun.proposal_version_id == ProposalVersion.id).where(ProposalVersion.proposal_ref == proposal.id)
 
 
 def _latest_versions() -> Subquery:
@@ -106,5 +104,3 @@ def _latest_versions() -> Subquery:
         .group_by(ProposalVersion.proposal_ref)
         .subquery("latest_version")
     )
-
-

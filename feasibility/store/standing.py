@@ -76,12 +76,7 @@ def is_standing(session: Session, run: CheckRun) -> bool:
 
 def run_before(session: Session, run: CheckRun) -> CheckRun | None:
     """The proposal's finished run just before ``run`` in the standing order, or None."""
-    query = (
-        _done_runs_of(ProposalVersion.proposal_ref == _proposal_of(run))
-        .where(CheckRun.id != run.id, ~_after(run))
-        .order_by(*ORDER)
-        .limit(1)
-    )
+    query = _done_runs_of(ProposalVersion.proposal_ref == _proposal_of(run)).where(CheckRun.id != run.id, ~_after(run)).order_by(*ORDER).limit(1)
     return session.scalars(query).first()
 
 
@@ -98,11 +93,7 @@ def unindexed(column: Any) -> Any:
 
 
 def _done_runs_of(condition: Any) -> Any:
-    return (
-        select(CheckRun)
-        .join(ProposalVersion, ProposalVersion.id == CheckRun.proposal_version_id)
-        .where(condition, CheckRun.state == "done")
-    )
+    return select(CheckRun).join(ProposalVersion, ProposalVersion.id == CheckRun.proposal_version_id).where(condition, CheckRun.state == "done")
 
 
 def _proposal_of(run: CheckRun) -> Any:

@@ -151,7 +151,9 @@ def submit_many() -> dict[str, Any]:
                 continue
             if send:
                 to_send.append(run_id)
-            answers.append({"index": index, "status": 202 if created else 200, "created": created, "run_id": run_id, "run": url_for("api.get_run", run_id=run_id)})
+            answers.append(
+                {"index": index, "status": 202 if created else 200, "created": created, "run_id": run_id, "run": url_for("api.get_run", run_id=run_id)}
+            )
     finally:
         # What was stored is queued, whatever happened to the items after it: several runs a message (dispatch.RUNS_PER_MESSAGE),
         # marked sent in one transaction once the broker has them (not with each item's commit: the batch is sent at its end).

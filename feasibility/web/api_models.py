@@ -21,12 +21,54 @@ from feasibility.results import ProposalResult
 from feasibility.service.review import NOTE_MAX_CHARS
 
 __all__ = [
-    "Answer", "BulkAnswer", "BulkAssignment", "BulkAssignmentBody", "BulkBody", "BulkItem", "Change", "ChangeList", "ChangesQuery",
-    "CompareQuery", "DecisionBody", "Error", "Health", "Invalid", "Me", "NoteBody", "ObservatoryView", "OpenApiDocument", "PageQuery",
-    "PasswordAnswer", "PasswordBody", "ProposalListQuery", "ProposalPage", "ProposalSummary", "ProposalView", "RecheckBody",
-    "RecheckPlan", "ReviewAnswer", "RevokedToken", "RevokedTokens", "Run", "RunPage", "ScheduleChanges", "ScheduleComparison",
-    "ScheduleVersions", "ScheduleView", "SchemaDocument", "SchemaIndex", "SimulationList", "SimulationView", "StoredVersion",
-    "SubmitQuery", "Submitted", "TokenInfo", "TokenList", "UploadAnswer", "WebhookAnswer", "WebhookBody",
+    "Answer",
+    "BulkAnswer",
+    "BulkAssignment",
+    "BulkAssignmentBody",
+    "BulkBody",
+    "BulkItem",
+    "Change",
+    "ChangeList",
+    "ChangesQuery",
+    "CompareQuery",
+    "DecisionBody",
+    "Error",
+    "Health",
+    "Invalid",
+    "Me",
+    "NoteBody",
+    "ObservatoryView",
+    "OpenApiDocument",
+    "PageQuery",
+    "PasswordAnswer",
+    "PasswordBody",
+    "ProposalListQuery",
+    "ProposalPage",
+    "ProposalSummary",
+    "ProposalView",
+    "RecheckBody",
+    "RecheckPlan",
+    "ReviewAnswer",
+    "RevokedToken",
+    "RevokedTokens",
+    "Run",
+    "RunPage",
+    "ScheduleChanges",
+    "ScheduleComparison",
+    "ScheduleVersions",
+    "ScheduleView",
+    "SchemaDocument",
+    "SchemaIndex",
+    "SimulationList",
+    "SimulationView",
+    "StoredVersion",
+    "SubmitQuery",
+    "Submitted",
+    "TokenInfo",
+    "TokenList",
+    "UploadAnswer",
+    "WebhookAnswer",
+    "WebhookBody",
     "AssignmentBody",
 ]
 
@@ -76,8 +118,9 @@ class Invalid(Answer):
 
 
 class SubmitQuery(Query):
-    wait: float | None = Field(None, ge=0, description="Wait up to this many seconds for the verdict (a self-check).",
-                               json_schema_extra={"x-setting-maximum": "MAX_WAIT_S"})
+    wait: float | None = Field(
+        None, ge=0, description="Wait up to this many seconds for the verdict (a self-check).", json_schema_extra={"x-setting-maximum": "MAX_WAIT_S"}
+    )
     on_behalf_of: str | None = Field(None, description="Portals: the user name of the proposer submitted for.")
 
 
@@ -127,8 +170,7 @@ class Submitted(Answer):
 
 
 class BulkBody(Query):
-    proposals: list[dict[str, Any]] = Field(description="Proposals, each as in POST /api/v1/proposals.",
-                                            json_schema_extra={"x-setting-max-items": "MAX_BULK"})
+    proposals: list[dict[str, Any]] = Field(description="Proposals, each as in POST /api/v1/proposals.", json_schema_extra={"x-setting-max-items": "MAX_BULK"})
 
 
 class BulkItem(Answer):
@@ -547,9 +589,12 @@ class SimulationView(Answer):
     queued_at: Time
     finished_at: Time | None
     error: str | None
-    result: dict[str, Any] | None = Field(None, description="Per request and proposal the chance of completion, of at least half the "
-                                          "hours and the hours obtained; per instrument and lunar time the hours offered, lost to "
-                                          "weather, used and asked for.")
+    result: dict[str, Any] | None = Field(
+        None,
+        description="Per request and proposal the chance of completion, of at least half the "
+        "hours and the hours obtained; per instrument and lunar time the hours offered, lost to "
+        "weather, used and asked for.",
+    )
     url: str | None = Field(None, description="Where to follow it (in the answer to a new simulation).")
 
 

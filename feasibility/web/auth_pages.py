@@ -122,8 +122,7 @@ def role_refusal(user: User, action: str) -> str:
     granters = sorted(access.roles_for(access.MANAGE_ACCESS))
     admins = list(db().scalars(select(User.name).where(User.role.in_(granters), User.name != user.name).order_by(User.name).limit(3)))
     who = f"an administrator of this service ({', '.join(admins)})" if admins else "the staff who run this service"
-    return (f"This page is for {needed}; you are signed in as {user.name}, a {user.role}. "
-            f"To use it, ask {who} to give you that role or an account that has it.")
+    return f"This page is for {needed}; you are signed in as {user.name}, a {user.role}. To use it, ask {who} to give you that role or an account that has it."
 
 
 bp.after_request(security_headers)

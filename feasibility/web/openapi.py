@@ -65,45 +65,63 @@ OPERATIONS: dict[str, Operation] = {
         "Validated, stored and queued for checking: 202 with a new run (if the queue is unreachable it is sent as soon as it is back). "
         "Identical content returns the existing run (200; a run still waiting is queued again); with `wait`, 200 once the verdict "
         "came within that many seconds (a self-check).",
-        query=m.SubmitQuery, body=Proposal, body_types=_DOCUMENT_TYPES, rate_limited=True,
-    ),
-    "api.submit_many": Operation(
-        "Submit many proposals", {200: m.BulkAnswer}, (400, 401, 403, 413, 422),
-        "`{\"proposals\": [...]}` or a bare list; each item is answered on its own.", body=m.BulkBody, body_types=_DOCUMENT_TYPES,
+        query=m.SubmitQuery,
+        body=Proposal,
+        body_types=_DOCUMENT_TYPES,
         rate_limited=True,
     ),
-    "api.list_proposals": Operation("List the proposals the caller may read, newest first", {200: m.ProposalPage}, (400, 401),
-                                    query=m.ProposalListQuery),
+    "api.submit_many": Operation(
+        "Submit many proposals",
+        {200: m.BulkAnswer},
+        (400, 401, 403, 413, 422),
+        '`{"proposals": [...]}` or a bare list; each item is answered on its own.',
+        body=m.BulkBody,
+        body_types=_DOCUMENT_TYPES,
+        rate_limited=True,
+    ),
+    "api.list_proposals": Operation("List the proposals the caller may read, newest first", {200: m.ProposalPage}, (400, 401), query=m.ProposalListQuery),
     "api.get_proposal": Operation("A proposal, its latest run and the verdict that stands", {200: m.ProposalView}, _READ),
-    "api.proposal_runs": Operation("A proposal's check runs, newest first (results left out)", {200: m.RunPage}, (400, *_READ),
-                                   query=m.PageQuery),
+    "api.proposal_runs": Operation("A proposal's check runs, newest first (results left out)", {200: m.RunPage}, (400, *_READ), query=m.PageQuery),
     "api.get_run": Operation("A check run, with its result when done", {200: m.Run}, _READ),
     # -- schedules, observatory, re-checks, changes, webhooks (feasibility.web.admin_api)
     "admin_api.post_schedule": Operation(
-        "Upload an instrument schedule (admin)", {201: m.UploadAnswer, 200: m.UploadAnswer}, (*_ADMIN, 413, 422),
+        "Upload an instrument schedule (admin)",
+        {201: m.UploadAnswer, 200: m.UploadAnswer},
+        (*_ADMIN, 413, 422),
         "Validated against the observatory in force and stored as a new version (201); re-checks only the proposals whose "
         "instruments' nights changed. Same content as the version in force: nothing stored, nothing queued (200).",
-        body=m.SchemaDocument, body_types=_DOCUMENT_TYPES,
+        body=m.SchemaDocument,
+        body_types=_DOCUMENT_TYPES,
     ),
     "admin_api.get_schedule": Operation("The schedule in force and its changes from the version before", {200: m.ScheduleView}, _READ),
-    "admin_api.list_schedule_versions": Operation("Every stored version of a semester's schedule, newest first",
-                                                  {200: m.ScheduleVersions}, _READ),
-    "admin_api.compare_schedule_versions": Operation("Night-by-night changes between two versions", {200: m.ScheduleComparison},
-                                                     (400, *_READ), query=m.CompareQuery),
+    "admin_api.list_schedule_versions": Operation("Every stored version of a semester's schedule, newest first", {200: m.ScheduleVersions}, _READ),
+    "admin_api.compare_schedule_versions": Operation(
+        "Night-by-night changes between two versions", {200: m.ScheduleComparison}, (400, *_READ), query=m.CompareQuery
+    ),
     "admin_api.post_observatory": Operation(
-        "Upload an observatory description (admin)", {201: m.UploadAnswer, 200: m.UploadAnswer}, (*_ADMIN, 413, 422),
+        "Upload an observatory description (admin)",
+        {201: m.UploadAnswer, 200: m.UploadAnswer},
+        (*_ADMIN, 413, 422),
         "Stored as a new version (201) and every proposal re-checked; same content: nothing stored (200).",
-        body=m.SchemaDocument, body_types=_DOCUMENT_TYPES,
+        body=m.SchemaDocument,
+        body_types=_DOCUMENT_TYPES,
     ),
     "admin_api.get_observatory": Operation("The observatory description in force", {200: m.ObservatoryView}, _READ),
     "admin_api.post_rechecks": Operation(
-        "Queue the re-checks that changes, a new engine version or old results call for (admin)", {200: m.RecheckPlan},
-        (400, *_ADMIN), "Idempotent: a second call queues nothing.", body=m.RecheckBody, body_required=False,
+        "Queue the re-checks that changes, a new engine version or old results call for (admin)",
+        {200: m.RecheckPlan},
+        (400, *_ADMIN),
+        "Idempotent: a second call queues nothing.",
+        body=m.RecheckBody,
+        body_required=False,
     ),
-    "admin_api.list_changes": Operation("Verdict and key-figure changes since a time, for proposals the caller may read",
-                                        {200: m.ChangeList}, (400, 401), query=m.ChangesQuery),
+    "admin_api.list_changes": Operation(
+        "Verdict and key-figure changes since a time, for proposals the caller may read", {200: m.ChangeList}, (400, 401), query=m.ChangesQuery
+    ),
     "admin_api.put_webhook": Operation(
-        "Set a user's webhook address and secret (admin)", {200: m.WebhookAnswer}, (*_ADMIN, 404, 422),
+        "Set a user's webhook address and secret (admin)",
+        {200: m.WebhookAnswer},
+        (*_ADMIN, 404, 422),
         "Notices carry the hex HMAC-SHA256 of the body in X-Feasibility-Signature. The address must be http(s) and, unless the "
         "WEBHOOK_ALLOW_PRIVATE setting allows it, lead to a public internet address: else 422 naming the field `url`.",
         body=m.WebhookBody,
@@ -111,41 +129,76 @@ OPERATIONS: dict[str, Operation] = {
     "admin_api.delete_webhook": Operation("Stop a user's notices (admin)", {200: m.WebhookAnswer}, (*_ADMIN, 404)),
     # -- access (feasibility.web.access_api)
     "access_api.list_tokens": Operation("A user's API tokens, live and revoked (admin)", {200: m.TokenList}, (*_ADMIN, 404)),
-    "access_api.revoke_token": Operation("Revoke one API token (admin)", {200: m.RevokedToken}, (*_ADMIN, 404),
-                                         "The token stops working at once. Revoking a revoked token changes nothing (`revoked_now`: false)."),
+    "access_api.revoke_token": Operation(
+        "Revoke one API token (admin)",
+        {200: m.RevokedToken},
+        (*_ADMIN, 404),
+        "The token stops working at once. Revoking a revoked token changes nothing (`revoked_now`: false).",
+    ),
     "access_api.revoke_user_tokens": Operation("Revoke every live API token of a user (admin)", {200: m.RevokedTokens}, (*_ADMIN, 404)),
-    "access_api.put_password": Operation("Set a user's password (admin)", {200: m.PasswordAnswer}, (*_ADMIN, 404, 422),
-                                         "Ends every dashboard session of the user, including copies of their cookies.", body=m.PasswordBody),
+    "access_api.put_password": Operation(
+        "Set a user's password (admin)",
+        {200: m.PasswordAnswer},
+        (*_ADMIN, 404, 422),
+        "Ends every dashboard session of the user, including copies of their cookies.",
+        body=m.PasswordBody,
+    ),
     # -- published document schemas (feasibility.web.schemas_api)
-    "schemas_api.index": Operation("The published document schemas", {200: m.SchemaIndex}, public=True,
-                                   description="Each document (proposal, observatory, schedule) with its schema version and URL."),
-    "schemas_api.schema": Operation("A document's JSON Schema (Draft 2020-12)", {200: m.SchemaDocument}, (404,), public=True,
-                                    description="Read-only and public. `$id` is this path, or the absolute URL when the service has a "
-                                    "PUBLIC_URL. The version goes up only when a document the schema accepted would be refused.",
-                                    media_type="application/schema+json"),
+    "schemas_api.index": Operation(
+        "The published document schemas",
+        {200: m.SchemaIndex},
+        public=True,
+        description="Each document (proposal, observatory, schedule) with its schema version and URL.",
+    ),
+    "schemas_api.schema": Operation(
+        "A document's JSON Schema (Draft 2020-12)",
+        {200: m.SchemaDocument},
+        (404,),
+        public=True,
+        description="Read-only and public. `$id` is this path, or the absolute URL when the service has a "
+        "PUBLIC_URL. The version goes up only when a document the schema accepted would be refused.",
+        media_type="application/schema+json",
+    ),
     # -- technical review (feasibility.web.review_api)
-    "review_api.get_review": Operation("A proposal's technical review", {200: m.ReviewAnswer}, (*_READ, 403),
-                                       "Reviewers and admins: everything. Proposers and portals: the verdict that stands, and the notes "
-                                       "when the observatory shows them."),
-    "review_api.post_assignment": Operation("Assign a proposal's technical reviewer (admin)", {200: m.Review}, (*_READ, 403, 422),
-                                            body=m.AssignmentBody),
-    "review_api.post_bulk_assignment": Operation("Assign one reviewer to every proposal of a semester that uses an instrument (admin)",
-                                                 {200: m.BulkAssignment}, (*_ADMIN, 422), body=m.BulkAssignmentBody),
-    "review_api.post_note": Operation("Add a reviewer's note to a proposal or one of its observation requests", {201: m.Review},
-                                      (*_READ, 403, 422), body=m.NoteBody),
-    "review_api.post_decision": Operation("Confirm or override the engine's verdict (reviewers, admins)", {201: m.Review},
-                                          (*_READ, 403, 422), "An override needs a verdict and a reason. It survives re-checks; a "
-                                          "re-check that changes the engine's verdict marks it `to_review_again`.", body=m.DecisionBody),
+    "review_api.get_review": Operation(
+        "A proposal's technical review",
+        {200: m.ReviewAnswer},
+        (*_READ, 403),
+        "Reviewers and admins: everything. Proposers and portals: the verdict that stands, and the notes when the observatory shows them.",
+    ),
+    "review_api.post_assignment": Operation("Assign a proposal's technical reviewer (admin)", {200: m.Review}, (*_READ, 403, 422), body=m.AssignmentBody),
+    "review_api.post_bulk_assignment": Operation(
+        "Assign one reviewer to every proposal of a semester that uses an instrument (admin)",
+        {200: m.BulkAssignment},
+        (*_ADMIN, 422),
+        body=m.BulkAssignmentBody,
+    ),
+    "review_api.post_note": Operation(
+        "Add a reviewer's note to a proposal or one of its observation requests", {201: m.Review}, (*_READ, 403, 422), body=m.NoteBody
+    ),
+    "review_api.post_decision": Operation(
+        "Confirm or override the engine's verdict (reviewers, admins)",
+        {201: m.Review},
+        (*_READ, 403, 422),
+        "An override needs a verdict and a reason. It survives re-checks; a re-check that changes the engine's verdict marks it `to_review_again`.",
+        body=m.DecisionBody,
+    ),
     # -- simulations (feasibility.web.simulations_api)
     "simulations_api.post_simulation": Operation(
-        "Ask for a simulation of the semester: the chance of completion (reviewer, admin)", {202: m.SimulationView},
-        (*_ADMIN, 404, 413, 422), "Every proposal of the semester, the observatory description and schedule in force, simulated "
-        "night by night under weather, seeing and competing requests. Computed by a worker.", body=SimulationSettings, body_required=False,
+        "Ask for a simulation of the semester: the chance of completion (reviewer, admin)",
+        {202: m.SimulationView},
+        (*_ADMIN, 404, 413, 422),
+        "Every proposal of the semester, the observatory description and schedule in force, simulated "
+        "night by night under weather, seeing and competing requests. Computed by a worker.",
+        body=SimulationSettings,
+        body_required=False,
     ),
-    "simulations_api.get_simulation": Operation("One simulation: its state and, when done, its result (reviewer, admin)",
-                                                {200: m.SimulationView}, (*_ADMIN, 404)),
-    "simulations_api.list_simulations": Operation("The semester's simulations, newest first, without results (reviewer, admin)",
-                                                  {200: m.SimulationList}, _ADMIN),
+    "simulations_api.get_simulation": Operation(
+        "One simulation: its state and, when done, its result (reviewer, admin)", {200: m.SimulationView}, (*_ADMIN, 404)
+    ),
+    "simulations_api.list_simulations": Operation(
+        "The semester's simulations, newest first, without results (reviewer, admin)", {200: m.SimulationList}, _ADMIN
+    ),
 }
 
 _PATH_ARGUMENT = re.compile(r"<(?:(?P<converter>[a-z]+)(?:\([^)]*\))?:)?(?P<name>\w+)>")
@@ -189,8 +242,14 @@ def _build(app: Flask) -> dict[str, Any]:
         "paths": paths,
         "components": {
             "schemas": schemas,
-            "securitySchemes": {"bearer": {"type": "http", "scheme": "bearer", "description": "An API token from `feasibility token create`; "
-                                           "revoked with `feasibility token revoke` or POST /api/v1/tokens/{token_id}/revoke."}},
+            "securitySchemes": {
+                "bearer": {
+                    "type": "http",
+                    "scheme": "bearer",
+                    "description": "An API token from `feasibility token create`; "
+                    "revoked with `feasibility token revoke` or POST /api/v1/tokens/{token_id}/revoke.",
+                }
+            },
             "responses": {
                 "Invalid": {"description": "The document or a parameter has problems.", "content": _json("Invalid")},
                 "Error": {"description": "An error.", "content": _json("Error")},
@@ -250,22 +309,28 @@ def _operation(rule: str, endpoint: str, operation: Operation, config: Any) -> d
         item["requestBody"] = {"required": operation.body_required, "content": {kind: {"schema": reference} for kind in operation.body_types}}
     responses: dict[str, Any] = {}
     for status, model in sorted(operation.answers.items()):
-        responses[str(status)] = {"description": (model.__doc__ or model.__name__).strip().splitlines()[0],
-                                  "content": {operation.media_type: {"schema": {"$ref": _REF.format(model=model.__name__)}}}}
+        responses[str(status)] = {
+            "description": (model.__doc__ or model.__name__).strip().splitlines()[0],
+            "content": {operation.media_type: {"schema": {"$ref": _REF.format(model=model.__name__)}}},
+        }
     for status in operation.errors:
         responses[str(status)] = {"$ref": "#/components/responses/" + ("Invalid" if status in _PROBLEM_STATUSES else "Error")}
     if operation.rate_limited:
         responses["429"] = {"$ref": "#/components/responses/TooMany"}
     # Any other failure (405, 503 while the store is away...) is an Error or, for a document, an Invalid.
-    responses["default"] = {"description": "An error.", "content": {"application/json": {"schema": {"oneOf": [
-        {"$ref": _REF.format(model="Error")}, {"$ref": _REF.format(model="Invalid")}]}}}}
+    responses["default"] = {
+        "description": "An error.",
+        "content": {"application/json": {"schema": {"oneOf": [{"$ref": _REF.format(model="Error")}, {"$ref": _REF.format(model="Invalid")}]}}},
+    }
     item["responses"] = responses
     return item
 
 
 def _path_parameters(rule: str) -> list[dict[str, Any]]:
-    return [{"name": match["name"], "in": "path", "required": True, "schema": dict(_CONVERTER_TYPES.get(match["converter"] or "", {"type": "string"}))}
-            for match in _PATH_ARGUMENT.finditer(rule)]
+    return [
+        {"name": match["name"], "in": "path", "required": True, "schema": dict(_CONVERTER_TYPES.get(match["converter"] or "", {"type": "string"}))}
+        for match in _PATH_ARGUMENT.finditer(rule)
+    ]
 
 
 def _query_parameters(model: type[BaseModel], config: Any) -> list[dict[str, Any]]:
@@ -288,7 +353,6 @@ def _query_parameters(model: type[BaseModel], config: Any) -> list[dict[str, Any
             parameter["description"] = description
         parameters.append(parameter)
     return parameters
-
 
 
 def _json(name: str) -> dict[str, Any]:

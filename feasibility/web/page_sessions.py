@@ -87,21 +87,19 @@ def user_for_session(db: Session, raw_id: str, *, now: datetime | None = None) -
 
 def end_session(db: Session, raw_id: str) -> bool:
     """Revoke the session ``raw_id`` (signing out); whether a live one was found."""
-    result = cast(CursorResult[Any], db.execute(
-        update(PageSession)
-        .where(PageSession.id_hash == hash_session_id(raw_id), PageSession.revoked_at.is_(None))
-        .values(revoked_at=utcnow())
-        .execution_options(synchronize_session=False)
-    ))
+    result = cast(
+        CursorResult[Any],
+        db.execute(
+            update(PageSession)
+            .where(PageSession.id_hash == hash_session_id(raw_id), PageSession.revoked_at.is_(None))
+            .values(revoked_at=utcnow())
+            .execution_options(synchronize_session=False)
+        ),
+    )
     return bool(result.rowcount)
 
 
 def purge_old_sessions(db: Session, *, now: datetime | None = None, keep: timedelta = timedelta(days=1)) -> None:
     """Delete sessions expired or revoked more than ``keep`` ago (they can never sign anyone in again)."""
     cutoff = (now or utcnow()) - keep
-    db.execute(
-        delete(PageSession)
-        .where(or_(PageSession.expires_at < cutoff, PageSession.revoked_at < cutoff))
-        .execution_options(synchronize_session=False)
-    )
-
+    db.execute(delete(PageSession).where(or_(PageSession.expires_at < cutoff, PageSession.revoked_at < cutoff)).execution_options(synchronize_session=False))

@@ -144,17 +144,36 @@ def night_curve_svg(series: Mapping[str, Any], target: str = "target") -> str | 
         if horizon:
             ax.fill_between(hours, 0.0, horizon, color=INK["ground"], alpha=0.35, hatch="\\\\", linewidth=0, label="Horizon profile", gid="horizon")
         if usable_mask and any(usable_mask):
-            ax.fill_between(hours, 0.0, 90.0, where=usable_mask, step="mid", facecolor=INK["usable"], alpha=0.18,
-                            hatch="//", edgecolor=INK["usable"], linewidth=0, label="Usable stretch", gid="usable")
+            ax.fill_between(
+                hours,
+                0.0,
+                90.0,
+                where=usable_mask,
+                step="mid",
+                facecolor=INK["usable"],
+                alpha=0.18,
+                hatch="//",
+                edgecolor=INK["usable"],
+                linewidth=0,
+                label="Usable stretch",
+                gid="usable",
+            )
         ax.plot(hours, target_alt, color=INK["target"], linewidth=2.4, label=f"Target: {_short(target)}", gid="target")
         if moon_alt:
             ax.plot(hours, moon_alt, color=INK["moon"], linewidth=1.5, linestyle="--", label="Moon", gid="moon")
         if limit_alt is not None and limit is not None:
-            ax.axhline(limit_alt, color=INK["limit"], linewidth=1.6, linestyle="-.", gid="airmass-limit",
-                       label=f"Airmass limit {limit:g} ({LIMIT_FORMULAS[str(formula)]}): {limit_alt:.1f}°")
+            ax.axhline(
+                limit_alt,
+                color=INK["limit"],
+                linewidth=1.6,
+                linestyle="-.",
+                gid="airmass-limit",
+                label=f"Airmass limit {limit:g} ({LIMIT_FORMULAS[str(formula)]}): {limit_alt:.1f}°",
+            )
         if floor is not None:
-            ax.axhline(floor, color=INK["floor"], linewidth=1.2, linestyle=":", gid="lowest-altitude",
-                       label=f"Lowest altitude allowed (site, mount): {floor:g}°")
+            ax.axhline(
+                floor, color=INK["floor"], linewidth=1.2, linestyle=":", gid="lowest-altitude", label=f"Lowest altitude allowed (site, mount): {floor:g}°"
+            )
         ax.set_ylim(0, 90)
         ax.set_xlim(min(hours), max(hours))
         ax.set_ylabel("Altitude (degrees)")
@@ -164,12 +183,30 @@ def night_curve_svg(series: Mapping[str, Any], target: str = "target") -> str | 
         if moon_sep and moon_alt and highest > 0.0:
             _note_moon(ax, hours, target_alt, moon_alt, moon_sep, usable_mask)
         if highest <= 0.0:
-            ax.text(0.5, 0.55, f"{_short(target)} never rises above the horizon on this night",
-                    transform=ax.transAxes, ha="center", va="center", fontsize=11, color=INK["limit"], gid="never-rises",
-                    bbox={"boxstyle": "round", "facecolor": "white", "edgecolor": INK["limit"]})
+            ax.text(
+                0.5,
+                0.55,
+                f"{_short(target)} never rises above the horizon on this night",
+                transform=ax.transAxes,
+                ha="center",
+                va="center",
+                fontsize=11,
+                color=INK["limit"],
+                gid="never-rises",
+                bbox={"boxstyle": "round", "facecolor": "white", "edgecolor": INK["limit"]},
+            )
         elif usable_mask and not any(usable_mask):
-            ax.text(0.5, 0.92, "No usable time on this night", transform=ax.transAxes, ha="center", va="top", fontsize=10,
-                    color=INK["limit"], bbox={"boxstyle": "round", "facecolor": "white", "edgecolor": INK["limit"]})
+            ax.text(
+                0.5,
+                0.92,
+                "No usable time on this night",
+                transform=ax.transAxes,
+                ha="center",
+                va="top",
+                fontsize=10,
+                color=INK["limit"],
+                bbox={"boxstyle": "round", "facecolor": "white", "edgecolor": INK["limit"]},
+            )
         title = "Altitude through the night"
         if isinstance(night, str) and night:
             title += f" beginning {_short(night)}"
@@ -219,11 +256,31 @@ def semester_hours_svg(series: Mapping[str, Any]) -> str | None:
             top = [b + v for b, v in zip(bottom, values)]
             if all(b - a == 1.0 for a, b in zip(days, days[1:])):
                 # Consecutive nights: one stepped area per layer (a single path) draws far faster than a bar per night.
-                ax.stairs(top, edges, baseline=bottom, fill=True, facecolor=colour, edgecolor=INK["floor"], hatch=hatch,
-                          linewidth=0.2, label=label, gid=f"layer:{label}")
+                ax.stairs(
+                    top,
+                    edges,
+                    baseline=bottom,
+                    fill=True,
+                    facecolor=colour,
+                    edgecolor=INK["floor"],
+                    hatch=hatch,
+                    linewidth=0.2,
+                    label=label,
+                    gid=f"layer:{label}",
+                )
             else:
-                ax.bar(nights, values, bottom=bottom, width=1.0, color=colour, edgecolor=INK["floor"], hatch=hatch,
-                       linewidth=0.2, label=label, gid=f"layer:{label}")
+                ax.bar(
+                    nights,
+                    values,
+                    bottom=bottom,
+                    width=1.0,
+                    color=colour,
+                    edgecolor=INK["floor"],
+                    hatch=hatch,
+                    linewidth=0.2,
+                    label=label,
+                    gid=f"layer:{label}",
+                )
             bottom = top
         ax.xaxis_date()
         ax.set_ylabel("Hours per night")
@@ -308,8 +365,11 @@ def track_svg(series: Mapping[str, Any]) -> str | None:
         unwrapped.append(unwrapped[-1] + step)
     usable = _aligned(series.get("hours_usable"), nights)
     magnitude = track.get("magnitude")
-    values, label = (magnitude, f"Magnitude ({track.get('magnitude_band') or 'request band'})") if isinstance(magnitude, list) else (
-        track.get("rate_arcsec_per_hour"), "Motion on the sky (″/h)")
+    values, label = (
+        (magnitude, f"Magnitude ({track.get('magnitude_band') or 'request band'})")
+        if isinstance(magnitude, list)
+        else (track.get("rate_arcsec_per_hour"), "Motion on the sky (″/h)")
+    )
     other = _aligned(values, nights)
 
     with _LOCK:
@@ -318,12 +378,26 @@ def track_svg(series: Mapping[str, Any]) -> str | None:
         for ax in (sky, along):
             ax.grid(True, color="#d9d9d9", linewidth=0.6)
             ax.set_axisbelow(True)
-        sky.plot([value / 15.0 for value in unwrapped], [float(dec[i]) for i in known], color=INK["target"], linewidth=1.6,
-                 label="Path, one point a night", gid="track")
+        sky.plot(
+            [value / 15.0 for value in unwrapped],
+            [float(dec[i]) for i in known],
+            color=INK["target"],
+            linewidth=1.6,
+            label="Path, one point a night",
+            gid="track",
+        )
         chosen = [k for k, i in enumerate(known) if usable and usable[i] > 0]
         if chosen:
-            sky.plot([unwrapped[k] / 15.0 for k in chosen], [float(dec[known[k]]) for k in chosen], linestyle="none", marker="o",
-                     markersize=2.5, color=INK["usable"], label="Nights with usable hours", gid="track-usable")
+            sky.plot(
+                [unwrapped[k] / 15.0 for k in chosen],
+                [float(dec[known[k]]) for k in chosen],
+                linestyle="none",
+                marker="o",
+                markersize=2.5,
+                color=INK["usable"],
+                label="Nights with usable hours",
+                gid="track-usable",
+            )
         sky.annotate(nights[known[0]].isoformat(), (unwrapped[0] / 15.0, float(dec[known[0]])), fontsize=7)
         sky.annotate(nights[known[-1]].isoformat(), (unwrapped[-1] / 15.0, float(dec[known[-1]])), fontsize=7)
         sky.invert_xaxis()
@@ -425,11 +499,17 @@ def ra_offer_svg(requested: Sequence[float], offered: Sequence[float] | None, ti
     with _LOCK:
         fig, ax = _figure()
         centres = [h + 0.5 for h in range(24)]
-        ax.bar(centres, list(requested), width=0.9, color=PALETTE["blue"], edgecolor=PALETTE["black"], linewidth=0.5,
-               label="Requested hours (feasible and marginal requests)")
+        ax.bar(
+            centres,
+            list(requested),
+            width=0.9,
+            color=PALETTE["blue"],
+            edgecolor=PALETTE["black"],
+            linewidth=0.5,
+            label="Requested hours (feasible and marginal requests)",
+        )
         if offered is not None and len(offered) == 24:
-            ax.step(range(25), list(offered) + [offered[-1]], where="post", color=PALETTE["vermillion"], linewidth=1.8,
-                    linestyle="--", label="Hours offered")
+            ax.step(range(25), list(offered) + [offered[-1]], where="post", color=PALETTE["vermillion"], linewidth=1.8, linestyle="--", label="Hours offered")
         ax.set_xlim(0, 24)
         ax.set_xticks(range(0, 25, 2))
         ax.set_xlabel("Right ascension (hours)")
@@ -440,6 +520,7 @@ def ra_offer_svg(requested: Sequence[float], offered: Sequence[float] | None, ti
 
 
 # --- helpers -------------------------------------------------------------------------------
+
 
 def _figure(size: tuple[float, float] = _SIZE) -> tuple[Figure, Any]:
     fig = Figure(figsize=size, dpi=96, layout="constrained")
@@ -519,8 +600,7 @@ def _time_axis(ax: Any, hours: list[float], longitude: float | None) -> None:
     ax.set_xlabel(f"Local mean solar time (UTC {sign}{_clock(abs(offset))}, longitude {longitude:g}°) and UTC")
 
 
-def _note_moon(ax: Any, hours: list[float], target_alt: list[float], moon_alt: list[float], moon_sep: list[float],
-               usable: list[bool]) -> None:
+def _note_moon(ax: Any, hours: list[float], target_alt: list[float], moon_alt: list[float], moon_sep: list[float], usable: list[bool]) -> None:
     """Write the Moon's distance where it matters: its closest approach while the Moon is up, within the usable stretch if any."""
     chosen = [i for i in range(len(hours)) if (usable[i] if usable and any(usable) else target_alt[i] > 0) and moon_alt[i] > 0]
     chosen = [i for i in chosen if not math.isnan(moon_sep[i])]
@@ -529,10 +609,18 @@ def _note_moon(ax: Any, hours: list[float], target_alt: list[float], moon_alt: l
         ax.text(0.99, 0.97, f"Moon below the horizon {where}", transform=ax.transAxes, ha="right", va="top", fontsize=8, gid="moon-note")
         return
     i = min(chosen, key=lambda k: moon_sep[k])
-    ax.annotate(f"Moon {moon_sep[i]:.0f}° away", xy=(hours[i], target_alt[i]), xytext=(0, 14), textcoords="offset points",
-                ha="center", fontsize=8, color=INK["moon"], gid="moon-note",
-                arrowprops={"arrowstyle": "-", "color": INK["moon"], "linewidth": 0.8},
-                bbox={"boxstyle": "round,pad=0.2", "facecolor": "white", "edgecolor": INK["moon"], "linewidth": 0.6})
+    ax.annotate(
+        f"Moon {moon_sep[i]:.0f}° away",
+        xy=(hours[i], target_alt[i]),
+        xytext=(0, 14),
+        textcoords="offset points",
+        ha="center",
+        fontsize=8,
+        color=INK["moon"],
+        gid="moon-note",
+        arrowprops={"arrowstyle": "-", "color": INK["moon"], "linewidth": 0.8},
+        bbox={"boxstyle": "round,pad=0.2", "facecolor": "white", "edgecolor": INK["moon"], "linewidth": 0.6},
+    )
 
 
 def _clock(hours: float) -> str:

@@ -83,9 +83,7 @@ def init_app(app: Flask) -> None:
         for setting, key in limits:
             # The view is wrapped as by the limiter's decorator (checked as it is called, after the CSRF check); a shared
             # limit, so the endpoints under one setting (single and bulk submissions) draw on one count.
-            limit = limiter.shared_limit(
-                _setting(setting), scope=f"{setting}:{key}", key_func=_KEYS[key], methods=["POST"], error_message=_WHAT[key]
-            )
+            limit = limiter.shared_limit(_setting(setting), scope=f"{setting}:{key}", key_func=_KEYS[key], methods=["POST"], error_message=_WHAT[key])
             app.view_functions[endpoint] = limit(app.view_functions[endpoint])  # type: ignore[assignment]
     app.extensions[_LIMITER_EXTENSION] = limiter
     app.register_error_handler(RateLimitExceeded, _too_many)
@@ -111,8 +109,7 @@ def _check_form() -> None:
         csrf.protect(apply_exemptions=True)
     except CSRFError as error:
         reason = str(error.description).rstrip(".")
-        raise CSRFError(f"The form had expired or did not come from this site ({reason[:1].lower() + reason[1:]}). "
-                        "Reload the page and try again.") from None
+        raise CSRFError(f"The form had expired or did not come from this site ({reason[:1].lower() + reason[1:]}). Reload the page and try again.") from None
 
 
 def _setting(name: str) -> Any:

@@ -107,7 +107,9 @@ def review_json(state: review.Review) -> dict[str, Any]:
         "final_verdict": state.final_verdict,
         "decided_by": state.decided_by,
         "to_review_again": state.to_review_again,
-        "decision": None if decision is None else {
+        "decision": None
+        if decision is None
+        else {
             "kind": decision.kind,
             "verdict": decision.verdict,
             "engine_verdict": decision.engine_verdict,

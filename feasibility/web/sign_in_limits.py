@@ -81,8 +81,6 @@ def clear_account(db: Session, account: str) -> None:
 
 
 def _failures(db: Session, column: InstrumentedAttribute[str], key: str, since: datetime) -> tuple[int, datetime | None]:
-    count, latest = db.execute(
-        select(func.count(), func.max(SignInFailure.failed_at)).where(column == key[:200], SignInFailure.failed_at > since)
-    ).one()
+    count, latest = db.execute(select(func.count(), func.max(SignInFailure.failed_at)).where(column == key[:200], SignInFailure.failed_at > since)).one()
     # max() of a UTCDateTime column has the column's type, so it comes back timezone-aware on every store.
     return int(count or 0), latest

@@ -73,7 +73,5 @@ def get_simulation(semester: str, simulation_id: int) -> dict[str, Any]:
 def list_simulations(semester: str) -> dict[str, Any]:
     """The semester's simulations, newest first, without their results."""
     with session_scope(read_only=True) as session:
-        rows = session.scalars(
-            select(Simulation).where(Simulation.semester == semester).order_by(Simulation.id.desc()).limit(_MAX_LISTED)
-        ).all()
+        rows = session.scalars(select(Simulation).where(Simulation.semester == semester).order_by(Simulation.id.desc()).limit(_MAX_LISTED)).all()
         return {"semester": semester, "items": [simulation_json(row, with_result=False) for row in rows]}

@@ -21,8 +21,7 @@ import pytest
 from web.support import GatedEngine, add_user, demo_doc, private_grid_cache, proposal_doc, store_checked
 
 CHROMIUM = "/usr/bin/chromium"
-CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
-                 "--disable-sync", "--no-first-run"]
+CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update", "--disable-sync", "--no-first-run"]
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
 
 
@@ -67,8 +66,15 @@ def live_server(tmp_path_factory: pytest.TempPathFactory, grid_cache_dir: Path) 
     engine = GatedEngine()
     with pytest.MonkeyPatch.context() as patch:
         patch.setattr("feasibility.service.runs.check", engine)
-        app = create_app({"SECRET_KEY": "browser-tests", "DATABASE_URL": f"sqlite:///{home / 'store.sqlite'}", "CREATE_TABLES": True,
-                          "BROKER_URL": None, "SWEEP_INTERVAL_S": 0})
+        app = create_app(
+            {
+                "SECRET_KEY": "browser-tests",
+                "DATABASE_URL": f"sqlite:///{home / 'store.sqlite'}",
+                "CREATE_TABLES": True,
+                "BROKER_URL": None,
+                "SWEEP_INTERVAL_S": 0,
+            }
+        )
         for name, role in (("rita", "reviewer"), ("pablo", "proposer"), ("petra", "proposer")):
             add_user(app, name, role)
         for number, owner in (("001", "pablo"), ("002", "pablo"), ("003", "petra"), ("005", "petra")):

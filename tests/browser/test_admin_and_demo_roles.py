@@ -30,8 +30,16 @@ def demo_server(tmp_path_factory: pytest.TempPathFactory, grid_cache_dir: Path) 
     from feasibility.web import create_app
 
     home = tmp_path_factory.mktemp("demo-roles-store")
-    app = create_app({"SECRET_KEY": "browser-tests", "DATABASE_URL": f"sqlite:///{home / 'store.sqlite'}", "CREATE_TABLES": True,
-                      "BROKER_URL": None, "SWEEP_INTERVAL_S": 0, "SESSION_COOKIE_SECURE": False})
+    app = create_app(
+        {
+            "SECRET_KEY": "browser-tests",
+            "DATABASE_URL": f"sqlite:///{home / 'store.sqlite'}",
+            "CREATE_TABLES": True,
+            "BROKER_URL": None,
+            "SWEEP_INTERVAL_S": 0,
+            "SESSION_COOKIE_SECURE": False,
+        }
+    )
     for number in ("001", "002"):
         store_checked(app, demo_doc(number), None)
     with app.app_context():

@@ -177,8 +177,7 @@ def test_calendar_shows_nights_by_instrument_and_status(page: Any) -> None:
             break
     else:
         pytest.fail("the calendar cannot be reached with the Tab key")
-    assert first_month.get_attribute("aria-labelledby") and page.evaluate(
-        "() => getComputedStyle(document.activeElement).outlineStyle") == "solid"
+    assert first_month.get_attribute("aria-labelledby") and page.evaluate("() => getComputedStyle(document.activeElement).outlineStyle") == "solid"
     page.keyboard.press("Tab")
     assert page.evaluate("() => document.activeElement.getAttribute('aria-labelledby')") == f"month-{months[1][0]:04d}-{months[1][1]:02d}"
     screenshot(page, "22-calendar", full_page=False)

@@ -128,9 +128,7 @@ def test_every_problem_gets_its_own_line(tmp_path: Path) -> None:
 def test_bad_observatory_exits_2(tmp_path: Path) -> None:
     observatory = yaml.safe_load((files("feasibility") / "data" / "observatory.yaml").read_text(encoding="utf-8"))
     observatory["telescope"]["aperture_m"] = -3
-    result = _invoke(
-        "check", str(_write(tmp_path / "p.yaml", PROPOSAL)), "--observatory", str(_write(tmp_path / "o.yaml", observatory))
-    )
+    result = _invoke("check", str(_write(tmp_path / "p.yaml", PROPOSAL)), "--observatory", str(_write(tmp_path / "o.yaml", observatory)))
     assert result.exit_code == 2
     assert "telescope.aperture_m" in result.stderr
 
@@ -139,9 +137,7 @@ def test_schedule_of_another_semester_exits_2(tmp_path: Path) -> None:
     schedule = yaml.safe_load((files("feasibility") / "data" / "schedule-2027A.yaml").read_text(encoding="utf-8"))
     schedule["semester"] = "2027B"
     schedule["nights"] = [{"night": "2027-10-02", "instrument": "KESTREL"}]
-    result = _invoke(
-        "check", str(_write(tmp_path / "p.yaml", PROPOSAL)), "--schedule", str(_write(tmp_path / "s.yaml", schedule))
-    )
+    result = _invoke("check", str(_write(tmp_path / "p.yaml", PROPOSAL)), "--schedule", str(_write(tmp_path / "s.yaml", schedule)))
     assert result.exit_code == 2
     assert "semester" in result.stderr and "2027A" in result.stderr
 
@@ -205,8 +201,7 @@ def test_check_json_has_the_documented_keys(tmp_path: Path) -> None:
     request = document["requests"][0]
     assert request["label"] == "one"
     assert request["verdict"] in ("feasible", "marginal", "infeasible", "unchecked")
-    for key in ("hours_requested", "hours_observable", "hours_needed", "snr_expected", "source_rate_e_s",
-                "sky_rate_e_s_pix", "airmass_median"):
+    for key in ("hours_requested", "hours_observable", "hours_needed", "snr_expected", "source_rate_e_s", "sky_rate_e_s_pix", "airmass_median"):
         assert key in request["figures"], key
     checks = {finding["check"] for finding in request["findings"]}
     assert {"sensitivity", "instrument", "atmosphere", "image-quality", "visibility"} <= checks
@@ -251,18 +246,14 @@ def test_demo_proposals_get_their_described_verdict(name: str, verdict: str) -> 
     path = Path(str(files("feasibility") / "data" / "proposals" / name))
     result = _invoke("check", "--json", str(path))
     document = json.loads(result.stdout)
-    assert document["verdict"] == verdict, json.dumps(
-        [[r["label"], [(f["check"], f["level"]) for f in r["findings"]]] for r in document["requests"]]
-    )
+    assert document["verdict"] == verdict, json.dumps([[r["label"], [(f["check"], f["level"]) for f in r["findings"]]] for r in document["requests"]])
     assert result.exit_code == {"feasible": 0, "marginal": 3, "infeasible": 4}[verdict]
 
 
 def test_schedule_of_another_observatory_exits_2(tmp_path: Path) -> None:
     schedule = yaml.safe_load((files("feasibility") / "data" / "schedule-2027A.yaml").read_text(encoding="utf-8"))
     schedule["observatory"] = "Some Other Observatory"
-    result = _invoke(
-        "check", str(_write(tmp_path / "p.yaml", PROPOSAL)), "--schedule", str(_write(tmp_path / "s.yaml", schedule))
-    )
+    result = _invoke("check", str(_write(tmp_path / "p.yaml", PROPOSAL)), "--schedule", str(_write(tmp_path / "s.yaml", schedule)))
     assert result.exit_code == 2
     assert "observatory" in result.stderr and "Some Other Observatory" in result.stderr
 
@@ -283,8 +274,10 @@ def test_problems_of_proposal_and_observatory_together(tmp_path: Path) -> None:
     observatory = yaml.safe_load((files("feasibility") / "data" / "observatory.yaml").read_text(encoding="utf-8"))
     observatory["site"]["horizon"] = [{"azimuth_deg": 0, "altitude_deg": 40}, {"azimuth_deg": 360, "altitude_deg": 5}]
     result = _invoke(
-        "check", str(_write(tmp_path / "p.yaml", _changed(**{"target.dec": 95}))),
-        "--observatory", str(_write(tmp_path / "o.yaml", observatory)),
+        "check",
+        str(_write(tmp_path / "p.yaml", _changed(**{"target.dec": 95}))),
+        "--observatory",
+        str(_write(tmp_path / "o.yaml", observatory)),
     )
     assert result.exit_code == 2
     assert "site.horizon" in result.stderr and "requests[0].target.dec" in result.stderr

@@ -12,12 +12,23 @@ def _result() -> ProposalResult:
         Finding(check="visibility", level=Level.FEASIBLE, message="120 h observable."),
     ]
     request = RequestResult(
-        label="halo-V", instrument="KESTREL", target="NGC 5128", verdict=Level.MARGINAL, findings=findings,
+        label="halo-V",
+        instrument="KESTREL",
+        target="NGC 5128",
+        verdict=Level.MARGINAL,
+        findings=findings,
         figures={"hours_requested": 2.0, "hours_needed": 2.2, "snr_expected": 23.9, "snr_goal": 25.0},
     )
     return ProposalResult(
-        proposal_id="P-1", semester="2027A", verdict=Level.MARGINAL, requests=[request], engine_version="0",
-        observatory="Obs", observatory_version="1", schedule_version=None, computed_at="2027-01-01T00:00:00Z",
+        proposal_id="P-1",
+        semester="2027A",
+        verdict=Level.MARGINAL,
+        requests=[request],
+        engine_version="0",
+        observatory="Obs",
+        observatory_version="1",
+        schedule_version=None,
+        computed_at="2027-01-01T00:00:00Z",
     )
 
 

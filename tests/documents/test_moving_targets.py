@@ -17,17 +17,32 @@ from feasibility.documents.proposal import ObservationRequest, Target
 from feasibility.documents.schemas import published_schema
 
 REQUEST: dict[str, Any] = {
-    "label": "a", "instrument": "KESTREL", "brightness": {"magnitude": 15.0, "band": "V"}, "goal": {"snr": 10}, "hours_requested": 1.0,
+    "label": "a",
+    "instrument": "KESTREL",
+    "brightness": {"magnitude": 15.0, "band": "V"},
+    "goal": {"snr": 10},
+    "hours_requested": 1.0,
 }
 ELEMENTS: dict[str, Any] = {
-    "kind": "orbital_elements", "name": "(90001) Invented", "epoch": "2027-06-01", "semi_major_axis": 2.6, "eccentricity": 0.15,
-    "inclination": 8.0, "ascending_node_longitude": 120.0, "perihelion_argument": 60.0, "mean_anomaly": 200.0,
-    "absolute_magnitude": 13.2, "slope_parameter": 0.2,
+    "kind": "orbital_elements",
+    "name": "(90001) Invented",
+    "epoch": "2027-06-01",
+    "semi_major_axis": 2.6,
+    "eccentricity": 0.15,
+    "inclination": 8.0,
+    "ascending_node_longitude": 120.0,
+    "perihelion_argument": 60.0,
+    "mean_anomaly": 200.0,
+    "absolute_magnitude": 13.2,
+    "slope_parameter": 0.2,
 }
 TABLE: dict[str, Any] = {
-    "kind": "ephemeris_table", "name": "tabled",
-    "ephemeris_table": [{"time": "2027-05-01T00:00:00Z", "ra": "10:00:00", "dec": 5.0, "magnitude": 16.0},
-                        {"time": "2027-05-02T00:00:00Z", "ra": "10:01:00", "dec": 5.1, "magnitude": 16.1}],
+    "kind": "ephemeris_table",
+    "name": "tabled",
+    "ephemeris_table": [
+        {"time": "2027-05-01T00:00:00Z", "ra": "10:00:00", "dec": 5.0, "magnitude": 16.0},
+        {"time": "2027-05-02T00:00:00Z", "ra": "10:01:00", "dec": 5.1, "magnitude": 16.1},
+    ],
 }
 
 
@@ -50,9 +65,21 @@ def _schema_accepts(target: dict[str, Any]) -> bool:
         ({"kind": "fixed", "name": "NGC 5128", "ra": 201.365, "dec": -43.019}, Target),
         ({"kind": "major_body", "name": "Jupiter", "body": "jupiter"}, MajorBodyTarget),
         (ELEMENTS, OrbitalElementsTarget),
-        (ELEMENTS | {"semi_major_axis": None, "perihelion_distance": 0.4, "eccentricity": 1.0, "mean_anomaly": None,
-                     "perihelion_time": "2027-06-20T00:00:00Z", "absolute_magnitude": None, "slope_parameter": None,
-                     "total_absolute_magnitude": 9.0, "total_magnitude_slope": 10.0}, OrbitalElementsTarget),
+        (
+            ELEMENTS
+            | {
+                "semi_major_axis": None,
+                "perihelion_distance": 0.4,
+                "eccentricity": 1.0,
+                "mean_anomaly": None,
+                "perihelion_time": "2027-06-20T00:00:00Z",
+                "absolute_magnitude": None,
+                "slope_parameter": None,
+                "total_absolute_magnitude": 9.0,
+                "total_magnitude_slope": 10.0,
+            },
+            OrbitalElementsTarget,
+        ),
         (TABLE, EphemerisTableTarget),
     ],
 )
@@ -87,10 +114,16 @@ def test_a_fixed_target_without_kind_is_stored_as_before() -> None:
         ({"kind": "major_body", "name": "Pluto", "body": "pluto"}, "target.body", "mercury"),
         ({"kind": "comet", "name": "x"}, "target", "orbital_elements"),
         ({**TABLE, "ephemeris_table": list(reversed(TABLE["ephemeris_table"]))}, "target.ephemeris_table", "row 1"),
-        ({**TABLE, "ephemeris_table": [TABLE["ephemeris_table"][0], {**TABLE["ephemeris_table"][1], "dec": 95}]},
-         "target.ephemeris_table[1].dec", "declination"),
-        ({**TABLE, "ephemeris_table": [TABLE["ephemeris_table"][0], {k: v for k, v in TABLE["ephemeris_table"][1].items() if k != "magnitude"}]},
-         "target.ephemeris_table", "magnitude"),
+        (
+            {**TABLE, "ephemeris_table": [TABLE["ephemeris_table"][0], {**TABLE["ephemeris_table"][1], "dec": 95}]},
+            "target.ephemeris_table[1].dec",
+            "declination",
+        ),
+        (
+            {**TABLE, "ephemeris_table": [TABLE["ephemeris_table"][0], {k: v for k, v in TABLE["ephemeris_table"][1].items() if k != "magnitude"}]},
+            "target.ephemeris_table",
+            "magnitude",
+        ),
     ],
 )
 def test_bad_targets_name_the_field_and_the_problem(target: dict[str, Any], field: str, words: str) -> None:

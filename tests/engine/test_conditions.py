@@ -150,10 +150,7 @@ def _pchip_ln_f_lambda(wavelength_nm: float, nodes: list[tuple[float, float]]) -
 
     h = xs[i + 1] - xs[i]
     t = (wavelength_nm - xs[i]) / h
-    y = (
-        (2 * t**3 - 3 * t**2 + 1) * ys[i] + (t**3 - 2 * t**2 + t) * h * slope(i)
-        + (-2 * t**3 + 3 * t**2) * ys[i + 1] + (t**3 - t**2) * h * slope(i + 1)
-    )
+    y = (2 * t**3 - 3 * t**2 + 1) * ys[i] + (t**3 - 2 * t**2 + t) * h * slope(i) + (-2 * t**3 + 3 * t**2) * ys[i + 1] + (t**3 - t**2) * h * slope(i + 1)
     return math.exp(y + 2 * math.log(wavelength_nm))
 
 
@@ -394,7 +391,8 @@ def test_wide_slit_lowers_the_resolving_power_and_widens_the_element() -> None:
     observatory = _observatory()
     spec = observatory.instrument_named("SPEC")
     request = _request(
-        instrument="SPEC", setup={"grating": "G1", "slit_arcsec": 1.0, "central_wavelength_nm": 600},
+        instrument="SPEC",
+        setup={"grating": "G1", "slit_arcsec": 1.0, "central_wavelength_nm": 600},
         brightness={"magnitude": 17.0, "band": "V"},
     )
     conditions = Conditions(200.0, 100.0, 1.2, 1.0, 20.9, "R", airmass_design=1.5, sky_mag_arcsec2_design=20.5)
@@ -408,6 +406,5 @@ def test_wide_slit_lowers_the_resolving_power_and_widens_the_element() -> None:
     message = _finding(result, "instrument").message
     assert f"resolving power {wording.count(figures['resolving_power_typical'])} and {wording.count(figures['resolving_power'])}" in message
     # A narrow slit keeps the grating's sampling.
-    narrow = assess_exposure(request.model_copy(update={"setup": request.setup.model_copy(update={"slit_arcsec": 0.5})}),
-                             observatory, spec, conditions).figures
+    narrow = assess_exposure(request.model_copy(update={"setup": request.setup.model_copy(update={"slit_arcsec": 0.5})}), observatory, spec, conditions).figures
     assert narrow["resolution_element_pixels"] == pytest.approx(2.5) and narrow["resolving_power"] == pytest.approx(1000)

@@ -32,8 +32,12 @@ def _encke() -> orbits.Orbit:
     Ω = 334.75006°, ω = 186.23352°, T = 1990 October 28.54502 TT (JDE 2448193.04502), ecliptic and equinox J2000.0."""
     e = 0.8502196
     return orbits.Orbit(
-        perihelion_au=2.2091404 * (1.0 - e), eccentricity=e, inclination=math.radians(11.94524),
-        node=math.radians(334.75006), perihelion_argument=math.radians(186.23352), perihelion_jd=2448193.04502,
+        perihelion_au=2.2091404 * (1.0 - e),
+        eccentricity=e,
+        inclination=math.radians(11.94524),
+        node=math.radians(334.75006),
+        perihelion_argument=math.radians(186.23352),
+        perihelion_jd=2448193.04502,
     )
 
 
@@ -158,9 +162,7 @@ def test_major_body_altitudes_against_astropy_get_body(body: str, grid_2027a, de
     ours = np.degrees(np.arcsin(np.einsum("ij,ij->i", view.up[picks], track.directions(view)[picks])))
     times = Time(view.mjd[picks], format="mjd", scale="utc")
     with log_astropy_warnings(), solar_system_ephemeris.set("builtin"):
-        reference = get_body(body, times, location=demo_site_location).transform_to(
-            AltAz(obstime=times, location=demo_site_location, pressure=0)
-        ).alt.deg
+        reference = get_body(body, times, location=demo_site_location).transform_to(AltAz(obstime=times, location=demo_site_location, pressure=0)).alt.deg
     assert np.max(np.abs(ours - reference)) < 0.05
 
 
@@ -178,13 +180,16 @@ def test_ephemeris_table_round_trip_against_astropy(grid_2027a) -> None:
     with log_astropy_warnings(), solar_system_ephemeris.set("builtin"):
         rows = get_body("mars", Time(days, format="mjd", scale="utc"))
         between = get_body("mars", Time(halves, format="mjd", scale="utc"))
-    table = EphemerisTableTarget.model_validate({
-        "kind": "ephemeris_table", "name": "Mars (table)",
-        "ephemeris_table": [
-            {"time": datetime.fromtimestamp((mjd - 40587.0) * 86400.0, tz=UTC).isoformat(), "ra": float(ra), "dec": float(dec), "magnitude": 1.0 + k / 100}
-            for k, (mjd, ra, dec) in enumerate(zip(days, rows.ra.deg, rows.dec.deg))
-        ],
-    })
+    table = EphemerisTableTarget.model_validate(
+        {
+            "kind": "ephemeris_table",
+            "name": "Mars (table)",
+            "ephemeris_table": [
+                {"time": datetime.fromtimestamp((mjd - 40587.0) * 86400.0, tz=UTC).isoformat(), "ra": float(ra), "dec": float(dec), "magnitude": 1.0 + k / 100}
+                for k, (mjd, ra, dec) in enumerate(zip(days, rows.ra.deg, rows.dec.deg))
+            ],
+        }
+    )
     samples = interpolate_table(table, halves)
     assert samples.covered.all()
     error = separation_deg(samples.directions, unit_vector(between.ra.deg, between.dec.deg))
@@ -196,11 +201,20 @@ def test_ephemeris_table_round_trip_against_astropy(grid_2027a) -> None:
 
 def test_elements_track_matches_the_orbit_at_midnights(grid_2027a) -> None:
     # The track's cubic interpolation between its half-day nodes against the two-body position computed directly.
-    target = OrbitalElementsTarget.model_validate({
-        "kind": "orbital_elements", "name": "invented", "epoch": "2027-06-01", "semi_major_axis": 1.9, "eccentricity": 0.4,
-        "inclination": 12.0, "ascending_node_longitude": 100.0, "perihelion_argument": 30.0, "mean_anomaly": 350.0,
-        "absolute_magnitude": 16.0,
-    })
+    target = OrbitalElementsTarget.model_validate(
+        {
+            "kind": "orbital_elements",
+            "name": "invented",
+            "epoch": "2027-06-01",
+            "semi_major_axis": 1.9,
+            "eccentricity": 0.4,
+            "inclination": 12.0,
+            "ascending_node_longitude": 100.0,
+            "perihelion_argument": 30.0,
+            "mean_anomaly": 350.0,
+            "absolute_magnitude": 16.0,
+        }
+    )
     track = track_for(target, grid_2027a)
     midnights = grid_2027a.midnight_mjd + 0.23
     tt = midnights + 2400000.5 + 69.184 / 86400.0

@@ -28,8 +28,14 @@ REQUEST: dict[str, Any] = {
 }
 
 REQUIRED_FIGURES = {
-    "hours_requested", "hours_observable", "hours_usable", "hours_needed", "snr_expected",
-    "source_rate_e_s", "sky_rate_e_s_pix", "airmass_median",
+    "hours_requested",
+    "hours_observable",
+    "hours_usable",
+    "hours_needed",
+    "snr_expected",
+    "source_rate_e_s",
+    "sky_rate_e_s_pix",
+    "airmass_median",
 }
 
 
@@ -58,7 +64,9 @@ def test_result_carries_figures_series_and_versions(demo_observatory: Observator
     assert result.engine_version == feasibility.__version__
     assert result.schedule_version == demo_schedule.version and result.observatory_version == demo_observatory.version
     request = result.requests[0]
-    assert REQUIRED_FIGURES <= set(request.figures)  # the key figures the store copies into RequestOutcome and the pages read (feasibility/store/models.py, service/runs.py)
+    assert REQUIRED_FIGURES <= set(
+        request.figures
+    )  # the key figures the store copies into RequestOutcome and the pages read (feasibility/store/models.py, service/runs.py)
     checks = {f.check for f in request.findings}
     assert {"visibility", "moon", "schedule", "sun-safety", "sensitivity"} <= checks
     assert all(f.method for f in request.findings if f.check in {"visibility", "moon", "schedule", "sun-safety"})

@@ -69,8 +69,14 @@ OBSERVATORY: dict[str, Any] = {
             "throughput": 0.2,
             "gratings": [{"name": "G1", "resolving_power": 1000, "min_wavelength_nm": 400, "max_wavelength_nm": 800}],
             "slits_arcsec": [0.8, 1.0],
-            "detector": {"read_noise_e": 3, "dark_current_e_s_pix": 0.0, "gain_e_adu": 1, "pixel_scale_arcsec": 0.3,
-                         "full_well_e": 100000, "slit_length_arcsec": 60},
+            "detector": {
+                "read_noise_e": 3,
+                "dark_current_e_s_pix": 0.0,
+                "gain_e_adu": 1,
+                "pixel_scale_arcsec": 0.3,
+                "full_well_e": 100000,
+                "slit_length_arcsec": 60,
+            },
             "min_exposure_s": 1,
             "max_exposure_s": 1800,
             "overheads": {"readout_s": 30, "acquisition_s": 600, "visit_hours": 3},
@@ -78,9 +84,7 @@ OBSERVATORY: dict[str, Any] = {
     ],
 }
 
-CONDITIONS = Conditions(
-    hours_observable=200.0, hours_usable=100.0, airmass_median=1.0, airmass_min=1.0, sky_mag_arcsec2=21.6, sky_band="V"
-)
+CONDITIONS = Conditions(hours_observable=200.0, hours_usable=100.0, airmass_median=1.0, airmass_min=1.0, sky_mag_arcsec2=21.6, sky_band="V")
 
 
 def _observatory(**telescope: Any) -> Observatory:
@@ -261,9 +265,7 @@ def test_source_rate_scales_with_collecting_area() -> None:
 def test_source_rate_by_hand_from_bessell_zero_point() -> None:
     # Bessell (1979): V = 20 is 3640e-8 Jy; 1.51e7 photons s^-1 m^-2 per unit Δλ/λ; band 88/550; area π (2 m)²/4;
     # throughput 0.5; extinction 10^(-0.4 × 0.12 × 1); Gaussian encircled fraction within 0.673 FWHM.
-    expected = (
-        3640e-8 * 1.51e7 * (88 / 550) * math.pi * 0.5 * 10 ** (-0.4 * 0.12) * (1 - math.exp(-4 * math.log(2) * 0.673**2))
-    )
+    expected = 3640e-8 * 1.51e7 * (88 / 550) * math.pi * 0.5 * 10 ** (-0.4 * 0.12) * (1 - math.exp(-4 * math.log(2) * 0.673**2))
     assert _assess(_request()).figures["source_rate_e_s"] == pytest.approx(expected, rel=1e-3)
 
 

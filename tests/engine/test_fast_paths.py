@@ -76,7 +76,12 @@ def test_the_airmass_limit_search_matches_the_per_instant_path(measured, demo_ob
             for limit in LIMITS:
                 min_alt = max(limit_altitude(limit, probe.formula), probe.floor_alt)
                 mask = visible_mask(
-                    view, probe.vector, sin_alt, min_alt, probe.max_alt, demo_observatory.site,
+                    view,
+                    probe.vector,
+                    sin_alt,
+                    min_alt,
+                    probe.max_alt,
+                    demo_observatory.site,
                     in_windows(request.windows, view.mjd) if windows and request.windows else None,
                 )
                 exact = view.per_night(mask) * probe.step_hours

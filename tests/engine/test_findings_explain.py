@@ -46,10 +46,16 @@ def _measure(grid, observatory: Observatory, data: dict[str, Any], schedule: Ins
 
 
 def _proposal(*requests: dict[str, Any]) -> Proposal:
-    return parse_document(Proposal, {
-        "id": "EXPLAIN-1", "semester": "2027A", "title": "t", "pi": {"name": "A", "email": "a@example.org"},
-        "requests": list(requests),
-    })
+    return parse_document(
+        Proposal,
+        {
+            "id": "EXPLAIN-1",
+            "semester": "2027A",
+            "title": "t",
+            "pi": {"name": "A", "email": "a@example.org"},
+            "requests": list(requests),
+        },
+    )
 
 
 @pytest.fixture(scope="module")
@@ -142,9 +148,11 @@ def test_image_quality_suggests_the_limit_met_half_the_time(demo_observatory: Ob
     request = check_proposal(_proposal(sharp), demo_observatory).requests[0]
     finding = next(f for f in request.findings if f.check == "image-quality")
     assert finding.level in (Level.MARGINAL, Level.INFEASIBLE)
-    assert "Missed: 0.60\" or better" in finding.message and "< 50 %" in finding.message
+    assert 'Missed: 0.60" or better' in finding.message and "< 50 %" in finding.message
     suggested = finding.figures["max_seeing_feasible_arcsec"]
-    natural = seeing_fwhm_arcsec(demo_observatory.climate.median_seeing_arcsec, request.figures["airmass_typical"], 550.0)  # image quality is judged at the typical (median) airmass
+    natural = seeing_fwhm_arcsec(
+        demo_observatory.climate.median_seeing_arcsec, request.figures["airmass_typical"], 550.0
+    )  # image quality is judged at the typical (median) airmass
     diffraction = diffraction_fwhm_arcsec(550.0, demo_observatory.telescope.aperture_m)
     # Reference: the median of a log-normal distribution is met half the time (mathematics of the log-normal).
     assert fraction_seeing_better(suggested, natural, diffraction) == pytest.approx(0.5, abs=0.01)
@@ -162,8 +170,11 @@ def test_atmosphere_suggests_the_nearest_window() -> None:
 def test_sun_safety_speaks_of_the_window(demo_observatory: Observatory) -> None:
     # Leo I (RA 10h08m) in late August stands close to the Sun (near RA 10h20m then; Meeus ch. 25 gives the
     # Sun's motion, about 1° a day): it is not up at night inside the window.
-    leo = _request(label="leo", target={"name": "Leo I", "ra": "10:08:28.1", "dec": "+12:18:23"},
-                   windows=[{"start": "2027-08-15T00:00:00Z", "end": "2027-08-30T00:00:00Z"}])
+    leo = _request(
+        label="leo",
+        target={"name": "Leo I", "ra": "10:08:28.1", "dec": "+12:18:23"},
+        windows=[{"start": "2027-08-15T00:00:00Z", "end": "2027-08-30T00:00:00Z"}],
+    )
     request = check_proposal(_proposal(leo), demo_observatory).requests[0]
     finding = next(f for f in request.findings if f.check == "sun-safety")
     assert finding.message.startswith("WARNING") and "within the time windows" in finding.message

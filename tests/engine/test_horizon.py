@@ -28,8 +28,9 @@ def _problems(base: Observatory, points: list[dict[str, float]]) -> dict[str, st
 
 
 def test_zero_and_360_must_agree(demo_observatory: Observatory) -> None:
-    problems = _problems(demo_observatory, [{"azimuth_deg": 0, "altitude_deg": 40}, {"azimuth_deg": 180, "altitude_deg": 5},
-                                             {"azimuth_deg": 360, "altitude_deg": 5}])
+    problems = _problems(
+        demo_observatory, [{"azimuth_deg": 0, "altitude_deg": 40}, {"azimuth_deg": 180, "altitude_deg": 5}, {"azimuth_deg": 360, "altitude_deg": 5}]
+    )
     assert "site.horizon" in problems, problems
     assert "0°" in problems["site.horizon"] and "360°" in problems["site.horizon"]
 
@@ -47,8 +48,9 @@ def test_one_altitude_per_azimuth(demo_observatory: Observatory) -> None:
 
 def test_profile_wraps_from_the_last_point_to_the_first(demo_observatory: Observatory) -> None:
     # The audit's profile with 360° made to agree with 0°: 0° → 40°, 180° → 5°, 360° → 40°.
-    site = _with_horizon(demo_observatory, [{"azimuth_deg": 0, "altitude_deg": 40}, {"azimuth_deg": 180, "altitude_deg": 5},
-                                            {"azimuth_deg": 360, "altitude_deg": 40}]).site
+    site = _with_horizon(
+        demo_observatory, [{"azimuth_deg": 0, "altitude_deg": 40}, {"azimuth_deg": 180, "altitude_deg": 5}, {"azimuth_deg": 360, "altitude_deg": 40}]
+    ).site
     # Reference: linear interpolation by hand, 40 + (5 − 40) × 90/180 = 22.5 at 90°; 5 + 35 × 90/180 = 22.5 at 270°.
     assert horizon_altitude(site, [1.0, 90.0, 179.0, 270.0, 359.0]) == pytest.approx([40 - 35 / 180, 22.5, 5 + 35 / 180, 22.5, 40 - 35 / 180])
     # Without a 0° point the profile still wraps: 90° → 20°, 270° → 10°; at 0° (90° from either point) the mean.
@@ -76,14 +78,20 @@ def test_asymmetric_profile_against_a_direct_count(grid_2027a, demo_observatory:
     from feasibility.engine.sky_checks import measure_sky, night_availability
 
     points = [(20.0, 35.0), (110.0, 8.0), (200.0, 45.0), (300.0, 12.0)]  # no 0° point: the last segment wraps
-    observatory = _with_horizon(
-        demo_observatory, [{"azimuth_deg": a, "altitude_deg": h} for a, h in points], min_altitude_deg=0.0
+    observatory = _with_horizon(demo_observatory, [{"azimuth_deg": a, "altitude_deg": h} for a, h in points], min_altitude_deg=0.0)
+    request = parse_document(
+        ObservationRequest,
+        {
+            "label": "r",
+            "target": {"name": "t", "ra": "17:45:36", "dec": "-29:00:00"},
+            "instrument": "KESTREL",
+            "setup": {"filter": "V"},
+            "brightness": {"magnitude": 18.0, "band": "V"},
+            "goal": {"snr": 50},
+            "hours_requested": 5.0,
+            "constraints": {"max_airmass": 5.0, "min_moon_separation_deg": 0.0},
+        },
     )
-    request = parse_document(ObservationRequest, {
-        "label": "r", "target": {"name": "t", "ra": "17:45:36", "dec": "-29:00:00"}, "instrument": "KESTREL",
-        "setup": {"filter": "V"}, "brightness": {"magnitude": 18.0, "band": "V"}, "goal": {"snr": 50},
-        "hours_requested": 5.0, "constraints": {"max_airmass": 5.0, "min_moon_separation_deg": 0.0},
-    })
     instrument = observatory.instrument_named("KESTREL")
     weather = np.ones(grid_2027a.n_nights)
     sky = measure_sky(request, observatory, instrument, grid_2027a, night_availability(grid_2027a, "KESTREL", None), weather, False)

@@ -23,9 +23,7 @@ def test_scattering_function_values() -> None:
     assert moonsky.scattering_function(90.0) == pytest.approx(10**5.36 * 1.06 + 10**3.9)
     # At ρ = 0° the Rayleigh term is 10^5.36 × 2.06 (the sum 1.06 + cos²ρ, not a product).
     # At ρ = 5° the Mie term is 6.2e7 ρ^-2.
-    assert moonsky.scattering_function(5.0) == pytest.approx(
-        10**5.36 * (1.06 + np.cos(np.radians(5.0)) ** 2) + 6.2e7 / 25.0
-    )
+    assert moonsky.scattering_function(5.0) == pytest.approx(10**5.36 * (1.06 + np.cos(np.radians(5.0)) ** 2) + 6.2e7 / 25.0)
     rho = np.linspace(1.0, 170.0, 200)
     f = moonsky.scattering_function(rho)
     # Stated behaviour: brighter nearer the Moon, falling to a minimum near 90° (where cos²ρ vanishes
@@ -83,13 +81,20 @@ def test_other_bands_carry_the_suns_colour() -> None:
 
 
 def test_cached_moon_term_gives_equation_15() -> None:
-    phase, separation, moon_zenith, zenith = np.array([10.0, 80.0, 30.0]), np.array([30.0, 60.0, 5.0]), np.array([20.0, 50.0, 95.0]), np.array([30.0, 10.0, 60.0])
+    phase, separation, moon_zenith, zenith = (
+        np.array([10.0, 80.0, 30.0]),
+        np.array([30.0, 60.0, 5.0]),
+        np.array([20.0, 50.0, 95.0]),
+        np.array([30.0, 10.0, 60.0]),
+    )
     term = moonsky.moon_term(phase, moon_zenith, 0.15)
     # K&S eq. 15 split into its target-independent and target-dependent factors gives the same product.
     assert moonsky.moonlight_from_term(term, separation, zenith, 0.15) == pytest.approx(
-        moonsky.scattering_function(separation) * moonsky.moon_brightness(phase)
+        moonsky.scattering_function(separation)
+        * moonsky.moon_brightness(phase)
         * 10 ** (-0.4 * 0.15 * moonsky.optical_path(np.minimum(moon_zenith, 90.0)))
-        * (1 - 10 ** (-0.4 * 0.15 * moonsky.optical_path(zenith))) * (moon_zenith < 90.0)
+        * (1 - 10 ** (-0.4 * 0.15 * moonsky.optical_path(zenith)))
+        * (moon_zenith < 90.0)
     )
 
 

@@ -29,14 +29,30 @@ BASE: dict[str, Any] = {
     "hours_requested": 2.0,
 }
 ASTEROID = {
-    "kind": "orbital_elements", "name": "(90001) Invented", "epoch": "2027-06-01", "semi_major_axis": 2.6,
-    "eccentricity": 0.15, "inclination": 8.0, "ascending_node_longitude": 120.0, "perihelion_argument": 60.0,
-    "mean_anomaly": 200.0, "absolute_magnitude": 13.2, "slope_parameter": 0.2,
+    "kind": "orbital_elements",
+    "name": "(90001) Invented",
+    "epoch": "2027-06-01",
+    "semi_major_axis": 2.6,
+    "eccentricity": 0.15,
+    "inclination": 8.0,
+    "ascending_node_longitude": 120.0,
+    "perihelion_argument": 60.0,
+    "mean_anomaly": 200.0,
+    "absolute_magnitude": 13.2,
+    "slope_parameter": 0.2,
 }
 COMET = {
-    "kind": "orbital_elements", "name": "C/2027 Q1 (invented)", "epoch": "2027-06-20", "perihelion_distance": 0.45,
-    "eccentricity": 0.995, "inclination": 70.0, "ascending_node_longitude": 30.0, "perihelion_argument": 100.0,
-    "perihelion_time": "2027-06-20T00:00:00Z", "total_absolute_magnitude": 9.0, "total_magnitude_slope": 10.0,
+    "kind": "orbital_elements",
+    "name": "C/2027 Q1 (invented)",
+    "epoch": "2027-06-20",
+    "perihelion_distance": 0.45,
+    "eccentricity": 0.995,
+    "inclination": 70.0,
+    "ascending_node_longitude": 30.0,
+    "perihelion_argument": 100.0,
+    "perihelion_time": "2027-06-20T00:00:00Z",
+    "total_absolute_magnitude": 9.0,
+    "total_magnitude_slope": 10.0,
 }
 
 
@@ -135,9 +151,7 @@ def test_tracking_limit_loses_the_nights_the_body_moves_faster(demo_observatory:
     fastest = _finding(free, "motion").figures["rate_max_arcsec_per_hour"]
     slowest = _finding(free, "motion").figures["rate_min_arcsec_per_hour"]
     limit = (fastest + slowest) / 2.0
-    limited = demo_observatory.model_copy(
-        update={"telescope": demo_observatory.telescope.model_copy(update={"max_tracking_rate_arcsec_per_hour": limit})}
-    )
+    limited = demo_observatory.model_copy(update={"telescope": demo_observatory.telescope.model_copy(update={"max_tracking_rate_arcsec_per_hour": limit})})
     (slow,) = _check(limited, ASTEROID)
     motion = _finding(slow, "motion")
     assert motion.figures["hours_beyond_tracking_limit"] > 0 and motion.level is not Level.FEASIBLE
@@ -147,9 +161,7 @@ def test_tracking_limit_loses_the_nights_the_body_moves_faster(demo_observatory:
 
 
 def test_sidereal_only_mount_caps_exposures_by_the_trail(demo_observatory: Observatory) -> None:
-    sidereal = demo_observatory.model_copy(
-        update={"telescope": demo_observatory.telescope.model_copy(update={"sidereal_tracking_only": True})}
-    )
+    sidereal = demo_observatory.model_copy(update={"telescope": demo_observatory.telescope.model_copy(update={"sidereal_tracking_only": True})})
     near_earth = ASTEROID | {"semi_major_axis": 1.3, "eccentricity": 0.3, "mean_anomaly": 340.0, "absolute_magnitude": 19.0}
     (result,) = _check(sidereal, near_earth, goal={"snr": 100})
     motion = _finding(result, "motion")
@@ -162,10 +174,7 @@ def test_sidereal_only_mount_caps_exposures_by_the_trail(demo_observatory: Obser
 
 def test_table_outside_its_span_counts_nothing(demo_observatory: Observatory, grid_2027a: SkyGrid) -> None:
     first = grid_2027a.midnight_mjd[0]
-    rows = [
-        {"time": datetime.fromtimestamp((first + k - 40587.0) * 86400.0, tz=UTC).isoformat(), "ra": 250.0, "dec": -35.0}
-        for k in (60, 70)
-    ]
+    rows = [{"time": datetime.fromtimestamp((first + k - 40587.0) * 86400.0, tz=UTC).isoformat(), "ra": 250.0, "dec": -35.0} for k in (60, 70)]
     (table,) = _check(demo_observatory, {"kind": "ephemeris_table", "name": "short", "ephemeris_table": rows})
     visible = np.array(table.series["hours_visible"])
     assert visible[:60].sum() == 0 and visible[71:].sum() == 0 and visible[60:70].sum() > 0

@@ -73,9 +73,7 @@ def test_altaz_past_the_bundled_table_needs_no_download(no_network: list[str]) -
     assert np.all(np.isfinite(altaz.alt.deg))
 
 
-def test_sky_grid_past_the_bundled_table_logs_once(
-    no_network: list[str], caplog: pytest.LogCaptureFixture, monkeypatch: pytest.MonkeyPatch
-) -> None:
+def test_sky_grid_past_the_bundled_table_logs_once(no_network: list[str], caplog: pytest.LogCaptureFixture, monkeypatch: pytest.MonkeyPatch) -> None:
     from feasibility.engine.skygrid import build_sky_grid
 
     monkeypatch.setattr(offline, "_logged", set())

@@ -183,8 +183,7 @@ def test_results_converge_as_realisations_grow() -> None:
     scatter = []
     for realisations in (250, 4_000):
         estimates = [
-            float((run_realisations(plan, _climate(nights, fraction), realisations, seed=seed).hours_obtained[:, 0] >= needed).mean())
-            for seed in range(12)
+            float((run_realisations(plan, _climate(nights, fraction), realisations, seed=seed).hours_obtained[:, 0] >= needed).mean()) for seed in range(12)
         ]
         scatter.append(float(np.std(estimates)))
     assert scatter[1] < 0.5 * scatter[0]
@@ -280,7 +279,9 @@ def test_demo_semester_offers_the_scheduled_true_night(demo_observatory: Observa
     from feasibility.engine.evaluate import check_proposal
 
     infeasible = {
-        (p.id, checked.label) for p in proposals for checked in check_proposal(p, demo_observatory, demo_schedule).requests
+        (p.id, checked.label)
+        for p in proposals
+        for checked in check_proposal(p, demo_observatory, demo_schedule).requests
         if checked.verdict.value == "infeasible"
     }
     assert infeasible, "the demo examples include infeasible requests"
@@ -301,9 +302,16 @@ def test_demo_semester_offers_the_scheduled_true_night(demo_observatory: Observa
 def _item(**values: object) -> PlanRequest:
     from feasibility.documents import ObservationRequest
 
-    request = ObservationRequest.model_validate({
-        "label": "x", "target": {"name": "t", "ra": 10.0, "dec": -30.0}, "instrument": "KESTREL", "setup": {"filter": "V"},
-        "brightness": {"magnitude": 18.0, "band": "V"}, "goal": {"snr": 10}, "hours_requested": 1.0,
-        "constraints": {"max_seeing_arcsec": values.pop("max_seeing_arcsec", None)},
-    })
+    request = ObservationRequest.model_validate(
+        {
+            "label": "x",
+            "target": {"name": "t", "ra": 10.0, "dec": -30.0},
+            "instrument": "KESTREL",
+            "setup": {"filter": "V"},
+            "brightness": {"magnitude": 18.0, "band": "V"},
+            "goal": {"snr": 10},
+            "hours_requested": 1.0,
+            "constraints": {"max_seeing_arcsec": values.pop("max_seeing_arcsec", None)},
+        }
+    )
     return PlanRequest(proposal_id="P", label="x", request=request, instrument=None, hours=1.0, **values)  # type: ignore[arg-type]

@@ -121,10 +121,19 @@ def test_horizon_profile_wall_equals_a_minimum_altitude(grid_2027a, open_site: O
     request = _request()
     # Reference: a level 50° horizon all round is the same constraint as a 50° minimum altitude.
     assert _measure(grid_2027a, wall, request).visible.sum() == pytest.approx(_measure(grid_2027a, floor, request).visible.sum())
-    east = _observatory(open_site, site={"horizon": [
-        {"azimuth_deg": 0, "altitude_deg": 0}, {"azimuth_deg": 45, "altitude_deg": 0}, {"azimuth_deg": 46, "altitude_deg": 50},
-        {"azimuth_deg": 134, "altitude_deg": 50}, {"azimuth_deg": 135, "altitude_deg": 0}, {"azimuth_deg": 360, "altitude_deg": 0},
-    ]})
+    east = _observatory(
+        open_site,
+        site={
+            "horizon": [
+                {"azimuth_deg": 0, "altitude_deg": 0},
+                {"azimuth_deg": 45, "altitude_deg": 0},
+                {"azimuth_deg": 46, "altitude_deg": 50},
+                {"azimuth_deg": 134, "altitude_deg": 50},
+                {"azimuth_deg": 135, "altitude_deg": 0},
+                {"azimuth_deg": 360, "altitude_deg": 0},
+            ]
+        },
+    )
     hours = _measure(grid_2027a, east, request).visible.sum()
     assert _measure(grid_2027a, floor, request).visible.sum() < hours < _measure(grid_2027a, open_site, request).visible.sum()
 
@@ -230,15 +239,11 @@ def test_sun_safety_warning_never_comes_with_a_feasible_level(grid_2027a, open_s
     # never visible. The Sun's declination stays within ±23.44° (obliquity of the ecliptic, from memory),
     # so the star is always 46.6° or more from the Sun: inside a 60° limit, outside a 40° one.
     never_up = _request(target={"name": "far north", "ra": "06:00:00", "dec": "+70:00:00"})
-    inside = sky_checks.sun_safety_finding(
-        _measure(grid_2027a, _observatory(open_site, telescope={"min_sun_separation_deg": 60.0}), never_up)
-    )
+    inside = sky_checks.sun_safety_finding(_measure(grid_2027a, _observatory(open_site, telescope={"min_sun_separation_deg": 60.0}), never_up))
     assert inside.figures["sun_separation_min_deg"] >= 46.5
     assert inside.level is Level.MARGINAL
     assert "WARNING" in inside.message and "never visible" in inside.message and "staff" in inside.message
-    outside = sky_checks.sun_safety_finding(
-        _measure(grid_2027a, _observatory(open_site, telescope={"min_sun_separation_deg": 40.0}), never_up)
-    )
+    outside = sky_checks.sun_safety_finding(_measure(grid_2027a, _observatory(open_site, telescope={"min_sun_separation_deg": 40.0}), never_up))
     assert outside.level is Level.FEASIBLE and "WARNING" not in outside.message
 
 
@@ -274,8 +279,13 @@ def test_median_sky_matches_a_direct_evaluation_over_every_instant(grid_2027a, o
     separation = np.degrees(np.arccos(np.clip(view.moon[chosen] @ vector, -1, 1)))
     band = open_site.climate.bands["B"]
     direct = sky_brightness_mag(
-        "B", band.sky_mag_arcsec2, band.extinction_mag_per_airmass, 90 - np.degrees(np.arcsin(up[chosen])),
-        90 - view.moon_alt_deg[chosen], view.moon_phase_angle_deg[chosen], separation,
+        "B",
+        band.sky_mag_arcsec2,
+        band.extinction_mag_per_airmass,
+        90 - np.degrees(np.arcsin(up[chosen])),
+        90 - view.moon_alt_deg[chosen],
+        view.moon_phase_angle_deg[chosen],
+        separation,
     )
     # Reference: K&S eqs. 2 and 15 evaluated directly at every usable instant; the engine samples ~120 of them.
     assert sky.sky_mag_median == pytest.approx(float(np.median(direct)), abs=0.1)

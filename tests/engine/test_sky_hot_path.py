@@ -87,12 +87,19 @@ def test_time_windows_include_both_ends(northern_grid: skygrid.SkyGrid) -> None:
         return (datetime(1970, 1, 1, tzinfo=UTC) + timedelta(days=value - unix_epoch_mjd)).isoformat()
 
     start, end = float(mjd[100]), float(mjd[130])
-    request = parse_document(ObservationRequest, {
-        "label": "w", "target": {"name": "t", "ra": 280.0, "dec": 38.8}, "instrument": "KESTREL",
-        "setup": {"filter": "V"}, "brightness": {"magnitude": 18.0, "band": "V"}, "goal": {"snr": 10},
-        "hours_requested": 1.0,
-        "windows": [{"start": moment(start), "end": moment(end)}, {"start": moment(mjd[400] + 1e-4), "end": moment(mjd[402])}],
-    })
+    request = parse_document(
+        ObservationRequest,
+        {
+            "label": "w",
+            "target": {"name": "t", "ra": 280.0, "dec": 38.8},
+            "instrument": "KESTREL",
+            "setup": {"filter": "V"},
+            "brightness": {"magnitude": 18.0, "band": "V"},
+            "goal": {"snr": 10},
+            "hours_requested": 1.0,
+            "windows": [{"start": moment(start), "end": moment(end)}, {"start": moment(mjd[400] + 1e-4), "end": moment(mjd[402])}],
+        },
+    )
     inside = _in_windows(request, mjd)
     # Reference: plain arithmetic, an instant is inside when start <= t <= end (both ends included),
     # with the window ends as the documents carry them (datetimes to the microsecond).

@@ -65,12 +65,8 @@ def test_sidereal_time_meeus_12a_12b() -> None:
     # Sanity check of the library the grid relies on for time scales (UT taken as UT1, as Meeus does).
     midnight = Time(2446895.5, format="jd", scale="ut1")
     # Meeus example 12.a: mean 13h10m46.3668s, apparent 13h10m46.1351s (IAU 1982 / 1994 models).
-    assert midnight.sidereal_time("mean", "greenwich", model="IAU1982").hour == pytest.approx(
-        13 + 10 / 60 + 46.3668 / 3600, abs=0.001 / 3600
-    )
-    assert midnight.sidereal_time("apparent", "greenwich", model="IAU1994").hour == pytest.approx(
-        13 + 10 / 60 + 46.1351 / 3600, abs=0.002 / 3600
-    )
+    assert midnight.sidereal_time("mean", "greenwich", model="IAU1982").hour == pytest.approx(13 + 10 / 60 + 46.3668 / 3600, abs=0.001 / 3600)
+    assert midnight.sidereal_time("apparent", "greenwich", model="IAU1994").hour == pytest.approx(13 + 10 / 60 + 46.1351 / 3600, abs=0.002 / 3600)
     evening = Time(2446896.30625, format="jd", scale="ut1")
     # Meeus example 12.b: 128.7378734°.
     assert evening.sidereal_time("mean", "greenwich", model="IAU1982").degree == pytest.approx(128.7378734, abs=1e-5)
@@ -126,8 +122,13 @@ def test_proper_motion_against_astropy_apply_space_motion() -> None:
     ra, dec, pm_ra, pm_dec = 269.452075, 4.693391, -798.58, 10328.12
     moved = target_vector(ra, dec, pm_ra, pm_dec, 2000.0, 2027.5)
     star = SkyCoord(
-        ra * u.deg, dec * u.deg, distance=1.83 * u.pc, pm_ra_cosdec=pm_ra * u.mas / u.yr, pm_dec=pm_dec * u.mas / u.yr,
-        radial_velocity=0 * u.km / u.s, obstime=Time(2000.0, format="jyear"),
+        ra * u.deg,
+        dec * u.deg,
+        distance=1.83 * u.pc,
+        pm_ra_cosdec=pm_ra * u.mas / u.yr,
+        pm_dec=pm_dec * u.mas / u.yr,
+        radial_velocity=0 * u.km / u.s,
+        obstime=Time(2000.0, format="jyear"),
     )
     reference = star.apply_space_motion(new_obstime=Time(2027.5, format="jyear"))
     # Reference: astropy's apply_space_motion (without radial velocity); within 0.1 arcsec.
@@ -141,8 +142,13 @@ def test_proper_motion_near_the_pole() -> None:
     from astropy.time import Time
 
     star = SkyCoord(
-        37.95 * u.deg, 89.99 * u.deg, distance=100 * u.pc, pm_ra_cosdec=5000 * u.mas / u.yr, pm_dec=-3000 * u.mas / u.yr,
-        radial_velocity=0 * u.km / u.s, obstime=Time(2000.0, format="jyear"),
+        37.95 * u.deg,
+        89.99 * u.deg,
+        distance=100 * u.pc,
+        pm_ra_cosdec=5000 * u.mas / u.yr,
+        pm_dec=-3000 * u.mas / u.yr,
+        radial_velocity=0 * u.km / u.s,
+        obstime=Time(2000.0, format="jyear"),
     )
     reference = star.apply_space_motion(new_obstime=Time(2028.0, format="jyear"))
     moved = target_vector(37.95, 89.99, 5000.0, -3000.0, 2000.0, 2028.0)

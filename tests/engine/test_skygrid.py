@@ -38,9 +38,7 @@ def sampled(grid_2027a: skygrid.SkyGrid):
 
     index = np.arange(0, grid_2027a.mjd.size, 6)
     times = Time(grid_2027a.mjd[index], format="mjd", scale="utc")
-    site = EarthLocation.from_geodetic(
-        grid_2027a.longitude_deg * u.deg, grid_2027a.latitude_deg * u.deg, grid_2027a.elevation_m * u.m
-    )
+    site = EarthLocation.from_geodetic(grid_2027a.longitude_deg * u.deg, grid_2027a.latitude_deg * u.deg, grid_2027a.elevation_m * u.m)
     return index, times, site, AltAz(obstime=times, location=site, pressure=0)
 
 
@@ -60,8 +58,13 @@ def test_target_altaz_matches_astropy_over_the_semester(grid_2027a, sampled, nam
     alt, az = altaz_from_enu(grid_2027a.basis[index, :3, :] @ vector)
 
     star = SkyCoord(
-        ra * u.deg, dec * u.deg, distance=1 * u.kpc, pm_ra_cosdec=pm_ra * u.mas / u.yr, pm_dec=pm_dec * u.mas / u.yr,
-        radial_velocity=0 * u.km / u.s, obstime=Time(2000.0, format="jyear"),
+        ra * u.deg,
+        dec * u.deg,
+        distance=1 * u.kpc,
+        pm_ra_cosdec=pm_ra * u.mas / u.yr,
+        pm_dec=pm_dec * u.mas / u.yr,
+        radial_velocity=0 * u.km / u.s,
+        obstime=Time(2000.0, format="jyear"),
     )
     with log_astropy_warnings():
         star = star.apply_space_motion(new_obstime=Time(mid, format="jyear"))
@@ -113,9 +116,7 @@ def test_hours_per_night_match_brute_force_astropy(grid_2027a) -> None:
     from astropy.coordinates import AltAz, EarthLocation, SkyCoord, get_body
     from astropy.time import Time
 
-    site = EarthLocation.from_geodetic(
-        grid_2027a.longitude_deg * u.deg, grid_2027a.latitude_deg * u.deg, grid_2027a.elevation_m * u.m
-    )
+    site = EarthLocation.from_geodetic(grid_2027a.longitude_deg * u.deg, grid_2027a.latitude_deg * u.deg, grid_2027a.elevation_m * u.m)
     limit = altitude_for_airmass(2.0)
     vector = target_vector(266.4, -29.0)
     view = grid_2027a.samples(-18.0)

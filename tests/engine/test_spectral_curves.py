@@ -187,18 +187,26 @@ def test_bad_tables_are_refused_naming_the_field(demo_observatory: Observatory, 
 
 def _spectrum_proposal(wavelength_nm: float, magnitude: float = 14.5) -> Proposal:
     """A low-resolution spectrum on the demo spectrograph (R = 600), the demo proposal 007's turn-off star made brighter."""
-    return parse_document(Proposal, {
-        "id": "SPECTRA-1", "semester": "2027A", "title": "sweep", "pi": {"name": "A B", "email": "a@example.org"},
-        "requests": [{
-            "label": "spectrum",
-            "target": {"name": "NGC 6397", "ra": "17:40:42.1", "dec": "-53:40:27"},
-            "instrument": "HERON",
-            "setup": {"grating": "R600", "slit_arcsec": 1.2, "central_wavelength_nm": wavelength_nm},
-            "brightness": {"magnitude": magnitude, "band": "V"},
-            "goal": {"snr": 50},
-            "hours_requested": 2,
-        }],
-    })
+    return parse_document(
+        Proposal,
+        {
+            "id": "SPECTRA-1",
+            "semester": "2027A",
+            "title": "sweep",
+            "pi": {"name": "A B", "email": "a@example.org"},
+            "requests": [
+                {
+                    "label": "spectrum",
+                    "target": {"name": "NGC 6397", "ra": "17:40:42.1", "dec": "-53:40:27"},
+                    "instrument": "HERON",
+                    "setup": {"grating": "R600", "slit_arcsec": 1.2, "central_wavelength_nm": wavelength_nm},
+                    "brightness": {"magnitude": magnitude, "band": "V"},
+                    "goal": {"snr": 50},
+                    "hours_requested": 2,
+                }
+            ],
+        },
+    )
 
 
 def test_snr_sweep_has_no_steps(demo_observatory: Observatory, demo_schedule: InstrumentSchedule) -> None:
@@ -217,10 +225,7 @@ def test_snr_sweep_has_no_steps(demo_observatory: Observatory, demo_schedule: In
 
 def test_the_audited_step_at_the_u_b_boundary_is_gone(demo_observatory: Observatory, demo_schedule: InstrumentSchedule) -> None:
     # The audit: S/N 80 at 402 nm against 145 at 403 nm when the nearest band switched from U to B.
-    below, above = (
-        check_proposal(_spectrum_proposal(w, 16.5), demo_observatory, demo_schedule).requests[0].figures["snr_expected"]
-        for w in (402.0, 403.0)
-    )
+    below, above = (check_proposal(_spectrum_proposal(w, 16.5), demo_observatory, demo_schedule).requests[0].figures["snr_expected"] for w in (402.0, 403.0))
     assert above / below == pytest.approx(1.0, abs=0.02)
 
 
@@ -232,10 +237,7 @@ def test_spectrum_sky_at_a_band_wavelength_equals_the_imagers(demo_observatory: 
     spectrum["requests"][0]["constraints"] = {"sky": "bright"}
     imaging = copy.deepcopy(spectrum)
     imaging["requests"][0].update(instrument="KESTREL", setup={"filter": "B"})
-    sky = [
-        check_proposal(parse_document(Proposal, p), demo_observatory, None).requests[0].figures["sky_mag_arcsec2"]
-        for p in (spectrum, imaging)
-    ]
+    sky = [check_proposal(parse_document(Proposal, p), demo_observatory, None).requests[0].figures["sky_mag_arcsec2"] for p in (spectrum, imaging)]
     assert sky[0] == pytest.approx(sky[1], abs=0.005)
     assert sky[0] < demo_observatory.climate.bands["B"].sky_mag_arcsec2 - 0.1  # bright time: the Moon brightens it
 

@@ -32,8 +32,13 @@ __all__ = ["BASES", "ENCODINGS", "fuzz", "ordinary_values", "poisoned"]
 
 def fuzz(examples: int) -> settings:
     """Reproducible runs (derandomized, no example database), no time limit per example; fixtures shared by the examples."""
-    return settings(max_examples=examples, derandomize=True, database=None, deadline=None,
-                    suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large, HealthCheck.function_scoped_fixture])
+    return settings(
+        max_examples=examples,
+        derandomize=True,
+        database=None,
+        deadline=None,
+        suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large, HealthCheck.function_scoped_fixture],
+    )
 
 
 def _demo(path: str) -> dict[str, Any]:
@@ -65,7 +70,7 @@ _TEXT_NUMBERS = {
 ordinary_values = st.one_of(
     st.none(),
     st.booleans(),
-    st.integers(min_value=-10**6, max_value=10**6),
+    st.integers(min_value=-(10**6), max_value=10**6),
     st.floats(min_value=-1e6, max_value=1e6, allow_nan=False),
     st.text(st.characters(codec="utf-8", categories=["L", "N", "P", "Zs"]), max_size=20),
     st.lists(st.integers(0, 100), max_size=3),

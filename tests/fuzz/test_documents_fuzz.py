@@ -24,6 +24,8 @@ from . import tally
 from .mutations import BASES, ENCODINGS, fuzz, ordinary_values, poisoned
 
 MODELS: dict[str, type] = {"proposal": Proposal, "observatory": Observatory, "schedule": InstrumentSchedule}
+
+
 def assert_well_formed(error: DocumentError) -> None:
     """At most MAX_PROBLEMS problems plus one counting line; each one line, bounded, naming a field or the document."""
     assert 1 <= len(error.problems) <= MAX_PROBLEMS + 1

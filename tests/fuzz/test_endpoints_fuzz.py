@@ -57,8 +57,7 @@ def assert_clean_refusal(target: str, response: Any, done: list[str]) -> dict[st
 def test_submitting_poisoned_proposals(client: FlaskClient, make_token: Callable[..., str], data: st.DataObject) -> None:
     token = make_token("proposer")
     text, done = data.draw(poisoned("proposal", data.draw(st.sampled_from(["json", "yaml"]))))
-    response = client.post("/api/v1/proposals", data=text.encode("utf-8", "surrogatepass"),
-                           headers={**_auth(token), "Content-Type": _content_type(text)})
+    response = client.post("/api/v1/proposals", data=text.encode("utf-8", "surrogatepass"), headers={**_auth(token), "Content-Type": _content_type(text)})
     assert_clean_refusal("POST /api/v1/proposals", response, done)
     assert response.status_code in (400, 413, 422), done
 
@@ -70,8 +69,7 @@ def test_bulk_submission_of_poisoned_proposals(client: FlaskClient, make_token: 
     items = data.draw(st.lists(poisoned("proposal", "json"), min_size=1, max_size=3))
     done = [step for _, steps in items for step in steps]
     body = '{"proposals": [' + ", ".join(text for text, _ in items) + "]}"
-    response = client.post("/api/v1/proposals/bulk", data=body.encode("utf-8", "surrogatepass"),
-                           headers={**_auth(token), "Content-Type": "application/json"})
+    response = client.post("/api/v1/proposals/bulk", data=body.encode("utf-8", "surrogatepass"), headers={**_auth(token), "Content-Type": "application/json"})
     answer = assert_clean_refusal("POST /api/v1/proposals/bulk", response, done)
     if response.status_code == 200:  # read as a list: each item refused on its own
         assert answer is not None and answer["accepted"] == 0

@@ -79,9 +79,23 @@ def start_workers(env: dict[str, str], log: Path, concurrency: int = 2, count: i
     workers = []
     for n in range(count):
         path = log.with_name(f"{log.stem}-{n}.log")
-        command = [str(celery), "-A", "worker.celery_app", "worker", "--pool", "prefork", "-c", str(concurrency),
-                   "--loglevel", "INFO", "-n", f"{env['FEASIBILITY_QUEUE_PREFIX']}-{n}@%h",
-                   "--without-gossip", "--without-mingle", "--without-heartbeat"]
+        command = [
+            str(celery),
+            "-A",
+            "worker.celery_app",
+            "worker",
+            "--pool",
+            "prefork",
+            "-c",
+            str(concurrency),
+            "--loglevel",
+            "INFO",
+            "-n",
+            f"{env['FEASIBILITY_QUEUE_PREFIX']}-{n}@%h",
+            "--without-gossip",
+            "--without-mingle",
+            "--without-heartbeat",
+        ]
         with path.open("wb") as handle:  # the child keeps its own copy of the descriptor
             workers.append(subprocess.Popen(command, env=env, stdout=handle, stderr=subprocess.STDOUT))
         deadline = time.monotonic() + 60
@@ -149,8 +163,14 @@ def live(postgres_url: str, redis_prefix: str, tmp_path_factory: pytest.TempPath
     env = service_env(postgres_url, redis_prefix)
     upgrade(postgres_url)
     app = create_app(
-        {"DATABASE_URL": postgres_url, "BROKER_URL": REDIS_URL, "QUEUE_PREFIX": redis_prefix, "QUEUED_TIMEOUT_S": 5, "SWEEP_INTERVAL_S": 5,
-         "WEBHOOK_ALLOW_PRIVATE": True}
+        {
+            "DATABASE_URL": postgres_url,
+            "BROKER_URL": REDIS_URL,
+            "QUEUE_PREFIX": redis_prefix,
+            "QUEUED_TIMEOUT_S": 5,
+            "SWEEP_INTERVAL_S": 5,
+            "WEBHOOK_ALLOW_PRIVATE": True,
+        }
     )
     tokens: dict[str, str] = {}
     with app.app_context(), session_scope() as session:

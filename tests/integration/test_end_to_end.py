@@ -131,8 +131,11 @@ def test_a_message_for_a_run_held_by_a_live_worker_elsewhere_waits_for_its_lease
             run_id = submit(session, _proposal("INT-HELD", ra="16:40:00"), None).run.id
         now = utcnow()
         with session_scope() as session:  # claimed by a worker on another host, whose lease still has 4 s to run
-            session.execute(update(CheckRun).where(CheckRun.id == run_id).values(
-                state="running", attempts=1, started_at=now, lease_owner="another-host:4242", lease_expires_at=now + timedelta(seconds=4)))
+            session.execute(
+                update(CheckRun)
+                .where(CheckRun.id == run_id)
+                .values(state="running", attempts=1, started_at=now, lease_owner="another-host:4242", lease_expires_at=now + timedelta(seconds=4))
+            )
         live.app.extensions["feasibility.dispatch"].enqueue([run_id])
     time.sleep(2)
     with live.app.app_context(), session_scope() as session:

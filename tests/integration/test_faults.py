@@ -81,9 +81,7 @@ class Faulty:
         deadline = time.monotonic() + timeout
         while time.monotonic() < deadline:
             with self.app.app_context(), session_scope(read_only=True) as session:
-                rows = session.execute(
-                    select(CheckRun.id, CheckRun.lease_owner).where(CheckRun.id.in_(run_ids), CheckRun.state == "running")
-                ).all()
+                rows = session.execute(select(CheckRun.id, CheckRun.lease_owner).where(CheckRun.id.in_(run_ids), CheckRun.state == "running")).all()
             for run_id, owner in rows:
                 pid = int((owner or ":0").rpartition(":")[2] or 0)
                 if pid and _parent(pid) in ours:
@@ -169,8 +167,13 @@ def faulty(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Faulty]:
         upgrade(postgres.url)
         settings = {"DATABASE_URL": postgres.url, "BROKER_URL": redis.url, "QUEUE_PREFIX": prefix, "SWEEP_INTERVAL_S": RELAY_INTERVAL_S}
         env = {k: v for k, v in os.environ.items() if not k.startswith("FEASIBILITY_")}
-        env.update(DATABASE_URL=postgres.url, BROKER_URL=redis.url, FEASIBILITY_QUEUE_PREFIX=prefix,
-                   FEASIBILITY_SWEEP_INTERVAL_S=str(RELAY_INTERVAL_S), FEASIBILITY_HOME=str(folder / "home"))
+        env.update(
+            DATABASE_URL=postgres.url,
+            BROKER_URL=redis.url,
+            FEASIBILITY_QUEUE_PREFIX=prefix,
+            FEASIBILITY_SWEEP_INTERVAL_S=str(RELAY_INTERVAL_S),
+            FEASIBILITY_HOME=str(folder / "home"),
+        )
         if "FEASIBILITY_CACHE_DIR" in os.environ:
             env["FEASIBILITY_CACHE_DIR"] = os.environ["FEASIBILITY_CACHE_DIR"]
         app = create_app(settings)
@@ -180,8 +183,13 @@ def faulty(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Faulty]:
         beat_log = folder / "beat.log"
         celery = Path(sys.executable).with_name("celery")
         with beat_log.open("wb") as handle:
-            beat = subprocess.Popen([str(celery), "-A", "worker.celery_app", "beat", "--loglevel", "INFO", "--schedule", str(folder / "beat-schedule")],
-                                    env=env, cwd=folder, stdout=handle, stderr=subprocess.STDOUT)
+            beat = subprocess.Popen(
+                [str(celery), "-A", "worker.celery_app", "beat", "--loglevel", "INFO", "--schedule", str(folder / "beat-schedule")],
+                env=env,
+                cwd=folder,
+                stdout=handle,
+                stderr=subprocess.STDOUT,
+            )
         started.append(beat)
         _wait_for_line(beat_log, b"Sending due task", beat)
         base_url, stop_server = serve_in_thread(app)

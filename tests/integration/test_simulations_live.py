@@ -57,7 +57,10 @@ def test_a_celery_worker_computes_the_simulation(live: LiveService) -> None:
 
     direct = simulate_semester(
         sorted((parse_document(Proposal, d) for d in documents), key=lambda p: p.id),
-        load_document(Observatory, DEMO / "observatory.yaml"), None, realisations=150, seed=3,
+        load_document(Observatory, DEMO / "observatory.yaml"),
+        None,
+        realisations=150,
+        seed=3,
     )
     assert state["result"]["requests"] == direct["requests"]
     assert state["result"]["schedule_version"] is None and state["result"]["notes"] == direct["notes"]

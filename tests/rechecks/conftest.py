@@ -57,16 +57,18 @@ def make_proposal(proposal_id: str, *instruments: str, hours: float = 2.0, magni
     """An invented proposal with one request per instrument, on a target well placed in 2027A from the demo site."""
     requests = []
     for i, name in enumerate(instruments):
-        requests.append({
-            "label": f"{name.lower()}-{i}",
-            # RA 15h, Dec -40: transits near local midnight in May from latitude -26 (invented target).
-            "target": {"name": f"Invented star {proposal_id}-{i}", "ra": "15:00:00", "dec": "-40:00:00"},
-            "instrument": name,
-            "setup": copy.deepcopy(SETUPS[name]),
-            "brightness": {"magnitude": magnitude, "band": BANDS[name]},
-            "goal": {"snr": 20},
-            "hours_requested": hours,
-        })
+        requests.append(
+            {
+                "label": f"{name.lower()}-{i}",
+                # RA 15h, Dec -40: transits near local midnight in May from latitude -26 (invented target).
+                "target": {"name": f"Invented star {proposal_id}-{i}", "ra": "15:00:00", "dec": "-40:00:00"},
+                "instrument": name,
+                "setup": copy.deepcopy(SETUPS[name]),
+                "brightness": {"magnitude": magnitude, "band": BANDS[name]},
+                "goal": {"snr": 20},
+                "hours_requested": hours,
+            }
+        )
     return {
         "id": proposal_id,
         "semester": "2027A",
@@ -83,9 +85,14 @@ def submit_done(session: Session, document: dict[str, Any], verdict: str = "feas
     run = submit(session, document, None).run
     finished = utcnow() - timedelta(days=finished_days_ago)
     run.state, run.verdict, run.finished_at = "done", verdict, finished
-    run.result = {"proposal_id": document["id"], "verdict": verdict, "requests": [
-        {"label": r["label"], "instrument": r["instrument"], "target": r["target"]["name"], "verdict": verdict,
-         "figures": {"hours_observable": 40.0}} for r in document["requests"]]}
+    run.result = {
+        "proposal_id": document["id"],
+        "verdict": verdict,
+        "requests": [
+            {"label": r["label"], "instrument": r["instrument"], "target": r["target"]["name"], "verdict": verdict, "figures": {"hours_observable": 40.0}}
+            for r in document["requests"]
+        ],
+    }
     session.flush()
     return run
 

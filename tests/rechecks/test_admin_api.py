@@ -32,14 +32,28 @@ def scheduled_engine(proposal: Any, observatory: Any, schedule: Any) -> Proposal
     for r in proposal.requests:
         nights = sum(1 for n in (schedule.nights if schedule else []) if n.status == "open" and (n.instrument or "").upper() == r.instrument.upper())
         level = Level.FEASIBLE if nights else Level.INFEASIBLE
-        requests.append(RequestResult(
-            label=r.label, instrument=r.instrument, target=r.target.name, verdict=level,
-            findings=[Finding(check="schedule", level=level, message=f"{nights} nights", figures={"nights": nights})],
-            figures={"hours_requested": r.hours_requested, "hours_observable": float(nights), "hours_needed": 1.0, "snr_expected": 30.0}))
+        requests.append(
+            RequestResult(
+                label=r.label,
+                instrument=r.instrument,
+                target=r.target.name,
+                verdict=level,
+                findings=[Finding(check="schedule", level=level, message=f"{nights} nights", figures={"nights": nights})],
+                figures={"hours_requested": r.hours_requested, "hours_observable": float(nights), "hours_needed": 1.0, "snr_expected": 30.0},
+            )
+        )
     verdict = max((r.verdict for r in requests), key=lambda level: level.rank)
-    return ProposalResult(proposal_id=proposal.id, semester=proposal.semester, verdict=verdict, requests=requests,
-                          engine_version="stand-in", observatory=observatory.name, observatory_version=observatory.version,
-                          schedule_version=schedule.version if schedule else None, computed_at="2027-01-01T00:00:00+00:00")
+    return ProposalResult(
+        proposal_id=proposal.id,
+        semester=proposal.semester,
+        verdict=verdict,
+        requests=requests,
+        engine_version="stand-in",
+        observatory=observatory.name,
+        observatory_version=observatory.version,
+        schedule_version=schedule.version if schedule else None,
+        computed_at="2027-01-01T00:00:00+00:00",
+    )
 
 
 @pytest.fixture
@@ -73,15 +87,18 @@ def _submit(client: FlaskClient, token: str, document: dict[str, Any]) -> int:
 
 
 def test_schedule_upload_rechecks_affected_and_notifies(
-    app: Flask, client: FlaskClient, make_token: Callable[..., str], stand_in: None,
-    demo_schedule: dict[str, Any], proposal: Any,
+    app: Flask,
+    client: FlaskClient,
+    make_token: Callable[..., str],
+    stand_in: None,
+    demo_schedule: dict[str, Any],
+    proposal: Any,
 ) -> None:
     admin, portal, reviewer = make_token("admin"), make_token("portal", "portal-a"), make_token("reviewer")
     app.set_settings(WEBHOOK_ALLOW_PRIVATE=True)  # the receiver listens on 127.0.0.1
     receiver = Receiver()
     try:
-        assert client.put("/api/v1/users/portal-a/webhook", json={"url": receiver.url, "secret": SECRET},
-                          headers=_auth(admin)).status_code == 200
+        assert client.put("/api/v1/users/portal-a/webhook", json={"url": receiver.url, "secret": SECRET}, headers=_auth(admin)).status_code == 200
         heron_run = _submit(client, portal, proposal("H1", "HERON"))
         kestrel_run = _submit(client, portal, proposal("K1", "KESTREL"))
         _wait(app)
@@ -98,8 +115,9 @@ def test_schedule_upload_rechecks_affected_and_notifies(
 
         with app.app_context(), session_scope() as session:
             # K1 was not re-run: still one run.
-            k1_runs = session.scalar(select(func.count()).select_from(CheckRun).where(
-                CheckRun.proposal_version_id == session.get(CheckRun, kestrel_run).proposal_version_id))
+            k1_runs = session.scalar(
+                select(func.count()).select_from(CheckRun).where(CheckRun.proposal_version_id == session.get(CheckRun, kestrel_run).proposal_version_id)
+            )
             assert k1_runs == 1
         changes = client.get("/api/v1/changes?since=2000-01-01T00:00:00Z", headers=_auth(reviewer)).get_json()
         assert [(c["proposal_id"], c["verdict_before"], c["verdict_after"]) for c in changes["items"]] == [("H1", "feasible", "infeasible")]
@@ -139,7 +157,9 @@ def test_schedule_read_and_versions(client: FlaskClient, make_token: Callable[..
     assert client.get("/api/v1/schedules/2031B", headers=_auth(reviewer)).status_code == 404
 
 
-def test_uploads_need_admin_and_valid_documents(client: FlaskClient, make_token: Callable[..., str], demo_schedule: dict[str, Any], demo_observatory: dict[str, Any]) -> None:
+def test_uploads_need_admin_and_valid_documents(
+    client: FlaskClient, make_token: Callable[..., str], demo_schedule: dict[str, Any], demo_observatory: dict[str, Any]
+) -> None:
     reviewer, admin = make_token("reviewer"), make_token("admin")
     assert client.post("/api/v1/schedules", json=demo_schedule).status_code == 401
     assert client.post("/api/v1/schedules", json=demo_schedule, headers=_auth(reviewer)).status_code == 403
@@ -166,7 +186,12 @@ def test_observatory_upload_and_same_again(client: FlaskClient, make_token: Call
 
 
 def test_changes_are_filtered_by_role(
-    app: Flask, client: FlaskClient, make_token: Callable[..., str], stand_in: None, demo_schedule: dict[str, Any], proposal: Any,
+    app: Flask,
+    client: FlaskClient,
+    make_token: Callable[..., str],
+    stand_in: None,
+    demo_schedule: dict[str, Any],
+    proposal: Any,
 ) -> None:
     admin, portal_a, portal_b = make_token("admin"), make_token("portal", "portal-a"), make_token("portal", "portal-b")
     _submit(client, portal_a, proposal("HA", "HERON"))
@@ -181,7 +206,9 @@ def test_changes_are_filtered_by_role(
     assert client.get("/api/v1/changes?since=2999-01-01T00:00:00Z", headers=_auth(admin)).get_json()["count"] == 0
 
 
-def test_recheck_endpoint_is_idempotent(app: Flask, client: FlaskClient, make_token: Callable[..., str], stand_in: None, proposal: Any, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_recheck_endpoint_is_idempotent(
+    app: Flask, client: FlaskClient, make_token: Callable[..., str], stand_in: None, proposal: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
     admin = make_token("admin")
     _submit(client, admin, proposal("K1", "KESTREL"))
     _wait(app)

@@ -13,8 +13,13 @@ from feasibility.service.changes import compare_results
 
 
 def _result(verdict: str, **figures: Any) -> dict[str, Any]:
-    request = {"label": "a", "instrument": "HERON", "target": "T", "verdict": verdict,
-               "figures": {"hours_observable": 40.0, "hours_needed": 4.0, "snr_expected": 50.0, **figures}}
+    request = {
+        "label": "a",
+        "instrument": "HERON",
+        "target": "T",
+        "verdict": verdict,
+        "figures": {"hours_observable": 40.0, "hours_needed": 4.0, "snr_expected": 50.0, **figures},
+    }
     return {"proposal_id": "P", "verdict": verdict, "requests": [request]}
 
 
@@ -45,8 +50,7 @@ def test_verdict_change_and_request_added() -> None:
     after = _result("infeasible", hours_observable=0.0)
     after["requests"].append({"label": "b", "instrument": "OWL", "target": "U", "verdict": "feasible", "figures": {}})
     changes = compare_results(before, after)
-    assert [(c["label"], c["verdict_before"], c["verdict_after"]) for c in changes] == [
-        ("a", "feasible", "infeasible"), ("b", None, "feasible")]
+    assert [(c["label"], c["verdict_before"], c["verdict_after"]) for c in changes] == [("a", "feasible", "infeasible"), ("b", None, "feasible")]
 
 
 def test_figure_appearing_counts() -> None:

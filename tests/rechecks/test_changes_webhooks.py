@@ -75,8 +75,12 @@ def _portal(session: Any, url: str) -> User:
 def _finish(session: Any, run: CheckRun, verdict: str, hours: float) -> None:
     """Store a second result for ``run``'s proposal as the worker would, then record changes."""
     run.state, run.verdict, run.finished_at = "done", verdict, utcnow()
-    run.result = {"proposal_id": "H1", "verdict": verdict, "schedule_version": "2027A-2", "requests": [
-        {"label": "heron-0", "instrument": "HERON", "target": "T", "verdict": verdict, "figures": {"hours_observable": hours}}]}
+    run.result = {
+        "proposal_id": "H1",
+        "verdict": verdict,
+        "schedule_version": "2027A-2",
+        "requests": [{"label": "heron-0", "instrument": "HERON", "target": "T", "verdict": verdict, "figures": {"hours_observable": hours}}],
+    }
     session.flush()
 
 
@@ -87,12 +91,21 @@ def test_changed_verdict_is_recorded_and_notice_verifies(store: str, proposal: A
 
         first = submit(session, proposal("H1", "HERON"), portal).run
         first.state, first.verdict, first.finished_at = "done", "feasible", utcnow() - timedelta(hours=1)
-        first.result = {"proposal_id": "H1", "verdict": "feasible", "schedule_version": "2027A-1", "requests": [
-            {"label": "heron-0", "instrument": "HERON", "target": "T", "verdict": "feasible", "figures": {"hours_observable": 40.0}}]}
+        first.result = {
+            "proposal_id": "H1",
+            "verdict": "feasible",
+            "schedule_version": "2027A-1",
+            "requests": [{"label": "heron-0", "instrument": "HERON", "target": "T", "verdict": "feasible", "figures": {"hours_observable": 40.0}}],
+        }
         session.flush()
         # A re-check against a schedule without HERON nights (a new run of the same proposal version).
-        second = CheckRun(proposal_version_id=first.proposal_version_id, observatory_version_id=first.observatory_version_id,
-                          schedule_key=0, engine_version="test", reason="re-check: schedule")
+        second = CheckRun(
+            proposal_version_id=first.proposal_version_id,
+            observatory_version_id=first.observatory_version_id,
+            schedule_key=0,
+            engine_version="test",
+            reason="re-check: schedule",
+        )
         session.add(second)
         _finish(session, second, "infeasible", 0.0)
         change = record_changes(session, second)
@@ -115,8 +128,9 @@ def test_same_verdict_small_move_records_nothing(store: str, proposal: Any, done
     with session_scope() as session:
         first = done(session, proposal("K1", "KESTREL"))
         first.finished_at = utcnow() - timedelta(hours=1)
-        second = CheckRun(proposal_version_id=first.proposal_version_id, observatory_version_id=first.observatory_version_id,
-                          schedule_key=0, engine_version="test")
+        second = CheckRun(
+            proposal_version_id=first.proposal_version_id, observatory_version_id=first.observatory_version_id, schedule_key=0, engine_version="test"
+        )
         session.add(second)
         second.state, second.verdict, second.finished_at = "done", "feasible", utcnow()
         second.result = dict(first.result)
@@ -131,8 +145,14 @@ def test_failed_deliveries_back_off_then_give_up(store: str, proposal: Any, rece
         from feasibility.service.submissions import submit
 
         run = submit(session, proposal("H1", "HERON"), portal).run
-        change = VerdictChange(proposal_ref=run.proposal_version.proposal_ref, previous_run_id=run.id, run_id=run.id,
-                               verdict_before="feasible", verdict_after="marginal", details={})
+        change = VerdictChange(
+            proposal_ref=run.proposal_version.proposal_ref,
+            previous_run_id=run.id,
+            run_id=run.id,
+            verdict_before="feasible",
+            verdict_after="marginal",
+            details={},
+        )
         session.add(change)
         session.flush()
         session.add(WebhookDelivery(user_id=portal.id, change_id=change.id, body='{"x":1}'))
@@ -158,8 +178,14 @@ def test_unreachable_portal_fails_after_max_attempts(store: str, proposal: Any) 
         from feasibility.service.submissions import submit
 
         run = submit(session, proposal("H1", "HERON"), portal).run
-        change = VerdictChange(proposal_ref=run.proposal_version.proposal_ref, previous_run_id=run.id, run_id=run.id,
-                               verdict_before="feasible", verdict_after="marginal", details={})
+        change = VerdictChange(
+            proposal_ref=run.proposal_version.proposal_ref,
+            previous_run_id=run.id,
+            run_id=run.id,
+            verdict_before="feasible",
+            verdict_after="marginal",
+            details={},
+        )
         session.add(change)
         session.flush()
         session.add(WebhookDelivery(user_id=portal.id, change_id=change.id, body="{}"))
@@ -169,12 +195,15 @@ def test_unreachable_portal_fails_after_max_attempts(store: str, proposal: Any) 
         assert session.scalars(select(WebhookDelivery.state)).one() == "failed"
 
 
-@pytest.mark.parametrize(("url", "ok"), [
-    ("https://203.0.113.5/hook", True),  # an address literal: no name to resolve (TEST-NET-3, allowed here)
-    ("http://127.0.0.1:8080/x", True),
-    ("ftp://portal.example.org/", False),
-    ("https://user:pw@portal.example.org/", False),
-    ("not a url", False),
-])
+@pytest.mark.parametrize(
+    ("url", "ok"),
+    [
+        ("https://203.0.113.5/hook", True),  # an address literal: no name to resolve (TEST-NET-3, allowed here)
+        ("http://127.0.0.1:8080/x", True),
+        ("ftp://portal.example.org/", False),
+        ("https://user:pw@portal.example.org/", False),
+        ("not a url", False),
+    ],
+)
 def test_webhook_url_rules_when_private_addresses_are_allowed(url: str, ok: bool) -> None:
     assert (webhook_url_problem(url, allow_private=True) is None) is ok

@@ -23,13 +23,17 @@ from .test_admin_api import _auth, _submit, _without_heron
 
 
 def _runs_of(session: Any, proposal_id: str) -> list[CheckRun]:
-    return list(session.scalars(
-        select(CheckRun).join(ProposalVersion).join(ProposalRecord)
-        .where(ProposalRecord.proposal_id == proposal_id).order_by(CheckRun.id)))
+    return list(
+        session.scalars(select(CheckRun).join(ProposalVersion).join(ProposalRecord).where(ProposalRecord.proposal_id == proposal_id).order_by(CheckRun.id))
+    )
 
 
 def test_heron_off_makes_heron_request_infeasible(
-    app: Flask, client: FlaskClient, make_token: Callable[..., str], demo_schedule: dict[str, Any], proposal: Any,
+    app: Flask,
+    client: FlaskClient,
+    make_token: Callable[..., str],
+    demo_schedule: dict[str, Any],
+    proposal: Any,
 ) -> None:
     admin = make_token("admin")
     _submit(client, admin, proposal("ENG-H", "HERON"))

@@ -34,8 +34,9 @@ def test_nightly_task_twice_queues_once(app: Flask, demo_schedule: dict[str, Any
         done(session, proposal("H1", "HERON"))
         done(session, proposal("K1", "KESTREL"))
         edited = InstrumentSchedule.model_validate(_without_heron(demo_schedule))
-        session.add(ScheduleVersion(semester="2027A", version_label=edited.version, content_hash=document_hash(edited),
-                                    document=edited.model_dump(mode="json")))  # stored without planning, as by another tool
+        session.add(
+            ScheduleVersion(semester="2027A", version_label=edited.version, content_hash=document_hash(edited), document=edited.model_dump(mode="json"))
+        )  # stored without planning, as by another tool
     app.extensions["feasibility.dispatch"].workers = 0  # leave the runs queued: planning only
     first, second = nightly_recheck(), nightly_recheck()
     assert first["proposals"] == ["H1"] and first["by_instrument"] == {"HERON": 1}  # only the HERON proposal

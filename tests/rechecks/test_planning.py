@@ -75,8 +75,11 @@ def test_same_schedule_again_queues_nothing(three: dict[str, int], demo_schedule
 
 def test_nightly_recheck_is_idempotent(three: dict[str, int], demo_schedule: dict[str, Any]) -> None:
     with session_scope() as session:
-        session.add(ScheduleVersion(semester="2027A", version_label="2027A-2", content_hash=_hash(_heron_week_off(demo_schedule)),
-                                    document=_heron_week_off(demo_schedule)))  # stored without planning
+        session.add(
+            ScheduleVersion(
+                semester="2027A", version_label="2027A-2", content_hash=_hash(_heron_week_off(demo_schedule)), document=_heron_week_off(demo_schedule)
+            )
+        )  # stored without planning
     with session_scope() as session:
         first = plan_rechecks(session, stale_after=timedelta(days=30))
     with session_scope() as session:
@@ -87,8 +90,15 @@ def test_nightly_recheck_is_idempotent(three: dict[str, int], demo_schedule: dic
 
 def test_changed_since_ignores_older_schedule_changes(three: dict[str, int], demo_schedule: dict[str, Any]) -> None:
     with session_scope() as session:
-        session.add(ScheduleVersion(semester="2027A", version_label="2027A-2", content_hash=_hash(_heron_week_off(demo_schedule)),
-                                    document=_heron_week_off(demo_schedule), uploaded_at=utcnow() - timedelta(days=3)))
+        session.add(
+            ScheduleVersion(
+                semester="2027A",
+                version_label="2027A-2",
+                content_hash=_hash(_heron_week_off(demo_schedule)),
+                document=_heron_week_off(demo_schedule),
+                uploaded_at=utcnow() - timedelta(days=3),
+            )
+        )
     with session_scope() as session:
         assert plan_rechecks(session, changed_since=utcnow() - timedelta(days=1)).queued == 0
     with session_scope() as session:

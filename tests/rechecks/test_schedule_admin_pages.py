@@ -26,8 +26,9 @@ def stand_in(monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setattr("feasibility.service.runs.check", scheduled_engine)
 
 
-def test_preview_stores_nothing_then_confirm_stores_and_rechecks(app: Flask, client: FlaskClient, make_token: Callable[..., str],
-                                                                 stand_in: None, demo_schedule: dict[str, Any], proposal: Any) -> None:
+def test_preview_stores_nothing_then_confirm_stores_and_rechecks(
+    app: Flask, client: FlaskClient, make_token: Callable[..., str], stand_in: None, demo_schedule: dict[str, Any], proposal: Any
+) -> None:
     admin_token = make_token("admin")
     _submit(client, admin_token, proposal("ADM-H", "HERON"))
     _submit(client, admin_token, proposal("ADM-K", "KESTREL"))
@@ -45,8 +46,9 @@ def test_preview_stores_nothing_then_confirm_stores_and_rechecks(app: Flask, cli
 
     edited = _without_heron(demo_schedule)
     form = csrf_from(page.get("/admin/schedule").get_data(as_text=True))
-    preview = page.post("/admin/schedule", data={"csrf_token": form, "document": (io.BytesIO(json.dumps(edited).encode()), "s.json")},
-                        content_type="multipart/form-data")
+    preview = page.post(
+        "/admin/schedule", data={"csrf_token": form, "document": (io.BytesIO(json.dumps(edited).encode()), "s.json")}, content_type="multipart/form-data"
+    )
     html = preview.get_data(as_text=True)
     assert preview.status_code == 200
     assert re.search(r"<th scope=\"row\">HERON</th><td class=\"num\">\+0</td><td class=\"num\">−" + str(heron_open) + r"</td>", html)
@@ -58,10 +60,10 @@ def test_preview_stores_nothing_then_confirm_stores_and_rechecks(app: Flask, cli
     document = re.search(r'<textarea name="document" hidden>(.*?)</textarea>', html, re.S).group(1)
     digest = re.search(r'name="digest" value="([0-9a-f]+)"', html).group(1)
     import html as html_lib
+
     tampered = page.post("/admin/schedule", data={"csrf_token": token, "action": "confirm", "digest": digest, "document": "{}"})
     assert tampered.status_code == 400
-    done = page.post("/admin/schedule", data={"csrf_token": token, "action": "confirm", "digest": digest,
-                                              "document": html_lib.unescape(document)})
+    done = page.post("/admin/schedule", data={"csrf_token": token, "action": "confirm", "digest": digest, "document": html_lib.unescape(document)})
     assert done.status_code == 303
     _wait(app)
     after = page.get("/semesters/2027A/schedule").get_data(as_text=True)
@@ -84,6 +86,7 @@ def test_preview_of_a_bad_schedule_names_the_field(app: Flask, client: FlaskClie
     sign_in(client, "ada")
     bad = dict(demo_schedule, nights=[{"night": "2027-04-02", "instrument": "NOSUCH"}])
     token = csrf_from(client.get("/admin/schedule").get_data(as_text=True))
-    answer = client.post("/admin/schedule", data={"csrf_token": token, "document": (io.BytesIO(json.dumps(bad).encode()), "bad.json")},
-                         content_type="multipart/form-data")
+    answer = client.post(
+        "/admin/schedule", data={"csrf_token": token, "document": (io.BytesIO(json.dumps(bad).encode()), "bad.json")}, content_type="multipart/form-data"
+    )
     assert answer.status_code == 422 and "nights[0].instrument" in answer.get_data(as_text=True)

@@ -61,24 +61,37 @@ def test_swapped_instrument_affects_both_and_removed_nights_count() -> None:
 
 
 def test_added_night_and_engineering_night_instrument() -> None:
-    previous = InstrumentSchedule.model_validate({
-        "observatory": "X", "semester": "S", "nights": [
-            {"night": "2027-04-01", "status": "engineering"},
-            {"night": "2027-04-02", "instrument": "KESTREL"},
-        ]})
-    current = InstrumentSchedule.model_validate({
-        "observatory": "X", "semester": "S", "version": "2", "nights": [
-            {"night": "2027-04-01", "status": "engineering", "instrument": "OWL"},  # closed either way
-            {"night": "2027-04-02", "instrument": "KESTREL", "note": "new note"},  # note only
-            {"night": "2027-04-03", "instrument": "HERON"},
-        ]})
+    previous = InstrumentSchedule.model_validate(
+        {
+            "observatory": "X",
+            "semester": "S",
+            "nights": [
+                {"night": "2027-04-01", "status": "engineering"},
+                {"night": "2027-04-02", "instrument": "KESTREL"},
+            ],
+        }
+    )
+    current = InstrumentSchedule.model_validate(
+        {
+            "observatory": "X",
+            "semester": "S",
+            "version": "2",
+            "nights": [
+                {"night": "2027-04-01", "status": "engineering", "instrument": "OWL"},  # closed either way
+                {"night": "2027-04-02", "instrument": "KESTREL", "note": "new note"},  # note only
+                {"night": "2027-04-03", "instrument": "HERON"},
+            ],
+        }
+    )
     diff = schedule_diff(previous, current)
     assert [c.kind for c in diff.changes] == ["instrument", "added"]
     # An engineering night offers no instrument before or after: nobody is affected by it.
     assert diff.affected_instruments == {"HERON"}
     as_json = json.loads(json.dumps(diff.as_dict()))
     assert as_json["nights_added"][0] == {
-        "night": "2027-04-03", "kind": "added", "before": None,
+        "night": "2027-04-03",
+        "kind": "added",
+        "before": None,
         "after": {"instrument": "HERON", "status": "open", "note": None},
     }
     assert as_json["affected_instruments"] == {"HERON": 1}

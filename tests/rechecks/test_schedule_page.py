@@ -23,8 +23,9 @@ def stand_in(monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setattr("feasibility.service.runs.check", scheduled_engine)
 
 
-def test_schedule_page_shows_changes(app: Flask, client: FlaskClient, make_token: Callable[..., str], stand_in: None,
-                                     demo_schedule: dict[str, Any], proposal: Any) -> None:
+def test_schedule_page_shows_changes(
+    app: Flask, client: FlaskClient, make_token: Callable[..., str], stand_in: None, demo_schedule: dict[str, Any], proposal: Any
+) -> None:
     admin = make_token("admin")
     _submit(client, admin, proposal("PAGE-H", "HERON"))
     _wait(app)
@@ -38,7 +39,7 @@ def test_schedule_page_shows_changes(app: Flask, client: FlaskClient, make_token
     assert page.status_code == 200
     html = page.get_data(as_text=True)
     assert "2027A-noheron" in html and "status changed" in html
-    assert "<th scope=\"row\">HERON</th>" in html and "KESTREL</th>" not in html  # only HERON nights changed
+    assert '<th scope="row">HERON</th>' in html and "KESTREL</th>" not in html  # only HERON nights changed
     assert "PAGE-H" in html  # its verdict moved (feasible to infeasible)
     assert client.get("/semesters/2031B/schedule").status_code == 404
 

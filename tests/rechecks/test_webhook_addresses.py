@@ -33,24 +33,27 @@ from feasibility.web.auth import create_user
 from .test_changes_webhooks import SECRET, Receiver
 
 
-@pytest.mark.parametrize(("url", "words"), [
-    ("http://127.0.0.1:8080/x", "loopback"),  # RFC 1122
-    ("http://127.8.9.10/x", "loopback"),
-    ("http://localhost:8080/x", "loopback"),  # a name, resolved (to 127.0.0.1 by /etc/hosts)
-    ("http://2130706433/x", "loopback"),  # 127.0.0.1 written as one number: resolved like a name
-    ("http://[::1]/x", "loopback"),  # RFC 4291
-    ("http://[::ffff:127.0.0.1]/x", "loopback"),  # IPv4-mapped
-    ("http://0.0.0.0/x", "unspecified"),
-    ("http://169.254.169.254/latest/meta-data", "link-local"),  # RFC 3927 (where cloud metadata services answer)
-    ("http://[fe80::1]/x", "link-local"),
-    ("http://224.0.0.1/x", "multicast"),  # RFC 5771
-    ("http://240.0.0.1/x", "reserved"),  # RFC 1112
-    ("http://10.1.2.3/x", "private"),  # RFC 1918
-    ("http://172.16.5.4/x", "private"),
-    ("https://192.168.1.10/x", "private"),
-    ("http://[fc00::1]/x", "private"),  # RFC 4193
-    ("http://100.64.0.1/x", "not a public"),  # RFC 6598 shared address space
-])
+@pytest.mark.parametrize(
+    ("url", "words"),
+    [
+        ("http://127.0.0.1:8080/x", "loopback"),  # RFC 1122
+        ("http://127.8.9.10/x", "loopback"),
+        ("http://localhost:8080/x", "loopback"),  # a name, resolved (to 127.0.0.1 by /etc/hosts)
+        ("http://2130706433/x", "loopback"),  # 127.0.0.1 written as one number: resolved like a name
+        ("http://[::1]/x", "loopback"),  # RFC 4291
+        ("http://[::ffff:127.0.0.1]/x", "loopback"),  # IPv4-mapped
+        ("http://0.0.0.0/x", "unspecified"),
+        ("http://169.254.169.254/latest/meta-data", "link-local"),  # RFC 3927 (where cloud metadata services answer)
+        ("http://[fe80::1]/x", "link-local"),
+        ("http://224.0.0.1/x", "multicast"),  # RFC 5771
+        ("http://240.0.0.1/x", "reserved"),  # RFC 1112
+        ("http://10.1.2.3/x", "private"),  # RFC 1918
+        ("http://172.16.5.4/x", "private"),
+        ("https://192.168.1.10/x", "private"),
+        ("http://[fc00::1]/x", "private"),  # RFC 4193
+        ("http://100.64.0.1/x", "not a public"),  # RFC 6598 shared address space
+    ],
+)
 def test_non_public_addresses_are_refused_by_default(url: str, words: str) -> None:
     problem = webhook_url_problem(url)
     assert problem is not None and words in problem, problem
@@ -77,8 +80,7 @@ def test_setting_a_loopback_webhook_is_a_field_error_unless_allowed(app: Flask, 
     (problem,) = answer.get_json()["problems"]
     assert problem["field"] == "url" and "loopback" in problem["problem"]
     app.set_settings(WEBHOOK_ALLOW_PRIVATE=True)  # the administrator allows it (a closed site network, tests)
-    assert client.put("/api/v1/users/portal-a/webhook", json={"url": "http://127.0.0.1:9000/hook", "secret": SECRET},
-                      headers=admin).status_code == 200
+    assert client.put("/api/v1/users/portal-a/webhook", json={"url": "http://127.0.0.1:9000/hook", "secret": SECRET}, headers=admin).status_code == 200
 
 
 @pytest.fixture
@@ -98,8 +100,14 @@ def _queue_notice(url: str) -> None:
         portal = create_user(session, "portal-1", "portal")
         portal.webhook_url, portal.webhook_secret = url, SECRET
         run = submit(session, make_proposal("H1", "HERON"), portal).run
-        change = VerdictChange(proposal_ref=run.proposal_version.proposal_ref, previous_run_id=run.id, run_id=run.id,
-                               verdict_before="feasible", verdict_after="marginal", details={})
+        change = VerdictChange(
+            proposal_ref=run.proposal_version.proposal_ref,
+            previous_run_id=run.id,
+            run_id=run.id,
+            verdict_before="feasible",
+            verdict_after="marginal",
+            details={},
+        )
         session.add(change)
         session.flush()
         session.add(WebhookDelivery(user_id=portal.id, change_id=change.id, body='{"x":1}'))

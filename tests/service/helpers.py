@@ -21,7 +21,9 @@ def auth(token: str) -> dict[str, str]:
     return {"Authorization": f"Bearer {token}"}
 
 
-def proposal(proposal_id: str = "T-001", *, instrument: str = "KESTREL", ra: Any = "14:30:00", dec: Any = "-30:00:00", hours: float = 3.0, semester: str = "2027A") -> dict[str, Any]:
+def proposal(
+    proposal_id: str = "T-001", *, instrument: str = "KESTREL", ra: Any = "14:30:00", dec: Any = "-30:00:00", hours: float = 3.0, semester: str = "2027A"
+) -> dict[str, Any]:
     """An invented proposal with one request (fits the demo observatory)."""
     setup: dict[str, Any] = {"filter": "V"}
     band = "V"

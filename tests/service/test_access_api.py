@@ -51,8 +51,12 @@ def test_admin_revokes_every_token_of_a_user(client: FlaskClient, make_token: Ca
 
 def test_only_admins_take_access_away(client: FlaskClient, make_token: Callable[..., str]) -> None:
     reviewer = make_token("reviewer")
-    for method, path in (("get", "/api/v1/users/reviewer-user/tokens"), ("post", "/api/v1/tokens/1/revoke"),
-                         ("post", "/api/v1/users/reviewer-user/tokens/revoke"), ("put", "/api/v1/users/reviewer-user/password")):
+    for method, path in (
+        ("get", "/api/v1/users/reviewer-user/tokens"),
+        ("post", "/api/v1/tokens/1/revoke"),
+        ("post", "/api/v1/users/reviewer-user/tokens/revoke"),
+        ("put", "/api/v1/users/reviewer-user/password"),
+    ):
         assert getattr(client, method)(path, headers=auth(reviewer), json={"password": "long enough"}).status_code == 403, path
         assert getattr(client, method)(path, json={"password": "long enough"}).status_code == 401, path
     assert client.get("/api/v1/me", headers=auth(reviewer)).status_code == 200  # nothing was revoked

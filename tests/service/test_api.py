@@ -79,7 +79,9 @@ def test_changed_content_is_a_new_version_and_run(app: Flask, client: FlaskClien
     assert [r["id"] for r in history] == sorted((r["id"] for r in history), reverse=True) and len(history) == 2
 
 
-def test_invalid_proposal_is_422_with_field_paths_and_nothing_stored_is_lost(app: Flask, client: FlaskClient, make_token: Callable[..., str], fake_engine: FakeEngine) -> None:
+def test_invalid_proposal_is_422_with_field_paths_and_nothing_stored_is_lost(
+    app: Flask, client: FlaskClient, make_token: Callable[..., str], fake_engine: FakeEngine
+) -> None:
     token = make_token("proposer")
     client.post("/api/v1/proposals", json=proposal("P-6"), headers=auth(token))
     before = (_count(app, ProposalVersion), _count(app, CheckRun))

@@ -54,8 +54,12 @@ def test_token_revoke_by_user_ends_all_their_tokens(client: FlaskClient, runner)
 
 def test_token_revoke_bad_input_exits_2_naming_the_option(runner) -> None:  # type: ignore[no-untyped-def]
     _make_token(runner, "rita", "x")
-    for args, field in ((["--id", "999"], "--id"), (["--user", "nobody"], "--user"), ([], "--id or --user"),
-                        (["--id", "1", "--user", "rita"], "--id or --user")):
+    for args, field in (
+        (["--id", "999"], "--id"),
+        (["--user", "nobody"], "--user"),
+        ([], "--id or --user"),
+        (["--id", "1", "--user", "rita"], "--id or --user"),
+    ):
         result = runner.invoke(["token", "revoke", *args])
         assert result.exit_code == 2 and field in result.output, (args, result.output)
         assert "Traceback" not in result.output

@@ -105,13 +105,17 @@ def test_documented_query_limits_are_the_ones_enforced(client: FlaskClient, make
                 if parameter["in"] != "query" or schema.get("type") not in ("integer", "number") or "maximum" not in schema:
                     continue
                 url = path.replace("{proposal_id}", "OA-2")
-                for value, refused in ((schema["minimum"], False), (schema["maximum"], False), (schema["minimum"] - 1, True),
-                                       (schema["maximum"] + 1, True)):
+                for value, refused in ((schema["minimum"], False), (schema["maximum"], False), (schema["minimum"] - 1, True), (schema["maximum"] + 1, True)):
                     if method == "post" and not refused:
                         continue  # a valid wait would wait; only the refusals are probed
                     body = proposal_doc("OA-2") if method == "post" else None
                     status = client.open(f"{url}?{parameter['name']}={value}", method=method.upper(), json=body, headers=headers).status_code
                     assert (status == 400) is refused, (method, url, parameter["name"], value, status)
                 probed.append((url, parameter["name"]))
-    assert {("/api/v1/proposals", "page"), ("/api/v1/proposals", "per_page"), ("/api/v1/proposals", "wait"),
-            ("/api/v1/proposals/OA-2/runs", "per_page"), ("/api/v1/changes", "limit")} <= set(probed)
+    assert {
+        ("/api/v1/proposals", "page"),
+        ("/api/v1/proposals", "per_page"),
+        ("/api/v1/proposals", "wait"),
+        ("/api/v1/proposals/OA-2/runs", "per_page"),
+        ("/api/v1/changes", "limit"),
+    } <= set(probed)

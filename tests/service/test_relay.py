@@ -63,8 +63,16 @@ def _celery_app(app: Flask, prefix: str, broker: str) -> Flask:
     from feasibility.web import create_app
 
     return create_app(
-        {"TESTING": True, "SECRET_KEY": "test", "DATABASE_URL": app.config["DATABASE_URL"], "BROKER_URL": broker,
-         "QUEUE_PREFIX": prefix, "SEED_DEMO": False, "SWEEP_INTERVAL_S": 5, "QUEUED_TIMEOUT_S": 600}
+        {
+            "TESTING": True,
+            "SECRET_KEY": "test",
+            "DATABASE_URL": app.config["DATABASE_URL"],
+            "BROKER_URL": broker,
+            "QUEUE_PREFIX": prefix,
+            "SEED_DEMO": False,
+            "SWEEP_INTERVAL_S": 5,
+            "QUEUED_TIMEOUT_S": 600,
+        }
     )
 
 
@@ -96,9 +104,7 @@ def _drop_keys(prefix: str, *, keep_marker: bool) -> None:
     client.close()
 
 
-def test_a_submission_stored_while_the_broker_is_down_is_accepted_and_sent_later(
-    app: Flask, prefix: str, make_token: Callable[..., str]
-) -> None:
+def test_a_submission_stored_while_the_broker_is_down_is_accepted_and_sent_later(app: Flask, prefix: str, make_token: Callable[..., str]) -> None:
     token = make_token("proposer")
     down = _celery_app(app, prefix, f"redis://127.0.0.1:{_free_port()}/0")  # nothing listens there
     answer = down.test_client().post("/api/v1/proposals", json=proposal("OUT-1"), headers=auth(token))
@@ -150,11 +156,21 @@ def test_the_relay_takes_back_a_lapsed_claim_and_never_sends_a_failed_run(app: F
         failed = submit(session, proposal("OUT-4"), None).run.id
     now = utcnow()
     with app.app_context(), session_scope() as session:
-        session.execute(update(CheckRun).where(CheckRun.id == lapsed).values(
-            state="running", attempts=1, started_at=now - timedelta(minutes=2), lease_owner="elsewhere:7",
-            lease_expires_at=now - timedelta(seconds=1), dispatched_at=now - timedelta(minutes=2)))
-        session.execute(update(CheckRun).where(CheckRun.id == failed).values(
-            state="failed", error="the result could not be stored: DataError", dispatched_at=None))
+        session.execute(
+            update(CheckRun)
+            .where(CheckRun.id == lapsed)
+            .values(
+                state="running",
+                attempts=1,
+                started_at=now - timedelta(minutes=2),
+                lease_owner="elsewhere:7",
+                lease_expires_at=now - timedelta(seconds=1),
+                dispatched_at=now - timedelta(minutes=2),
+            )
+        )
+        session.execute(
+            update(CheckRun).where(CheckRun.id == failed).values(state="failed", error="the result could not be stored: DataError", dispatched_at=None)
+        )
     done = _relay(up)
     assert done.taken_back == [lapsed] and done.fresh == [lapsed]
     run = _run(app, lapsed)
@@ -170,9 +186,13 @@ def test_the_pool_takes_over_at_once_what_a_killed_process_left(app: Flask, fake
     child.wait()
     now = utcnow()
     with app.app_context(), session_scope() as session:  # claimed by a process of this host that is gone, lease still live
-        session.execute(update(CheckRun).where(CheckRun.id == held).values(
-            state="running", attempts=1, started_at=now, lease_owner=f"{socket.gethostname()}:{child.pid}",
-            lease_expires_at=now + timedelta(seconds=30)))
+        session.execute(
+            update(CheckRun)
+            .where(CheckRun.id == held)
+            .values(
+                state="running", attempts=1, started_at=now, lease_owner=f"{socket.gethostname()}:{child.pid}", lease_expires_at=now + timedelta(seconds=30)
+            )
+        )
     pool = app.extensions["feasibility.dispatch"]
     assert pool.sweep() == 2
     assert pool.wait_idle(10)

@@ -92,7 +92,9 @@ def _hold(run_id: int, owner: str, lease_s: float, attempts: int = 1) -> None:
         session.execute(
             update(CheckRun)
             .where(CheckRun.id == run_id)
-            .values(state="running", started_at=now - timedelta(seconds=5), attempts=attempts, lease_owner=owner, lease_expires_at=now + timedelta(seconds=lease_s))
+            .values(
+                state="running", started_at=now - timedelta(seconds=5), attempts=attempts, lease_owner=owner, lease_expires_at=now + timedelta(seconds=lease_s)
+            )
         )
 
 

@@ -64,9 +64,12 @@ def test_serve_demo_signs_a_reviewer_in_to_the_checked_demo_proposals(tmp_path: 
     process = _start_serve(tmp_path, "--demo")
     try:
         found = _read_until_serving(
-            process, {"sign_in": r"user 'demo-reviewer', password '(?P<password>[^']+)'",
-                      "proposer": r"user 'demo-proposer', password '(?P<proposer_password>[^']+)'",
-                      "admin": r"user 'demo-admin', password '(?P<admin_password>[^']+)'"}
+            process,
+            {
+                "sign_in": r"user 'demo-reviewer', password '(?P<password>[^']+)'",
+                "proposer": r"user 'demo-proposer', password '(?P<proposer_password>[^']+)'",
+                "admin": r"user 'demo-admin', password '(?P<admin_password>[^']+)'",
+            },
         )
         assert "password" in found and "proposer_password" in found and "admin_password" in found
         base_url = found["base_url"]
@@ -121,8 +124,11 @@ def test_serve_on_a_fresh_machine_checks_a_proposal_end_to_end(tmp_path: Path) -
         # Spherical astronomy (textbook): a star culminates at altitude 90° − |φ − δ|; from the demo site's
         # latitude −26.4° a star at δ = +70° culminates at −6.4°, so it is never observable.
         answer = requests.post(
-            f"{base_url}/api/v1/proposals", params={"wait": 30}, json=proposal("SERVE-1", dec="+70:00:00"),
-            headers={"Authorization": f"Bearer {token}"}, timeout=60,
+            f"{base_url}/api/v1/proposals",
+            params={"wait": 30},
+            json=proposal("SERVE-1", dec="+70:00:00"),
+            headers={"Authorization": f"Bearer {token}"},
+            timeout=60,
         )
         run = answer.json()["run"]
         assert run["state"] == "done", run

@@ -47,8 +47,14 @@ def test_the_names_in_use_keep_working() -> None:
 
 
 def test_prefixed_names_win_except_the_plain_cookie_switch() -> None:
-    both = load_settings({"DATABASE_URL": "sqlite:///a.sqlite", "FEASIBILITY_DATABASE_URL": "sqlite:///b.sqlite",
-                          "SESSION_COOKIE_SECURE": "true", "FEASIBILITY_SESSION_COOKIE_SECURE": "false"})
+    both = load_settings(
+        {
+            "DATABASE_URL": "sqlite:///a.sqlite",
+            "FEASIBILITY_DATABASE_URL": "sqlite:///b.sqlite",
+            "SESSION_COOKIE_SECURE": "true",
+            "FEASIBILITY_SESSION_COOKIE_SECURE": "false",
+        }
+    )
     assert both.database_url == "sqlite:///b.sqlite"
     assert both.session_cookie_secure is True  # the plain variable always won over the prefixed one
 

@@ -72,7 +72,8 @@ def test_a_reviewer_asks_for_a_simulation_and_gets_the_engines_result(app: Flask
         sorted((parse_document(Proposal, d) for d in documents), key=lambda p: p.id),
         load_document(Observatory, DEMO / "observatory.yaml"),
         load_document(InstrumentSchedule, DEMO / "schedule-2027A.yaml"),
-        realisations=120, seed=9,
+        realisations=120,
+        seed=9,
     )
     assert done["result"]["requests"] == direct["requests"]
     assert done["result"]["time"] == direct["time"]

@@ -51,12 +51,16 @@ def test_many_processes_and_threads_submit_and_store_without_locking_errors(tmp_
     assert len(expected) == PROCESSES * THREADS * PROPOSALS_PER_THREAD
     engine = make_engine(url)
     with engine.connect() as connection:
-        done = connection.execute(
-            select(ProposalRecord.proposal_id)
-            .join(ProposalVersion, ProposalVersion.proposal_ref == ProposalRecord.id)
-            .join(CheckRun, CheckRun.proposal_version_id == ProposalVersion.id)
-            .where(CheckRun.state == "done")
-        ).scalars().all()
+        done = (
+            connection.execute(
+                select(ProposalRecord.proposal_id)
+                .join(ProposalVersion, ProposalVersion.proposal_ref == ProposalRecord.id)
+                .join(CheckRun, CheckRun.proposal_version_id == ProposalVersion.id)
+                .where(CheckRun.state == "done")
+            )
+            .scalars()
+            .all()
+        )
         outcomes = connection.execute(select(func.count()).select_from(RequestOutcome)).scalar()
     engine.dispose()
     assert sorted(done) == expected  # every proposal stored once, every run done
@@ -79,9 +83,7 @@ def test_a_read_only_session_may_not_write(tmp_path: Path) -> None:
 def _app(url: str, *, create: bool = False) -> Flask:
     from feasibility.web import create_app
 
-    return create_app(
-        {"DATABASE_URL": url, "CREATE_TABLES": create, "SEED_DEMO": create, "BROKER_URL": None, "EMBEDDED_WORKERS": 0, "SWEEP_INTERVAL_S": 0}
-    )
+    return create_app({"DATABASE_URL": url, "CREATE_TABLES": create, "SEED_DEMO": create, "BROKER_URL": None, "EMBEDDED_WORKERS": 0, "SWEEP_INTERVAL_S": 0})
 
 
 def _hammer(job: tuple[str, int]) -> dict[str, list[str]]:

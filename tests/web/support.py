@@ -26,7 +26,15 @@ from flask.testing import FlaskClient
 from feasibility.results import ProposalResult
 
 __all__ = [
-    "GatedEngine", "add_user", "csrf_from", "demo_doc", "engine_result", "private_grid_cache", "proposal_doc", "sign_in", "store_checked",
+    "GatedEngine",
+    "add_user",
+    "csrf_from",
+    "demo_doc",
+    "engine_result",
+    "private_grid_cache",
+    "proposal_doc",
+    "sign_in",
+    "store_checked",
 ]
 
 PASSWORD = "correct horse battery staple"

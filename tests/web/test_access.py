@@ -71,8 +71,9 @@ def test_secure_cookie_from_environment(monkeypatch: Any, database_url: str) -> 
     from feasibility.web import create_app
 
     monkeypatch.setenv("SESSION_COOKIE_SECURE", "true")
-    app = create_app({"TESTING": True, "SECRET_KEY": "t", "DATABASE_URL": database_url, "CREATE_TABLES": True,
-                      "BROKER_URL": None, "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False})
+    app = create_app(
+        {"TESTING": True, "SECRET_KEY": "t", "DATABASE_URL": database_url, "CREATE_TABLES": True, "BROKER_URL": None, "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False}
+    )
     try:
         assert app.config["SESSION_COOKIE_SECURE"] is True
         response = app.test_client().get("/sign-in")

@@ -46,12 +46,18 @@ PROPOSALS = {
     "P2-1": "portal-2",  # submitted by portal 2
 }
 #: The people: name -> role.
-PEOPLE = {"rita": "reviewer", "ada": "admin", "anna": "proposer", "ben": "proposer", "portal-1": "portal", "portal-2": "portal",
-          "retired": "admin"}
+PEOPLE = {"rita": "reviewer", "ada": "admin", "anna": "proposer", "ben": "proposer", "portal-1": "portal", "portal-2": "portal", "retired": "admin"}
 #: The callers walked: name -> the user they are (None: no valid credentials).
 CALLERS = {
-    "reviewer": "rita", "admin": "ada", "proposer A": "anna", "proposer B": "ben", "portal 1": "portal-1", "portal 2": "portal-2",
-    "no token": None, "malformed token": None, "revoked token": None,
+    "reviewer": "rita",
+    "admin": "ada",
+    "proposer A": "anna",
+    "proposer B": "ben",
+    "portal 1": "portal-1",
+    "portal 2": "portal-2",
+    "no token": None,
+    "malformed token": None,
+    "revoked token": None,
 }
 
 
@@ -98,12 +104,10 @@ CASES: list[Case] = [
     _api("api.proposal_runs", "get", "/proposals/{proposal}/runs", A.SEE_PROPOSAL, 200, scoped=True),
     _api("api.get_run", "get", "/runs/{run}", A.SEE_PROPOSAL, 200, scoped=True),
     _api("review_api.get_review", "get", "/proposals/{proposal}/review", A.READ_FINAL, 200, scoped=True),
-    _api("review_api.post_assignment", "post", "/proposals/{proposal}/review/assignment", A.ASSIGN, 422, scoped=True,
-         body={"reviewer": "nobody"}),
+    _api("review_api.post_assignment", "post", "/proposals/{proposal}/review/assignment", A.ASSIGN, 422, scoped=True, body={"reviewer": "nobody"}),
     _api("review_api.post_bulk_assignment", "post", "/reviews/assignments", A.ASSIGN, 422, body={"semester": ""}),
     _api("review_api.post_note", "post", "/proposals/{proposal}/review/notes", A.WRITE_NOTE, 422, scoped=True, body={"text": ""}),
-    _api("review_api.post_decision", "post", "/proposals/{proposal}/review/decision", A.DECIDE, 422, scoped=True,
-         body={"decision": "maybe"}),
+    _api("review_api.post_decision", "post", "/proposals/{proposal}/review/decision", A.DECIDE, 422, scoped=True, body={"decision": "maybe"}),
     _api("admin_api.post_schedule", "post", "/schedules", A.MANAGE_VERSIONS, 422, body={"semester": "2027A"}),
     _api("admin_api.get_schedule", "get", "/schedules/2027A", A.READ_SCHEDULES, 200),
     _api("admin_api.list_schedule_versions", "get", "/schedules/2027A/versions", A.READ_SCHEDULES, 200),
@@ -133,15 +137,12 @@ CASES: list[Case] = [
     _page("dashboard.request_plot", "get", "/proposals/{proposal}/runs/{run}/requests/0/night.svg", A.SEE_PROPOSAL, 200, scoped=True),
     _page("dashboard.proposal_report", "get", "/proposals/{proposal}/report", A.SEE_PROPOSAL, 200, scoped=True),
     # The PDFs draw every plot: walked on proposer A's proposal and a portal's only (one seen by A, one by neither proposer).
-    _page("dashboard.proposal_report_pdf", "get", "/proposals/{proposal}/report.pdf", A.SEE_PROPOSAL, 200, scoped=True,
-          targets=("A-1", "P1-1")),
+    _page("dashboard.proposal_report_pdf", "get", "/proposals/{proposal}/report.pdf", A.SEE_PROPOSAL, 200, scoped=True, targets=("A-1", "P1-1")),
     _page("dashboard.run_page", "get", "/runs/{run}", A.SEE_PROPOSAL, 200, scoped=True),
     _page("dashboard.run_status", "get", "/runs/{run}/status.json", A.SEE_PROPOSAL, 200, scoped=True),
-    _page("dashboard.review_assign", "post", "/proposals/{proposal}/review/assignment", A.ASSIGN, 302, scoped=True,
-          body={"reviewer": "nobody"}),
+    _page("dashboard.review_assign", "post", "/proposals/{proposal}/review/assignment", A.ASSIGN, 302, scoped=True, body={"reviewer": "nobody"}),
     _page("dashboard.review_note", "post", "/proposals/{proposal}/review/notes", A.WRITE_NOTE, 302, scoped=True, body={"text": ""}),
-    _page("dashboard.review_decide", "post", "/proposals/{proposal}/review/decision", A.DECIDE, 302, scoped=True,
-          body={"decision": "maybe"}),
+    _page("dashboard.review_decide", "post", "/proposals/{proposal}/review/decision", A.DECIDE, 302, scoped=True, body={"decision": "maybe"}),
     _page("dashboard.upload", "get", "/upload", A.SUBMIT, 200),
     # Identical content again: the existing run's page for whoever may add to the proposal; others are refused (403).
     _page("dashboard.upload", "post", "/upload", A.SUBMIT, 303, scoped=True, hidden=403, body="document"),
@@ -206,8 +207,16 @@ def world(app: Flask, engine: GatedEngine) -> dict[str, Any]:
         simulation = ask_for_simulation(session, "2027A", SimulationSettings(), users["rita"].id).id
         for pid, run_id in runs.items():
             record = session.scalars(select(ProposalRecord).where(ProposalRecord.proposal_id == pid)).one()
-            session.add(VerdictChange(proposal_ref=record.id, previous_run_id=run_id, run_id=run_id, verdict_before="feasible",
-                                      verdict_after="infeasible", details={"reason": "test"}))
+            session.add(
+                VerdictChange(
+                    proposal_ref=record.id,
+                    previous_run_id=run_id,
+                    run_id=run_id,
+                    verdict_before="feasible",
+                    verdict_after="infeasible",
+                    details={"reason": "test"},
+                )
+            )
     return {"documents": documents, "runs": runs, "tokens": tokens, "revoked_id": revoked_id, "simulation": simulation}
 
 
@@ -216,8 +225,7 @@ def _calls(case: Case, world: dict[str, Any]) -> list[tuple[str | None, str, Any
     targets: list[str | None] = list(case.targets) if case.scoped else [None]
     calls = []
     for proposal in targets:
-        path = case.path.format(proposal=proposal, run=world["runs"].get(proposal or "", 0), simulation=world["simulation"],
-                                token=world["revoked_id"])
+        path = case.path.format(proposal=proposal, run=world["runs"].get(proposal or "", 0), simulation=world["simulation"], token=world["revoked_id"])
         body = world["documents"][proposal] if case.body == "document" and proposal else case.body
         calls.append((proposal, path, body))
     return calls
@@ -388,4 +396,3 @@ def test_notices_go_to_those_the_proposal_belongs_to(app: Flask, world: dict[str
         finally:
             session.rollback()  # nothing stored, nothing sent
             session.close()
-

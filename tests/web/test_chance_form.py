@@ -117,7 +117,7 @@ def test_bad_input_is_shown_back_naming_the_field(app: Flask, fields: dict[str, 
     page = html.unescape(response.get_data(as_text=True))
     assert response.status_code == 422
     assert "The simulation was not asked for" in page
-    assert re.search(rf"<code>{field}</code></th><td>[^<]*{re.escape(words)}", page), page[page.find("problems"):][:800]
+    assert re.search(rf"<code>{field}</code></th><td>[^<]*{re.escape(words)}", page), page[page.find("problems") :][:800]
     for value in fields.values():
         assert value in page  # what was sent is shown back to correct
     assert _simulations(app) == []

@@ -31,8 +31,7 @@ def test_filter_by_verdict_instrument_and_check(client: FlaskClient, semester: d
     assert _ids(client.get("/proposals?semester=2027A&instrument=OWL").get_data(as_text=True)) == ["SQ-2027A-005"]
     # "Check with a problem": the proposals whose latest result has a finding of that check that is not feasible.
     for check in CHECKS:
-        with_problem = sorted(p for p, r in expected.items() if any(f.check == check and f.level.value != "feasible"
-                                                                    for q in r.requests for f in q.findings))
+        with_problem = sorted(p for p, r in expected.items() if any(f.check == check and f.level.value != "feasible" for q in r.requests for f in q.findings))
         assert _ids(client.get(f"/proposals?semester=2027A&check={check}").get_data(as_text=True)) == with_problem, check
     # Demo 002 fails on sensitivity (its header); 005 has a marginal sensitivity finding (its H request, its header).
     assert _ids(client.get("/proposals?semester=2027A&check=sensitivity").get_data(as_text=True)) == ["SQ-2027A-002", "SQ-2027A-005"]

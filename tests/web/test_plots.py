@@ -109,6 +109,7 @@ def test_plots_can_be_drawn_from_several_threads(real_series: dict[str, Any]) ->
 
 # --- the redesigned request plots, read from the figure objects (figures_kept) -------------------------------------
 
+
 def _kept_figure(draw: Any) -> Any:
     with plots.figures_kept() as figures:
         assert draw() == ""

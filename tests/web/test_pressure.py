@@ -20,8 +20,7 @@ _WORST = {"infeasible": 0, "unchecked": 1, "marginal": 2}
 
 def _first_failing(result: Any) -> str | None:
     """The check of the worst finding that is not feasible, first in the engine's order among equals."""
-    found = [(_WORST[f.level.value], i, j, f.check) for i, q in enumerate(result.requests) for j, f in enumerate(q.findings)
-             if f.level.value != "feasible"]
+    found = [(_WORST[f.level.value], i, j, f.check) for i, q in enumerate(result.requests) for j, f in enumerate(q.findings) if f.level.value != "feasible"]
     return min(found)[3] if found else None
 
 
@@ -45,11 +44,11 @@ def test_list_shows_and_sorts_first_failing_check_and_needed_ratio(client: Flask
         listed = client.get(f"/proposals.json?semester=2027A&sort=pressure&dir={direction}").get_json()["proposals"]
         known = [row["hours_needed_over_requested"] for row in listed if row["hours_needed_over_requested"] is not None]
         assert known == sorted(known, reverse=direction == "desc")
-        assert all(row["hours_needed_over_requested"] is None for row in listed[len(known):])
+        assert all(row["hours_needed_over_requested"] is None for row in listed[len(known) :])
         checks = client.get(f"/proposals.json?semester=2027A&sort=failing&dir={direction}").get_json()["proposals"]
         named = [row["first_failing_check"] for row in checks if row["first_failing_check"]]
         assert named == sorted(named, reverse=direction == "desc")
-        assert all(row["first_failing_check"] is None for row in checks[len(named):])
+        assert all(row["first_failing_check"] is None for row in checks[len(named) :])
     page = client.get("/proposals?semester=2027A&sort=failing").get_data(as_text=True)
     assert "First failing check" in page and "Needed ÷ requested" in page
     table = list(csv.DictReader(io.StringIO(client.get("/proposals.csv?semester=2027A").get_data(as_text=True))))

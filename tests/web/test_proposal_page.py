@@ -127,7 +127,7 @@ def test_run_history_says_what_changed(app: Flask, client: FlaskClient, semester
     second = store_checked(app, document, "pablo")
     sign_in(client, "rita")
     html = client.get("/proposals/SQ-2027A-001").get_data(as_text=True)
-    assert f"#{second} <span class=\"shown\">(shown)</span>" in html  # the latest finished run is shown
+    assert f'#{second} <span class="shown">(shown)</span>' in html  # the latest finished run is shown
     assert "<strong>verdict</strong>: feasible → marginal" in html
     assert "<strong>proposal</strong>: version 1 → version 2" in html
     assert "<strong>request halo-V: verdict</strong>: feasible → marginal" in html
@@ -137,7 +137,7 @@ def test_run_history_says_what_changed(app: Flask, client: FlaskClient, semester
     # The earlier run can still be opened.
     first = semester["runs"]["SQ-2027A-001"]
     older = client.get(f"/proposals/SQ-2027A-001?run={first}").get_data(as_text=True)
-    assert f"#{first} <span class=\"shown\">(shown)</span>" in older
+    assert f'#{first} <span class="shown">(shown)</span>' in older
     assert client.get("/proposals/SQ-2027A-001?run=999999").status_code == 404
 
 

@@ -129,10 +129,21 @@ def test_limits_are_shared_through_redis(app: Flask, make_token: Any) -> None:
         service_unavailable(f"Redis at {REDIS_URL}", exc)
     from feasibility.web import create_app
 
-    settings = {"RATELIMIT_STORAGE_URI": REDIS_URL, "RATELIMIT_KEY_PREFIX": f"test-{uuid.uuid4().hex}",
-                "RATE_LIMIT_SUBMISSIONS_PER_TOKEN": "2 per minute"}
-    apps = [create_app({"TESTING": True, "SECRET_KEY": "test", "DATABASE_URL": app.config["DATABASE_URL"], "BROKER_URL": None,
-                        "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False, **settings}) for _ in range(2)]
+    settings = {"RATELIMIT_STORAGE_URI": REDIS_URL, "RATELIMIT_KEY_PREFIX": f"test-{uuid.uuid4().hex}", "RATE_LIMIT_SUBMISSIONS_PER_TOKEN": "2 per minute"}
+    apps = [
+        create_app(
+            {
+                "TESTING": True,
+                "SECRET_KEY": "test",
+                "DATABASE_URL": app.config["DATABASE_URL"],
+                "BROKER_URL": None,
+                "SWEEP_INTERVAL_S": 0,
+                "SEED_DEMO": False,
+                **settings,
+            }
+        )
+        for _ in range(2)
+    ]
     try:
         auth = {"Authorization": f"Bearer {make_token('proposer', 'pablo')}"}
         statuses = [apps[k % 2].test_client().post("/api/v1/proposals", json={}, headers=auth).status_code for k in range(3)]
@@ -154,9 +165,18 @@ def test_limits_hold_in_memory_while_redis_is_away(app: Flask, make_token: Any) 
     """A limiter store that cannot be reached (nothing listens on port 1) neither fails a submission nor lifts the limit."""
     from feasibility.web import create_app
 
-    other = create_app({"TESTING": True, "SECRET_KEY": "test", "DATABASE_URL": app.config["DATABASE_URL"], "BROKER_URL": None,
-                        "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False, "RATELIMIT_STORAGE_URI": "redis://127.0.0.1:1/0",
-                        "RATE_LIMIT_SUBMISSIONS_PER_TOKEN": "2 per minute"})
+    other = create_app(
+        {
+            "TESTING": True,
+            "SECRET_KEY": "test",
+            "DATABASE_URL": app.config["DATABASE_URL"],
+            "BROKER_URL": None,
+            "SWEEP_INTERVAL_S": 0,
+            "SEED_DEMO": False,
+            "RATELIMIT_STORAGE_URI": "redis://127.0.0.1:1/0",
+            "RATE_LIMIT_SUBMISSIONS_PER_TOKEN": "2 per minute",
+        }
+    )
     try:
         auth = {"Authorization": f"Bearer {make_token('proposer', 'pablo')}"}
         client = other.test_client()

@@ -34,8 +34,10 @@ def _auth(token: str) -> dict[str, str]:
 @pytest.fixture
 def tokens(make_token: Callable[..., str], semester: dict[str, Any]) -> dict[str, str]:
     """A token per user of the checked semester, and one portal's."""
-    return {name: make_token(role, name) for name, role in
-            (("rita", "reviewer"), ("ada", "admin"), ("pablo", "proposer"), ("petra", "proposer"), ("gate", "portal"))}
+    return {
+        name: make_token(role, name)
+        for name, role in (("rita", "reviewer"), ("ada", "admin"), ("pablo", "proposer"), ("petra", "proposer"), ("gate", "portal"))
+    }
 
 
 def _review(client: FlaskClient, token: str, proposal_id: str = "SQ-2027A-001") -> Any:
@@ -49,17 +51,20 @@ def test_assign_note_confirm_and_override_keep_both_verdicts(client: FlaskClient
     assert answer.status_code == 200 and answer.json["reviewer"] == "rita"
 
     label = expected["SQ-2027A-001"].requests[1].label
-    answer = client.post("/api/v1/proposals/SQ-2027A-001/review/notes", json={"text": "Check the guide star.", "request": label},
-                         headers=_auth(tokens["rita"]))
+    answer = client.post("/api/v1/proposals/SQ-2027A-001/review/notes", json={"text": "Check the guide star.", "request": label}, headers=_auth(tokens["rita"]))
     assert answer.status_code == 201 and answer.json["notes"] == [
-        {"request": label, "text": "Check the guide star.", "by": "rita", "at": answer.json["notes"][0]["at"]}]
+        {"request": label, "text": "Check the guide star.", "by": "rita", "at": answer.json["notes"][0]["at"]}
+    ]
 
     answer = client.post("/api/v1/proposals/SQ-2027A-001/review/decision", json={"decision": "confirm"}, headers=_auth(tokens["rita"]))
     assert answer.status_code == 201
     assert (answer.json["engine_verdict"], answer.json["final_verdict"], answer.json["decided_by"]) == ("feasible", "feasible", "engine")
 
-    answer = client.post("/api/v1/proposals/SQ-2027A-001/review/decision",
-                         json={"decision": "override", "verdict": "marginal", "reason": "The guide star is faint."}, headers=_auth(tokens["rita"]))
+    answer = client.post(
+        "/api/v1/proposals/SQ-2027A-001/review/decision",
+        json={"decision": "override", "verdict": "marginal", "reason": "The guide star is faint."},
+        headers=_auth(tokens["rita"]),
+    )
     assert answer.status_code == 201, answer.json
     body = answer.json
     assert body["engine_verdict"] == "feasible" and body["final_verdict"] == "marginal"  # the engine's stays beside the reviewer's
@@ -87,8 +92,7 @@ def test_override_needs_a_reason_and_bad_input_names_each_field(client: FlaskCli
 
 
 def test_bulk_assignment_by_instrument(client: FlaskClient, tokens: dict[str, str]) -> None:
-    answer = client.post("/api/v1/reviews/assignments", json={"semester": "2027A", "instrument": "KESTREL", "reviewer": "rita"},
-                         headers=_auth(tokens["ada"]))
+    answer = client.post("/api/v1/reviews/assignments", json={"semester": "2027A", "instrument": "KESTREL", "reviewer": "rita"}, headers=_auth(tokens["ada"]))
     assert answer.status_code == 200, answer.json
     assert answer.json["assigned"] == ["M-1", "SQ-2027A-001"]  # the KESTREL proposals of the checked semester (conftest)
     assert _review(client, tokens["rita"], "M-1").json["reviewer"] == "rita"
@@ -130,8 +134,9 @@ def test_every_role_against_every_action(client: FlaskClient, tokens: dict[str, 
 def test_proposers_see_the_final_verdict_and_notes_only_when_the_observatory_chooses(app: Flask, client: FlaskClient, tokens: dict[str, str]) -> None:
     rita = _auth(tokens["rita"])
     client.post("/api/v1/proposals/SQ-2027A-001/review/notes", json={"text": "Fine by me."}, headers=rita)
-    client.post("/api/v1/proposals/SQ-2027A-001/review/decision", json={"decision": "override", "verdict": "infeasible", "reason": "Dome repair."},
-                headers=rita)
+    client.post(
+        "/api/v1/proposals/SQ-2027A-001/review/decision", json={"decision": "override", "verdict": "infeasible", "reason": "Dome repair."}, headers=rita
+    )
     answer = _review(client, tokens["pablo"])
     assert answer.json == {"proposal_id": "SQ-2027A-001", "verdict": "infeasible", "reviewed": True}
     app.config["REVIEW_NOTES_TO_PROPOSERS"] = True
@@ -140,17 +145,18 @@ def test_proposers_see_the_final_verdict_and_notes_only_when_the_observatory_cho
     assert "Dome repair." not in json.dumps(answer.json)  # the decision's reason is the committee's
 
 
-def test_a_recheck_that_changes_the_engine_verdict_flags_the_override(
-    app: Flask, client: FlaskClient, tokens: dict[str, str], engine: GatedEngine
-) -> None:
+def test_a_recheck_that_changes_the_engine_verdict_flags_the_override(app: Flask, client: FlaskClient, tokens: dict[str, str], engine: GatedEngine) -> None:
     document = proposal_doc("H-1", instrument="HERON", ra="15:00:00", dec="-40:00:00", hours=2.0)
     document["requests"][0]["brightness"]["magnitude"] = 13.0
     store_checked(app, document, "pablo")
     rita = _auth(tokens["rita"])
     before = _review(client, tokens["rita"], "H-1").json["engine_verdict"]
     assert before != "infeasible"
-    answer = client.post("/api/v1/proposals/H-1/review/decision", json={"decision": "override", "verdict": "marginal" if before == "feasible"
-                         else "feasible", "reason": "Seen by the committee."}, headers=rita)
+    answer = client.post(
+        "/api/v1/proposals/H-1/review/decision",
+        json={"decision": "override", "verdict": "marginal" if before == "feasible" else "feasible", "reason": "Seen by the committee."},
+        headers=rita,
+    )
     assert answer.status_code == 201, answer.json
     overridden = answer.json["final_verdict"]
 
@@ -175,8 +181,12 @@ def test_the_audit_trail_cannot_be_edited(app: Flask, client: FlaskClient, token
     client.post("/api/v1/proposals/SQ-2027A-001/review/notes", json={"text": "First."}, headers=rita)
     client.post("/api/v1/proposals/SQ-2027A-001/review/decision", json={"decision": "confirm"}, headers=rita)
     for method in ("put", "patch", "delete"):  # no path changes or deletes what was written
-        for path in ("/api/v1/proposals/SQ-2027A-001/review", "/api/v1/proposals/SQ-2027A-001/review/notes",
-                     "/api/v1/proposals/SQ-2027A-001/review/decision", "/api/v1/proposals/SQ-2027A-001/review/assignment"):
+        for path in (
+            "/api/v1/proposals/SQ-2027A-001/review",
+            "/api/v1/proposals/SQ-2027A-001/review/notes",
+            "/api/v1/proposals/SQ-2027A-001/review/decision",
+            "/api/v1/proposals/SQ-2027A-001/review/assignment",
+        ):
             assert getattr(client, method)(path, json={"text": "changed"}, headers=_auth(tokens["ada"])).status_code == 405, (method, path)
     with app.app_context():
         for model in (ReviewAssignment, ReviewNote, ReviewDecision):

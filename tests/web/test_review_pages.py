@@ -58,8 +58,7 @@ def test_proposer_sees_the_verdict_that_stands_and_no_forms(app: Flask, client: 
     assert "infeasible" in stands and "Secret reason" not in page and "Visible note" not in page and "Record decision" not in page
     app.config["REVIEW_NOTES_TO_PROPOSERS"] = True
     assert "Visible note" in client.get("/proposals/SQ-2027A-001").get_data(as_text=True)
-    answer = client.post("/proposals/SQ-2027A-001/review/decision",
-                         data={"decision": "confirm", "csrf_token": csrf_from(page)})
+    answer = client.post("/proposals/SQ-2027A-001/review/decision", data={"decision": "confirm", "csrf_token": csrf_from(page)})
     assert answer.status_code == 403
     assert client.get("/semesters/2027A/packet.pdf").status_code == 403  # the packet is the committee's
     assert client.get("/proposals/SQ-2027A-005/report.pdf").status_code == 404  # petra's

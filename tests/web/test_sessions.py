@@ -114,8 +114,17 @@ def test_password_rules_apply_to_every_way_of_setting_one(app: Flask, people: di
 def _app(tmp_path: Path, **config: Any) -> Flask:
     from feasibility.web import create_app
 
-    return create_app({"SECRET_KEY": "t", "DATABASE_URL": f"sqlite:///{tmp_path / 's.sqlite'}", "CREATE_TABLES": True,
-                       "BROKER_URL": None, "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False, **config})
+    return create_app(
+        {
+            "SECRET_KEY": "t",
+            "DATABASE_URL": f"sqlite:///{tmp_path / 's.sqlite'}",
+            "CREATE_TABLES": True,
+            "BROKER_URL": None,
+            "SWEEP_INTERVAL_S": 0,
+            "SEED_DEMO": False,
+            **config,
+        }
+    )
 
 
 def _close(app: Flask) -> None:

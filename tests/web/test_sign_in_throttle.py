@@ -48,8 +48,9 @@ def test_throttle_holds_across_web_processes(app: Flask, people: dict[str, int])
     """Two apps on one store stand for two gunicorn workers: failures seen by one hold up the other."""
     from feasibility.web import create_app
 
-    other = create_app({"TESTING": True, "SECRET_KEY": "test", "DATABASE_URL": app.config["DATABASE_URL"], "BROKER_URL": None,
-                        "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False})
+    other = create_app(
+        {"TESTING": True, "SECRET_KEY": "test", "DATABASE_URL": app.config["DATABASE_URL"], "BROKER_URL": None, "SWEEP_INTERVAL_S": 0, "SEED_DEMO": False}
+    )
     try:
         first, second = app.test_client(), other.test_client()
         for k in range(5):

@@ -60,9 +60,7 @@ def _out_of_order(app: Flask) -> dict[str, Any]:
     return {"first": first, "recheck": recheck_id, "new": new, "old_verdict": old_verdict, "new_verdict": new_verdict}
 
 
-def test_every_reader_gives_the_newest_versions_verdict(
-    app: Flask, client: FlaskClient, people: dict[str, int], engine: GatedEngine, make_token: Any
-) -> None:
+def test_every_reader_gives_the_newest_versions_verdict(app: Flask, client: FlaskClient, people: dict[str, int], engine: GatedEngine, make_token: Any) -> None:
     s = _out_of_order(app)
     new, verdict = s["new"], s["new_verdict"]
 
@@ -89,7 +87,7 @@ def test_every_reader_gives_the_newest_versions_verdict(
     assert exported[0]["previous_verdict"] == s["old_verdict"] and exported[0]["verdict_changed"] is True
 
     # The proposal page shows the standing run; the printable report too.
-    assert f"#{new} <span class=\"shown\">(shown)</span>" in client.get(f"/proposals/{PROPOSAL}").get_data(as_text=True)
+    assert f'#{new} <span class="shown">(shown)</span>' in client.get(f"/proposals/{PROPOSAL}").get_data(as_text=True)
     assert f"Check run #{new}," in client.get(f"/proposals/{PROPOSAL}/report").get_data(as_text=True)
 
     # The overview counts it under the standing verdict; the review module reads the same run.
@@ -107,9 +105,7 @@ def test_every_reader_gives_the_newest_versions_verdict(
         assert review_of(session, record).engine_verdict == verdict
 
 
-def test_a_late_recheck_of_an_old_version_records_no_change(
-    app: Flask, people: dict[str, int], engine: GatedEngine
-) -> None:
+def test_a_late_recheck_of_an_old_version_records_no_change(app: Flask, people: dict[str, int], engine: GatedEngine) -> None:
     from sqlalchemy import select
 
     from feasibility.store.db import session_scope

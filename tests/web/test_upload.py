@@ -58,8 +58,9 @@ def test_malformed_file_gets_the_same_problems_as_the_api(app: Flask, client: Fl
     document["requests"][0]["target"]["dec"] = "+95:00:00"
     del document["requests"][0]["hours_requested"]
     text = json.dumps(document).encode()
-    api = client.post("/api/v1/proposals", data=text, headers={"Authorization": f"Bearer {make_token('proposer', 'api-proposer')}",
-                                                                 "Content-Type": "application/json"})
+    api = client.post(
+        "/api/v1/proposals", data=text, headers={"Authorization": f"Bearer {make_token('proposer', 'api-proposer')}", "Content-Type": "application/json"}
+    )
     assert api.status_code == 422
     expected = [(p["field"], p["problem"]) for p in api.get_json()["problems"]]
     assert ("requests[0].hours_requested", "is required") in expected

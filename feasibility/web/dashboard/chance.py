@@ -48,12 +48,7 @@ def latest_simulation(semester: str) -> Simulation | None:
 
 
 def _finished(semester: str, count: int) -> list[Simulation]:
-    query = (
-        select(Simulation)
-        .where(Simulation.semester == semester, Simulation.state == "done")
-        .order_by(Simulation.id.desc())
-        .limit(count)
-    )
+    query = select(Simulation).where(Simulation.semester == semester, Simulation.state == "done").order_by(Simulation.id.desc()).limit(count)
     return list(db().scalars(query))
 
 

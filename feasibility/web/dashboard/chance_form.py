@@ -26,7 +26,6 @@ from feasibility.web.dashboard import bp
 __all__ = ["read_simulation_form"]
 
 
-
 @bp.post("/semesters/<semester>/simulations")
 @sign_in_required(access.ASK_SIMULATION)
 def ask_simulation(semester: str) -> Any:

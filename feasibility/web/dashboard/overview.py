@@ -121,11 +121,7 @@ def lunar_time(constraints: Any) -> str:
 def semester_overview(session: Session, semester: str) -> Overview:
     """Sum the semester's standing verdicts and request outcomes, and set them against what the sky offers."""
     standing = select(standing_run_id().label("run_id")).select_from(ProposalRecord).where(ProposalRecord.semester == semester).subquery("standing_ids")
-    in_semester = (
-        select(CheckRun.id.label("run_id"), CheckRun.verdict)
-        .join(standing, CheckRun.id == standing.c.run_id)
-        .subquery("semester_runs")
-    )
+    in_semester = select(CheckRun.id.label("run_id"), CheckRun.verdict).join(standing, CheckRun.id == standing.c.run_id).subquery("semester_runs")
     counts = {level: 0 for level in LEVELS}
     for verdict, number in session.execute(select(in_semester.c.verdict, func.count()).group_by(in_semester.c.verdict)):
         if verdict in counts:
@@ -204,8 +200,9 @@ def _lunar_lines(session: Session, in_semester: Any, offered: dict[str, dict[str
     counted = {
         (run_id, label): instrument
         for run_id, label, instrument in session.execute(
-            select(RequestOutcome.run_id, RequestOutcome.label, RequestOutcome.instrument)
-            .where(RequestOutcome.run_id.in_(select(in_semester.c.run_id)), RequestOutcome.verdict.in_(COUNTED_VERDICTS))
+            select(RequestOutcome.run_id, RequestOutcome.label, RequestOutcome.instrument).where(
+                RequestOutcome.run_id.in_(select(in_semester.c.run_id)), RequestOutcome.verdict.in_(COUNTED_VERDICTS)
+            )
         )
     }
     demand: dict[tuple[str, str], list[float]] = {}
@@ -237,15 +234,17 @@ def _lunar_lines(session: Session, in_semester: Any, offered: dict[str, dict[str
         supply = next((value for key, value in offered.items() if key.upper() == upper), None)
         for time in LUNAR_TIMES:
             bins = demand.get((upper, time), [0.0] * 24)
-            lines.append(LunarLine(
-                instrument=name,
-                lunar_time=time,
-                requests=number.get((upper, time), 0),
-                hours_requested=sum(bins),
-                hours_offered=supply[time]["hours"] if supply else None,
-                ra_requested=bins,
-                ra_offered=supply[time]["ra"] if supply else None,
-            ))
+            lines.append(
+                LunarLine(
+                    instrument=name,
+                    lunar_time=time,
+                    requests=number.get((upper, time), 0),
+                    hours_requested=sum(bins),
+                    hours_offered=supply[time]["hours"] if supply else None,
+                    ra_requested=bins,
+                    ra_offered=supply[time]["ra"] if supply else None,
+                )
+            )
     return lines
 
 

@@ -82,9 +82,16 @@ def semester_pdf(session: Session, user: User, query: ListQuery) -> bytes:
     again = [row.proposal_id for row in rows if reviews[row.proposal_id].to_review_again]
     writer.line(f"To review again: {', '.join(again) if again else 'none'}", space_after=0.8)
     table = [
-        [row.proposal_id, row.title, row.pi_name, hours(row.hours_requested), row.verdict or "—",
-         reviews[row.proposal_id].final_verdict or "—", reviews[row.proposal_id].reviewer or "—",
-         "AGAIN" if reviews[row.proposal_id].to_review_again else ""]
+        [
+            row.proposal_id,
+            row.title,
+            row.pi_name,
+            hours(row.hours_requested),
+            row.verdict or "—",
+            reviews[row.proposal_id].final_verdict or "—",
+            reviews[row.proposal_id].reviewer or "—",
+            "AGAIN" if reviews[row.proposal_id].to_review_again else "",
+        ]
         for row in rows
     ]
     for text in table_lines(["Proposal", "Title", "PI", "Hours", "Engine", "Stands", "Reviewer", ""], table, [14, 22, 14, 6, 10, 10, 9, 5]):
@@ -107,17 +114,25 @@ def _write_proposal(writer: PacketWriter, session: Session, record: ProposalReco
     run: CheckRun | None = standing_run(session, record)
     state = state or review.review_of(session, record)
     writer.heading(f"{record.proposal_id} — {version.title}", size=13)
-    writer.line(f"PI {version.pi_name} · semester {record.semester} · instruments {version.instruments.replace(',', ', ')} · "
-                f"{hours(version.hours_requested)} h requested")
+    writer.line(
+        f"PI {version.pi_name} · semester {record.semester} · instruments {version.instruments.replace(',', ', ')} · "
+        f"{hours(version.hours_requested)} h requested"
+    )
     if run is None:
         writer.line("No finished check run yet.")
     else:
         result = run.result or {}
-        writer.line(f"Check run #{run.id}, {when(run.finished_at)}; observatory {result.get('observatory_version') or run.observatory_version_id}, "
-                    f"schedule {result.get('schedule_version') or 'none'}, engine {run.engine_version}", size=8, colour="#444444")
+        writer.line(
+            f"Check run #{run.id}, {when(run.finished_at)}; observatory {result.get('observatory_version') or run.observatory_version_id}, "
+            f"schedule {result.get('schedule_version') or 'none'}, engine {run.engine_version}",
+            size=8,
+            colour="#444444",
+        )
     writer.gap()
-    writer.line(f"Engine's verdict: {state.engine_verdict or 'none'}" + (f" — {LEVEL_WORDS.get(state.engine_verdict, '')}" if state.engine_verdict else ""),
-                weight="bold")
+    writer.line(
+        f"Engine's verdict: {state.engine_verdict or 'none'}" + (f" — {LEVEL_WORDS.get(state.engine_verdict, '')}" if state.engine_verdict else ""),
+        weight="bold",
+    )
     if access.may(user, access.READ_REVIEW):
         decision = state.decision
         if decision is None:
@@ -129,8 +144,11 @@ def _write_proposal(writer: PacketWriter, session: Session, record: ProposalReco
                 writer.line(f"Reason: {decision.reason}", indent=0.02)
         writer.line(f"Verdict that stands: {state.final_verdict or 'none'} ({state.decided_by}) · technical reviewer: {state.reviewer or 'not assigned'}")
         if state.to_review_again:
-            writer.line(f"TO REVIEW AGAIN: decided when the engine said {decision.engine_verdict if decision else '?'}; the engine now says "
-                        f"{state.engine_verdict}.", weight="bold", colour="#a00000")
+            writer.line(
+                f"TO REVIEW AGAIN: decided when the engine said {decision.engine_verdict if decision else '?'}; the engine now says {state.engine_verdict}.",
+                weight="bold",
+                colour="#a00000",
+            )
         notes = state.notes
         for note in notes:
             where = f"request {note.request_label}" if note.request_label else "whole proposal"

@@ -71,8 +71,17 @@ class PacketWriter:
     def heading(self, text: str, size: float = 15) -> None:
         self.line(text, size=size, weight="bold", space_after=0.3)
 
-    def line(self, text: str, *, size: float = 9.5, weight: str = "normal", indent: float = 0.0, mono: bool = False,
-             colour: str = "#111111", space_after: float = 0.0) -> None:
+    def line(
+        self,
+        text: str,
+        *,
+        size: float = 9.5,
+        weight: str = "normal",
+        indent: float = 0.0,
+        mono: bool = False,
+        colour: str = "#111111",
+        space_after: float = 0.0,
+    ) -> None:
         """One paragraph, wrapped to the page's width (``indent`` as a fraction of it; ``space_after`` in lines)."""
         font = "packet-mono" if mono else ("packet-sans-bold" if weight == "bold" else "packet-sans")
         left = A4[0] * (_MARGIN_X + indent)
@@ -120,6 +129,7 @@ class PacketWriter:
 
 def table_lines(header: list[str], rows: list[list[Any]], widths: list[int]) -> list[str]:
     """Fixed-width lines of a small table (for a monospace font)."""
+
     def cells(values: list[Any]) -> str:
         return "  ".join(_cut(str(v), w).ljust(w) for v, w in zip(values, widths)).rstrip()
 

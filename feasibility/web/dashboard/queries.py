@@ -189,9 +189,7 @@ def semesters(session: Session, user: User) -> list[str]:
 
 _version = aliased(ProposalVersion, name="shown_version")
 _latest_version = (
-    select(ProposalVersion.proposal_ref, func.max(ProposalVersion.id).label("version_id"))
-    .group_by(ProposalVersion.proposal_ref)
-    .subquery("latest_versions")
+    select(ProposalVersion.proposal_ref, func.max(ProposalVersion.id).label("version_id")).group_by(ProposalVersion.proposal_ref).subquery("latest_versions")
 )
 
 
@@ -231,7 +229,10 @@ _failing_check = (
 _needed_ratio = (
     select(
         case(
-            (func.count(RequestOutcome.hours_needed) == func.count(), func.sum(RequestOutcome.hours_needed) / func.nullif(func.sum(RequestOutcome.hours_requested), 0.0)),
+            (
+                func.count(RequestOutcome.hours_needed) == func.count(),
+                func.sum(RequestOutcome.hours_needed) / func.nullif(func.sum(RequestOutcome.hours_requested), 0.0),
+            ),
             else_=None,
         )
     )
@@ -300,8 +301,7 @@ def _filtered(user: User, query: ListQuery, statement: Select[Any]) -> Select[An
         statement = statement.where(func.lower(listed).like(f"%,{_like_escape(query.instrument.lower())},%", escape="\\"))
     if query.check:
         statement = statement.where(
-            exists()
-            .where(
+            exists().where(
                 RequestOutcome.run_id == _standing.id,
                 FindingRow.outcome_id == RequestOutcome.id,
                 unindexed(FindingRow.check) == query.check,

@@ -52,8 +52,7 @@ def schedule_upload() -> Any:
         preview = _dry_run(text, user.id)
     except DocumentError as error:
         return render_template("dashboard/schedule_upload.html", preview=None, problems=error, filename=upload_file.filename), 422
-    return render_template("dashboard/schedule_upload.html", preview=preview, problems=None, document=text,
-                           digest=_digest(text), filename=upload_file.filename)
+    return render_template("dashboard/schedule_upload.html", preview=preview, problems=None, document=text, digest=_digest(text), filename=upload_file.filename)
 
 
 @bp.get("/semesters/<semester>/calendar")
@@ -77,8 +76,7 @@ def schedule_calendar(semester: str) -> Any:
             weeks[-1][day.weekday()] = (day, nights.get(day))
             day += timedelta(days=1)
     instruments = sorted({(entry.instrument or "").upper() for entry in schedule.nights if entry.instrument})
-    return render_template("dashboard/calendar.html", semester=semester, version=version, months=dict(months),
-                           instruments=instruments, month_name=_month_name)
+    return render_template("dashboard/calendar.html", semester=semester, version=version, months=dict(months), instruments=instruments, month_name=_month_name)
 
 
 def _dry_run(text: str, user_id: int) -> dict[str, Any]:

@@ -39,8 +39,18 @@ PLOT_KINDS: dict[str, tuple[str, Any]] = {
     "track": ("Path on the sky and brightness across the semester (moving target)", lambda s, f, t: plots.track_svg(s)),
 }
 CSV_COLUMNS = [
-    "proposal_id", "semester", "title", "principal_investigator", "instruments", "hours_requested",
-    "verdict", "last_checked", "previous_verdict", "verdict_changed", "run_id", "first_failing_check",
+    "proposal_id",
+    "semester",
+    "title",
+    "principal_investigator",
+    "instruments",
+    "hours_requested",
+    "verdict",
+    "last_checked",
+    "previous_verdict",
+    "verdict_changed",
+    "run_id",
+    "first_failing_check",
     "hours_needed_over_requested",
 ]
 
@@ -218,13 +228,21 @@ def overview_plot(semester: str, kind: str) -> Response:
     if kind == "verdicts":
         svg = plots.verdict_counts_svg(data.counts)
     elif kind == "instruments":
-        svg = plots.instrument_hours_svg(
-            [
-                {"instrument": line.instrument, "hours_requested": line.hours_requested, "hours_offered": line.hours_offered,
-                 "hours_needed": line.hours_needed}
-                for line in data.instruments
-            ]
-        ) if data.instruments else None
+        svg = (
+            plots.instrument_hours_svg(
+                [
+                    {
+                        "instrument": line.instrument,
+                        "hours_requested": line.hours_requested,
+                        "hours_offered": line.hours_offered,
+                        "hours_needed": line.hours_needed,
+                    }
+                    for line in data.instruments
+                ]
+            )
+            if data.instruments
+            else None
+        )
     elif kind == "ra":
         svg = plots.ra_demand_svg(data.ra_requested, data.ra_dark_offered, data.ra_night_offered)
     elif kind == "ra-lunar":
@@ -260,10 +278,19 @@ def _verdict_table(data: Any) -> list[list[Any]]:
 
 
 def _instrument_table(data: Any) -> list[list[Any]]:
-    head = ["instrument", "requests", "requests_not_counted", "hours_requested_feasible_or_marginal", "hours_needed_feasible_or_marginal",
-            "hours_offered", "requested_over_offered"]
-    return [head, *([row.instrument, row.requests, row.not_counted, row.hours_requested, row.hours_needed, row.hours_offered, row.pressure]
-                    for row in data.instruments)]
+    head = [
+        "instrument",
+        "requests",
+        "requests_not_counted",
+        "hours_requested_feasible_or_marginal",
+        "hours_needed_feasible_or_marginal",
+        "hours_offered",
+        "requested_over_offered",
+    ]
+    return [
+        head,
+        *([row.instrument, row.requests, row.not_counted, row.hours_requested, row.hours_needed, row.hours_offered, row.pressure] for row in data.instruments),
+    ]
 
 
 def _lunar_table(data: Any) -> list[list[Any]]:
@@ -277,8 +304,12 @@ def _ra_table(data: Any) -> list[list[Any]]:
         head += [f"{line.instrument}_{line.lunar_time}_requested", f"{line.instrument}_{line.lunar_time}_offered"]
     rows: list[list[Any]] = [head]
     for hour in range(24):
-        row: list[Any] = [hour, data.ra_requested[hour], data.ra_night_offered[hour] if data.ra_night_offered else None,
-                          data.ra_dark_offered[hour] if data.ra_dark_offered else None]
+        row: list[Any] = [
+            hour,
+            data.ra_requested[hour],
+            data.ra_night_offered[hour] if data.ra_night_offered else None,
+            data.ra_dark_offered[hour] if data.ra_dark_offered else None,
+        ]
         for line in data.lunar:
             row += [line.ra_requested[hour], line.ra_offered[hour] if line.ra_offered else None]
         rows.append(row)
@@ -294,6 +325,7 @@ def _rounded(value: Any) -> Any:
 
 
 # --- helpers -------------------------------------------------------------------------------
+
 
 class _PlotCache:
     """The most recently drawn request plots of one app (SVG text by run, request and kind), bounded in size."""
