@@ -20,6 +20,13 @@ rises, are far too faint, or ask for seeing the site never has. So the committee
 pressure views (requested ÷ offered) look like a real call. The drafts are checked
 once per process (the result is remembered per seed and semester).
 
+A few more proposals (:data:`SOLAR_SYSTEM_BODIES`, drawn from their own seeded stream after the
+others) ask for solar-system bodies, followed along their paths by the engine: a planet by name, an
+invented main-belt asteroid by osculating elements with H, G, an invented comet by elements with M1, K1,
+and an invented asteroid given as the proposer's ephemeris table (worked out here from its elements by the
+engine's own two-body orbit). The minor bodies are placed at opposition on a date drawn in the semester's
+middle months, so they are well placed (aimed at feasible, as most requests).
+
 Everything here is invented: people, institutions, titles and target names. The
 eight hand-written examples in ``feasibility/data/proposals`` stay the documented ones.
 """
@@ -27,6 +34,7 @@ eight hand-written examples in ``feasibility/data/proposals`` stay the documente
 from __future__ import annotations
 
 import copy
+import datetime as dt
 import functools
 import math
 import random
@@ -42,6 +50,8 @@ DEMO_SEED = 2027
 DEMO_SEMESTER = "2027A"
 #: How many proposals of each kind the generated set has (aimed-at verdicts, see the module's description).
 KIND_COUNTS = {"easy": 113, "tight": 23, "hard": 14}
+#: The solar-system proposals appended to the generated set, one per kind of moving target (see the module's description).
+SOLAR_SYSTEM_BODIES = ("planet", "asteroid", "comet", "table")
 #: The shortest block a generated request asks for (hours): nobody asks for a few minutes of a night.
 MIN_BLOCK_HOURS = 0.5
 #: A proposer's contingency on the hours the goal needs at the design conditions (smallest, largest).
@@ -141,6 +151,8 @@ def _sized_semester(seed: int, semester: str) -> list[dict[str, Any]]:
     kinds = [kind for kind, count in KIND_COUNTS.items() for _ in range(count)]
     rng.shuffle(kinds)
     drafts = [_proposal(rng, number + 1, kind, semester) for number, kind in enumerate(kinds)]
+    solar_rng = random.Random(f"{seed}-solar-system")  # its own stream: the fixed-target drafts stay as they were
+    drafts += [_solar_system_proposal(solar_rng, len(drafts) + k + 1, body, semester) for k, body in enumerate(SOLAR_SYSTEM_BODIES)]
     check = _engine_for(semester)
     needs = [check(document) for document, _ in drafts]
     for _ in range(_BRIGHTNESS_ROUNDS):
@@ -235,6 +247,153 @@ def _request(rng: random.Random, index: int, kind: str) -> tuple[dict[str, Any],
         "constraints": constraints,
     }
     return request, sizing
+
+
+def _solar_system_proposal(rng: random.Random, number: int, body: str, semester: str) -> tuple[dict[str, Any], list[_Sizing]]:
+    """One proposal asking for a solar-system body (``body``: planet, asteroid, comet or table), sized as the others."""
+    given, family = rng.choice(_GIVEN), rng.choice(_FAMILY)
+    first, last = _semester_nights(semester)
+    opposition = first + dt.timedelta(days=round(rng.uniform(0.3, 0.6) * (last - first).days))
+    designation = f"{opposition.year} {chr(ord('A') + rng.randrange(24))}{chr(ord('A') + rng.randrange(25))}{rng.randrange(2, 90)}"
+    constraints: dict[str, Any] = {"max_airmass": rng.choice((1.8, 2.0))}
+    setup: dict[str, Any] = {"filter": rng.choice(("V", "R"))}
+    instrument, band, magnitude, snr = "KESTREL", "V", 0.0, rng.choice((30, 50))
+    if body == "planet":
+        target: dict[str, Any] = {"kind": "major_body", "name": "Neptune", "body": "neptune"}
+        instrument, snr = "HERON", rng.choice((100, 200))
+        setup = {"grating": "R2500", "slit_arcsec": 1.2, "central_wavelength_nm": rng.choice((520, 580, 650))}
+        magnitude = 7.8  # Neptune's apparent V (from memory), as a proposer writes it; the brighter planets saturate HERON
+        title = "Methane bands of Neptune across the night"
+    elif body == "comet":
+        target = _comet(rng, f"P/{designation[:4]} {designation[5:]} (invented)", opposition)
+        magnitude, title = 15.0, "Coma activity of an invented periodic comet"
+        constraints["max_airmass"] = 2.0
+    else:
+        target = _asteroid(rng, f"({rng.randrange(20000, 99999)}) {rng.choice(_FAMILY)} (invented)", opposition)
+        magnitude, title = 19.0, "Rotation light curve of an invented main-belt asteroid"
+        if body == "table":
+            target = _as_ephemeris_table(target, first, last)
+            title = "Colours of an invented asteroid from the proposer's own ephemeris"
+    request = {
+        "label": f"r1-{body}",
+        "target": target,
+        "instrument": instrument,
+        "setup": setup,
+        "brightness": {"magnitude": magnitude, "band": band},
+        "goal": {"snr": snr},
+        "hours_requested": 1.0,  # a placeholder, as for the others
+        "constraints": constraints,
+    }
+    document = {
+        "id": f"GEN-{semester}-{number:03d}",
+        "semester": semester,
+        "title": title,
+        "pi": {"name": f"{given} {family}", "email": f"{given.lower()}.{_ascii(family.lower())}@example.org", "institution": rng.choice(_PLACES)},
+        "requests": [request],
+    }
+    if body == "asteroid":  # a light curve's hours follow the rotation period, not the S/N of one exposure
+        return document, [_Sizing("fixed", round(rng.uniform(2.0, 5.0), 1), None)]
+    return document, [_Sizing("design", rng.uniform(*CONTINGENCY), None)]  # the body's own brightness law: nothing to move
+
+
+def _asteroid(rng: random.Random, name: str, opposition: dt.date) -> dict[str, Any]:
+    """An invented main-belt asteroid at opposition on ``opposition``: its osculating elements there, with H, G."""
+    a, e, i = rng.uniform(2.3, 3.1), rng.uniform(0.05, 0.18), rng.uniform(2.0, 14.0)
+    node, argument = rng.uniform(0.0, 360.0), rng.uniform(0.0, 360.0)
+    u = _argument_of_latitude(_earth_longitude_deg(opposition) - node, i)  # at opposition, the Earth's heliocentric longitude
+    true_anomaly = math.radians(u - argument)
+    eccentric = 2.0 * math.atan(math.sqrt((1.0 - e) / (1.0 + e)) * math.tan(true_anomaly / 2.0))
+    mean = math.degrees(eccentric - e * math.sin(eccentric)) % 360.0
+    return {
+        "kind": "orbital_elements",
+        "name": name,
+        "epoch": opposition.isoformat(),
+        "semi_major_axis": round(a, 4),
+        "eccentricity": round(e, 4),
+        "inclination": round(i, 3),
+        "ascending_node_longitude": round(node, 3),
+        "perihelion_argument": round(argument, 3),
+        "mean_anomaly": round(mean, 3),
+        "absolute_magnitude": round(rng.uniform(14.5, 16.0), 1),
+        "slope_parameter": 0.15,
+    }
+
+
+def _comet(rng: random.Random, name: str, opposition: dt.date) -> dict[str, Any]:
+    """An invented short-period comet passing perihelion at opposition on ``opposition``, with M1, K1."""
+    q, e, i = rng.uniform(1.8, 2.4), rng.uniform(0.35, 0.55), rng.uniform(4.0, 20.0)
+    argument = rng.uniform(0.0, 360.0)
+    ecliptic_offset = math.degrees(math.atan2(math.cos(math.radians(i)) * math.sin(math.radians(argument)), math.cos(math.radians(argument))))
+    node = (_earth_longitude_deg(opposition) - ecliptic_offset) % 360.0  # perihelion in the Earth's direction from the Sun
+    return {
+        "kind": "orbital_elements",
+        "name": name,
+        "epoch": opposition.isoformat(),
+        "perihelion_distance": round(q, 4),
+        "eccentricity": round(e, 4),
+        "inclination": round(i, 3),
+        "ascending_node_longitude": round(node, 3),
+        "perihelion_argument": round(argument, 3),
+        "perihelion_time": f"{opposition.isoformat()}T00:00:00Z",
+        "total_absolute_magnitude": round(rng.uniform(13.5, 15.0), 1),
+        "total_magnitude_slope": 10.0,  # K1 = 10 (common practice)
+    }
+
+
+def _as_ephemeris_table(elements: dict[str, Any], first: dt.date, last: dt.date, step_days: int = 4) -> dict[str, Any]:
+    """The asteroid of ``elements`` as an ephemeris table over the semester, from the engine's own two-body orbit."""
+    import numpy as np
+
+    from feasibility.documents.moving_targets import OrbitalElementsTarget
+    from feasibility.engine import orbits
+    from feasibility.engine.small_body_brightness import hg_magnitude
+
+    dates = [first + dt.timedelta(days=k) for k in range(-step_days, (last - first).days + 2 * step_days, step_days)]
+    tt = np.array([_jd(d) for d in dates])
+    target = OrbitalElementsTarget.model_validate(elements)
+    seen = orbits.geocentric(orbits.orbit_from_target(target), tt)
+    magnitude = hg_magnitude(float(target.absolute_magnitude or 0.0), target.slope, seen.sun_distance_au, seen.earth_distance_au, seen.phase_angle_deg)
+    x, y, z = seen.geocentric.T
+    ra, dec = np.degrees(np.arctan2(y, x)) % 360.0, np.degrees(np.arctan2(z, np.hypot(x, y)))
+    rows = [
+        {"time": f"{d.isoformat()}T00:00:00Z", "ra": _sexagesimal(float(r) / 15.0, seconds=True), "dec": round(float(de), 4), "magnitude": round(float(m), 2)}
+        for d, r, de, m in zip(dates, ra, dec, magnitude, strict=True)
+    ]
+    return {"kind": "ephemeris_table", "name": elements["name"], "ephemeris_table": rows}
+
+
+def _argument_of_latitude(longitude_from_node_deg: float, inclination_deg: float) -> float:
+    """The argument of latitude u (degrees) whose ecliptic longitude from the node is the one given: tan(l − Ω) = cos i tan u."""
+    angle = math.radians(longitude_from_node_deg)
+    return math.degrees(math.atan2(math.sin(angle), math.cos(angle) * math.cos(math.radians(inclination_deg))))
+
+
+def _earth_longitude_deg(date: dt.date) -> float:
+    """The Earth's heliocentric ecliptic longitude (degrees, J2000.0) at 0h of ``date``, from the engine's ERFA ``epv00``
+    position turned to the ecliptic by the J2000.0 obliquity 23.439° (enough to aim at opposition)."""
+    import numpy as np
+
+    from feasibility.engine import orbits
+
+    x, y, z = orbits.earth_heliocentric(np.array([_jd(date)]))[0]
+    obliquity = math.radians(23.4392911)
+    return math.degrees(math.atan2(y * math.cos(obliquity) + z * math.sin(obliquity), x)) % 360.0
+
+
+def _jd(date: dt.date) -> float:
+    """The Julian date (TT) of 0h UTC on ``date``: TT − UTC is 69.184 s from 2017 on (37 leap seconds + 32.184 s, from memory)."""
+    return 2400000.5 + (date - dt.date(1858, 11, 17)).days + 69.184 / 86400.0
+
+
+def _semester_nights(semester: str) -> tuple[dt.date, dt.date]:
+    """The first and last nights of ``semester`` in the packaged demo observatory."""
+    from feasibility.documents import Observatory, load_document
+
+    observatory = load_document(Observatory, Path(str(resources.files("feasibility") / "data" / "observatory.yaml")))
+    found = observatory.semester_named(semester)
+    if found is None:
+        raise ValueError(f"semester {semester!r} is not in the demo observatory")
+    return found.first_night, found.last_night
 
 
 def _settle_brightness(document: dict[str, Any], sizings: list[_Sizing], needs: dict[str, tuple[float | None, float | None]]) -> bool:

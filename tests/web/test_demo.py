@@ -41,10 +41,59 @@ def test_generated_semester_spreads_over_instruments_lunar_times_and_right_ascen
     requests = [r for d in demo_semester() for r in d["requests"]]
     instruments = Counter(r["instrument"] for r in requests)
     skies = Counter(r["constraints"].get("sky", "any") for r in requests)
-    hours = Counter(int(r["target"]["ra"][:2]) for r in requests)
+    hours = Counter(int(r["target"]["ra"][:2]) for r in requests if "kind" not in r["target"])  # fixed targets
     assert set(instruments) == {"KESTREL", "HERON", "OWL"} and min(instruments.values()) >= 20
     assert set(skies) == {"dark", "grey", "bright", "any"} and min(skies.values()) >= 20
     assert len(hours) >= 10
+    moving = Counter(r["target"]["kind"] for r in requests if "kind" in r["target"])
+    assert set(moving) == {"major_body", "orbital_elements", "ephemeris_table"} and 4 <= sum(moving.values()) <= 6, moving
+
+
+def test_generated_solar_system_requests_are_followed_along_their_paths(verdicts: dict[str, Any]) -> None:
+    """Each moving target gets the engine's motion finding (its rate on the sky) and is observable: aimed at feasible."""
+    moving = [(d, r) for d in demo_semester() for r in d["requests"] if "kind" in r["target"]]
+    assert moving
+    for document, request in moving:
+        (checked,) = [item for item in verdicts[document["id"]].requests if item.label == request["label"]]
+        motion = [finding for finding in checked.findings if finding.check == "motion"]
+        assert motion and "″/h" in motion[0].message, checked.findings
+        assert checked.verdict.value in ("feasible", "marginal"), checked.findings
+
+
+def test_generated_minor_bodies_stand_at_opposition_in_the_semester() -> None:
+    """The invented minor bodies are placed at opposition (geocentric ecliptic longitude 180° from the Sun's, the
+    definition, e.g. Meeus, Astronomical Algorithms): at their elements' epoch, or for the table at one of its rows
+    (4 days apart, so within a few degrees), with the Sun from astropy (``get_sun``, a reference library) and the
+    body from the engine's two-body orbit or the table itself. The semester 2027A runs April to September."""
+    import numpy as np
+    from astropy.coordinates import GeocentricMeanEcliptic, SkyCoord, get_sun
+    from astropy.time import Time
+
+    from feasibility.documents.moving_targets import OrbitalElementsTarget
+    from feasibility.engine import orbits
+
+    def from_sun(body: SkyCoord, moments: Time) -> Any:
+        frame = GeocentricMeanEcliptic(equinox=moments, obstime=moments)
+        difference = body.transform_to(frame).lon.deg - get_sun(moments).transform_to(frame).lon.deg
+        return np.abs((np.atleast_1d(difference) + 180.0) % 360.0 - 180.0)
+
+    targets = [r["target"] for d in demo_semester() for r in d["requests"] if r["target"].get("kind") in ("orbital_elements", "ephemeris_table")]
+    assert len(targets) >= 3
+    for target in targets:
+        if target["kind"] == "orbital_elements":
+            moments = Time([target["epoch"]], scale="utc")
+            x, y, z = orbits.geocentric(orbits.orbit_from_target(OrbitalElementsTarget.model_validate(target)), moments.tt.jd).geocentric.T
+            body = SkyCoord(x=x, y=y, z=z, unit="au", representation_type="cartesian", frame="gcrs", obstime=moments)
+            least = 175.0
+        else:
+            rows = target["ephemeris_table"]
+            moments = Time([row["time"].rstrip("Z") for row in rows], scale="utc")
+            body = SkyCoord([row["ra"] for row in rows], [row["dec"] for row in rows], unit=("hourangle", "deg"), frame="gcrs", obstime=moments)
+            least = 172.0
+        angles = from_sun(body, moments)
+        at = int(np.argmax(angles))
+        assert angles[at] > least, (target["name"], angles[at])
+        assert Time("2027-04-01") <= moments[at] <= Time("2027-10-01"), target["name"]
 
 
 def test_generated_semester_mix_as_the_real_engine_judges_it(verdicts: dict[str, Any]) -> None:
@@ -75,7 +124,7 @@ def test_generated_requests_ask_about_what_the_real_engine_says_they_need(verdic
 def test_never_rising_targets_are_judged_invisible(verdicts: dict[str, Any]) -> None:
     """A target at declination δ culminates at 90° − |φ − δ| (spherical astronomy, e.g. Smart, Textbook on
     Spherical Astronomy, ch. 2): at the site's latitude −26.4° a target north of +48.6° never rises above 15°."""
-    northern = [(d, r) for d in demo_semester() for r in d["requests"] if float(r["target"]["dec"]) > 48.6]
+    northern = [(d, r) for d in demo_semester() for r in d["requests"] if "dec" in r["target"] and float(r["target"]["dec"]) > 48.6]
     assert northern
     for document, request in northern:
         result = verdicts[document["id"]]
