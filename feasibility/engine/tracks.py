@@ -27,12 +27,12 @@ from numpy.typing import NDArray
 from feasibility.documents.moving_targets import EphemerisTableTarget, MajorBodyTarget, OrbitalElementsTarget
 from feasibility.engine import orbits
 from feasibility.engine.ephemeris_table import interpolate_table, table_times_mjd
-from feasibility.engine.positions import enu_matrix, separation_deg
+from feasibility.engine.positions import enu_matrix, radec_from_vector, separation_deg
 from feasibility.engine.skygrid import NightSamples, SkyGrid
 from feasibility.engine.small_body_brightness import comet_total_magnitude, hg_magnitude
 from feasibility.engine.solar_system import major_body_geocentric
 
-__all__ = ["NODE_DAYS", "Track", "cubic_at", "cubic_coefficients", "forget_tracks", "track_for"]
+__all__ = ["NODE_DAYS", "Track", "cubic_at", "cubic_coefficients", "forget_tracks", "geocentric_ra_deg", "track_for"]
 
 Array = NDArray[np.float64]
 
@@ -174,6 +174,23 @@ def track_for(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTa
         grid.longitude_deg,
         grid.elevation_m,
     )
+
+
+def geocentric_ra_deg(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget, utc_mjd: float) -> float | None:
+    """A moving ``target``'s geocentric right ascension (degrees) at one UTC instant, from the same ephemeris as its
+    track (no grid needed: the semester overview places a body's demand by it); None outside an ephemeris table."""
+    at: Array = np.array([utc_mjd], dtype=np.float64)
+    if isinstance(target, MajorBodyTarget):
+        vector = major_body_geocentric(target.body, at)[0]
+    elif isinstance(target, OrbitalElementsTarget):
+        tt = at + _MJD_TO_JD + _tt_minus_utc_days(utc_mjd)
+        vector = orbits.geocentric(orbits.orbit_from_target(target), tt, _earth(tt.tobytes())).geocentric[0]
+    else:
+        table = interpolate_table(target, at)
+        if not bool(table.covered[0]):
+            return None
+        vector = table.directions[0]
+    return float(radec_from_vector(vector)[0])
 
 
 def forget_tracks() -> None:

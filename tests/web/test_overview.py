@@ -92,3 +92,30 @@ def test_requests_without_hours_needed_are_counted_apart(app: Flask, semester: d
     assert owl and lines["OWL"].needed_unknown == len(owl) and lines["OWL"].hours_needed is None
     kestrel = sum(q.figures["hours_needed"] for r in expected.values() for q in r.requests if q.instrument == "KESTREL")
     assert lines["KESTREL"].needed_unknown == 0 and lines["KESTREL"].hours_needed == pytest.approx(kestrel, rel=1e-9)  # the engine's figures
+
+
+def test_overview_places_moving_targets_at_their_right_ascension_on_the_middle_night(app: Flask, people: dict[str, int]) -> None:
+    """The demo's solar-system proposal (SQ-2027A-008): Neptune (1 h), an asteroid (4 h) and a comet (2 h) by their
+    elements count at their geocentric right ascension at local midnight of 2027A's middle night (the night of
+    1 July, at longitude −67.935°); the ephemeris table (1.5 h, 10 May to 4 June) does not cover that night and is
+    left out. Neptune's right ascension then is astropy's (``get_body`` with the built-in ephemeris, a reference
+    library)."""
+    from astropy.coordinates import get_body, solar_system_ephemeris
+    from astropy.time import Time
+
+    from feasibility.offline import configure_offline
+    from feasibility.store.db import session_factory
+    from feasibility.web.dashboard.overview import semester_overview
+
+    from .support import demo_doc, store_checked
+
+    store_checked(app, demo_doc("008"), None)
+    with app.app_context():
+        session = session_factory()
+        data = semester_overview(session, "2027A")
+        session.close()
+    assert sum(data.ra_requested) == pytest.approx(7.0)  # 1 + 4 + 2 h; not the table's 1.5 h
+    configure_offline()
+    with solar_system_ephemeris.set("builtin"):
+        neptune = get_body("neptune", Time("2027-07-02T04:31:44", scale="utc")).ra.hour  # 0h local + 67.935°/15 h
+    assert data.ra_requested[int(neptune)] >= 1.0, (neptune, data.ra_requested)

@@ -10,13 +10,18 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from datetime import date
 from typing import Any
 
+from pydantic import TypeAdapter, ValidationError
 from sqlalchemy import case, func, select
 from sqlalchemy.orm import Session
 
+from feasibility.documents import Observatory
 from feasibility.documents.angles import parse_right_ascension
-from feasibility.documents.proposal import SKY_ILLUMINATION
+from feasibility.documents.moving_targets import target_kind
+from feasibility.documents.proposal import SKY_ILLUMINATION, AnyTarget
+from feasibility.engine.tracks import geocentric_ra_deg
 from feasibility.service.current import current_observatory, current_schedule, observatory_of, schedule_of
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, RequestOutcome
 from feasibility.store.standing import standing_run_id
@@ -185,7 +190,7 @@ def semester_overview(session: Session, semester: str) -> Overview:
         unchecked_yet=max(proposals - sum(counts.values()), 0),
         counts=counts,
         instruments=lines,
-        ra_requested=_ra_demand(session, in_semester),
+        ra_requested=_ra_demand(session, in_semester, _middle_midnight_mjd(observatory_of(observatory_row), semester) if observatory_row is not None else None),
         ra_night_offered=offer["ra_night_hours"] if offer else None,
         ra_dark_offered=offer["ra_dark_hours"] if offer else None,
         schedule_label=schedule_row.version_label if schedule_row is not None else None,
@@ -248,11 +253,13 @@ def _lunar_lines(session: Session, in_semester: Any, offered: dict[str, dict[str
     return lines
 
 
-def _ra_demand(session: Session, in_semester: Any) -> list[float]:
+def _ra_demand(session: Session, in_semester: Any, middle_mjd: float | None) -> list[float]:
     """Requested hours per hour of right ascension, from each latest run's proposal version.
 
-    Streams the stored documents in batches; a target whose right ascension
-    cannot be read (it passed validation, so this should not happen) is skipped.
+    Streams the stored documents in batches. A moving target counts at its geocentric right ascension at
+    ``middle_mjd`` (the semester's middle night, from the engine's ephemeris); it is skipped when there is no such
+    night or its ephemeris table does not cover it, as is a target whose right ascension cannot be read (it passed
+    validation, so this should not happen).
     """
     bins = [0.0] * 24
     statement = (
@@ -264,12 +271,38 @@ def _ra_demand(session: Session, in_semester: Any) -> list[float]:
     for document in session.scalars(statement):
         for request in (document or {}).get("requests", []):
             try:
-                ra_deg = parse_right_ascension(request["target"]["ra"])
+                ra_deg = _right_ascension(request["target"], middle_mjd)
                 hours = float(request["hours_requested"])
             except (KeyError, TypeError, ValueError):
                 continue
-            bins[int(ra_deg / 15.0 + 1e-9) % 24] += hours  # 1e-9 h: 06:00:00 parsed as 89.99999999999999° is 6h
+            if ra_deg is not None:
+                bins[int(ra_deg / 15.0 + 1e-9) % 24] += hours  # 1e-9 h: 06:00:00 parsed as 89.99999999999999° is 6h
     return bins
+
+
+_TARGETS: TypeAdapter[Any] = TypeAdapter(AnyTarget)
+
+
+def _right_ascension(target: dict[str, Any], middle_mjd: float | None) -> float | None:
+    """A fixed target's right ascension, or a moving one's at ``middle_mjd`` (None when unknown there)."""
+    if target_kind(target) in (None, "fixed"):
+        return parse_right_ascension(target["ra"])
+    if middle_mjd is None:
+        return None
+    try:
+        moving = _TARGETS.validate_python(target)
+    except ValidationError as error:
+        raise ValueError(str(error)) from error
+    return geocentric_ra_deg(moving, middle_mjd)
+
+
+def _middle_midnight_mjd(observatory: Observatory, semester: str) -> float | None:
+    """The UTC MJD of local midnight (by the site's longitude) in the semester's middle night, or None."""
+    found = observatory.semester_named(semester)
+    if found is None:
+        return None
+    middle = found.first_night + (found.last_night - found.first_night) / 2
+    return (middle - date(1858, 11, 17)).days + 1.0 - observatory.site.longitude_deg / 360.0
 
 
 def _maybe(value: Any) -> float | None:
