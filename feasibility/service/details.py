@@ -27,7 +27,7 @@ import threading
 from collections import OrderedDict
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import Connection, select
 from sqlalchemy.orm import Session
 
 from feasibility.documents import InstrumentSchedule, Observatory, Proposal, parse_document
@@ -36,7 +36,7 @@ from feasibility.service.current import cached_document
 from feasibility.service.engine_version import engine_version
 from feasibility.store.models import CheckRun, ObservatoryVersion, ProposalVersion, ScheduleVersion
 
-__all__ = ["FORM_KEY", "COMPACT", "DETAILS_CACHE_SIZE", "compact_result", "details_missing_reason", "full_result", "is_compact"]
+__all__ = ["FORM_KEY", "COMPACT", "DETAILS_CACHE_SIZE", "compact_result", "details_missing_reason", "full_result", "is_compact", "run_key", "RunKey"]
 
 log = logging.getLogger(__name__)
 
@@ -51,7 +51,7 @@ DETAILS_CACHE_SIZE = 32
 _LEFT_OUT: Any = {"requests": {"__all__": {"series": True, "findings": {"__all__": {"method"}}}}}
 
 _Details = list[tuple[dict[str, Any], list[str | None]]]
-_cache: OrderedDict[tuple[str, int, str], _Details | None] = OrderedDict()
+_cache: OrderedDict[RunKey, _Details | None] = OrderedDict()
 _cache_lock = threading.Lock()
 
 
@@ -100,10 +100,24 @@ def details_missing_reason(run: CheckRun) -> str | None:
     return None
 
 
+#: What tells a stored run apart in a per-process cache: the store's address, the run id and its finish time.
+RunKey = tuple[str, int, str]
+
+
+def run_key(session: Session, run: CheckRun) -> RunKey:
+    """The key of ``run`` for caches kept in this process (computed details, drawn plots).
+
+    One process may serve several stores (tests, benchmarks) whose run ids start alike, so the
+    store's address is part of it; the finish time tells apart a store recreated at the same address.
+    """
+    bind = session.get_bind()
+    address = (bind.engine if isinstance(bind, Connection) else bind).url.render_as_string(hide_password=True)
+    return (address, run.id, str(run.finished_at))
+
+
 def _details(session: Session, run: CheckRun) -> _Details | None:
     """Series and methods of each request of compact ``run``: from the cache, or the engine run again."""
-    # Run ids repeat across stores (and across a test store emptied between tests): the finish time tells them apart.
-    key = (str(session.get_bind().engine.url), run.id, str(run.finished_at))
+    key = run_key(session, run)
     with _cache_lock:
         if key in _cache:
             _cache.move_to_end(key)

@@ -21,9 +21,10 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from PIL import Image
-from sqlalchemy import Connection
 from sqlalchemy.orm import Session
 
+from feasibility.service import details
+from feasibility.service.details import RunKey
 from feasibility.store.models import CheckRun
 from feasibility.web import plots
 
@@ -33,9 +34,6 @@ __all__ = ["PLOT_DPI", "RunKey", "clear", "rasterise", "request_images", "run_ke
 PLOT_DPI = 120
 #: Most bytes of PNG kept (about 1500 plots, some 500 requests).
 MAX_BYTES = 128 * 1024 * 1024
-
-#: Which finished run: the store's address (passwords hidden), the run's id and its finish time.
-RunKey = tuple[str, int, str]
 
 _lock = threading.Lock()
 _images: OrderedDict[tuple[RunKey, str, str], bytes] = OrderedDict()
@@ -52,16 +50,10 @@ def rasterise(figure: Figure, dpi: int = PLOT_DPI) -> np.ndarray:
 
 
 def run_key(session: Session, run: CheckRun | None) -> RunKey | None:
-    """What identifies a finished run's plots, or None (not finished: draw every time).
-
-    The store's address is part of it because one process may serve several stores (tests, benchmarks),
-    whose run ids start alike; the finish time tells a store recreated at the same address apart.
-    """
+    """What identifies a finished run's plots (:func:`feasibility.service.details.run_key`), or None (not finished: draw every time)."""
     if run is None or run.finished_at is None or run.state != "done":
         return None
-    bind = session.get_bind()
-    address = (bind.engine if isinstance(bind, Connection) else bind).url.render_as_string(hide_password=True)
-    return (address, run.id, run.finished_at.isoformat())
+    return details.run_key(session, run)
 
 
 def request_images(run: RunKey | None, item: Mapping[str, Any], kinds: Mapping[str, tuple[str, Callable[..., Any]]]) -> list[np.ndarray]:
