@@ -12,7 +12,7 @@ from typing import Any
 
 from pydantic import BaseModel, Field
 
-__all__ = ["Finding", "Level", "ProposalResult", "RequestResult", "worst"]
+__all__ = ["COMPETING_LEVELS", "Finding", "Level", "ProposalResult", "RequestResult", "worst"]
 
 Figure = float | int | str | bool | None | list[float] | list[int] | list[str]
 
@@ -34,6 +34,10 @@ class Level(str, Enum):  # noqa: UP042 - StrEnum would change str(level) from "L
         """The command line's exit code for a verdict at this level."""
         return _EXIT[self]
 
+
+#: The request verdicts that compete for the time offered: the semester overview's pressure and the
+#: simulation's dispatch count these; an infeasible request will not be scheduled, an unchecked one cannot be.
+COMPETING_LEVELS = (Level.FEASIBLE.value, Level.MARGINAL.value)
 
 _RANK = {Level.FEASIBLE: 0, Level.MARGINAL: 1, Level.UNCHECKED: 2, Level.INFEASIBLE: 3}
 _EXIT = {Level.FEASIBLE: 0, Level.MARGINAL: 3, Level.INFEASIBLE: 4, Level.UNCHECKED: 5}

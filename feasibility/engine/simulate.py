@@ -42,6 +42,7 @@ from feasibility.engine.simulate_dispatch import dispatch, draw_lottery, slot_or
 from feasibility.engine.simulate_plan import DEFAULT_SLOT_MINUTES, LUNAR_TIMES, Plan, PlanRequest, build_plan
 from feasibility.engine.skygrid import SkyGrid, sky_grid
 from feasibility.engine.weather import NightClimate, Weather, draw_weather, night_climate
+from feasibility.results import COMPETING_LEVELS
 
 __all__ = ["BLOCK", "LeftOut", "Outcomes", "run_realisations", "simulate_semester", "summarise"]
 
@@ -310,7 +311,7 @@ def _plan_requests(
             if instrument is None or checked.verdict.value == "unchecked":
                 notes.append(f"{proposal.id} {request.label}: left out, the engine could not check it")
                 continue
-            if checked.verdict.value == "infeasible":
+            if checked.verdict.value not in COMPETING_LEVELS:  # infeasible (unchecked ones are named in the notes above)
                 left_out.append(
                     LeftOut(
                         proposal_id=proposal.id,

@@ -22,6 +22,7 @@ from feasibility.documents.angles import parse_right_ascension
 from feasibility.documents.moving_targets import target_kind
 from feasibility.documents.proposal import SKY_ILLUMINATION, AnyTarget
 from feasibility.engine.tracks import geocentric_ra_deg
+from feasibility.results import COMPETING_LEVELS
 from feasibility.service.current import current_observatory, current_schedule, observatory_of, schedule_of
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, RequestOutcome
 from feasibility.store.standing import standing_run_id
@@ -29,9 +30,6 @@ from feasibility.web.dashboard.offer import LUNAR_TIMES, instrument_hours_offere
 from feasibility.web.dashboard.queries import LEVELS
 
 __all__ = ["InstrumentLine", "LunarLine", "Overview", "lunar_time", "semester_overview"]
-
-#: The request verdicts that count towards the pressure on the time offered (an infeasible request will not be scheduled).
-COUNTED_VERDICTS = ("feasible", "marginal")
 
 
 @dataclass
@@ -133,7 +131,7 @@ def semester_overview(session: Session, semester: str) -> Overview:
             counts[verdict] = int(number)
     proposals = int(session.scalar(select(func.count()).select_from(ProposalRecord).where(ProposalRecord.semester == semester)) or 0)
 
-    counted = RequestOutcome.verdict.in_(COUNTED_VERDICTS)
+    counted = RequestOutcome.verdict.in_(COMPETING_LEVELS)
     per_instrument = session.execute(
         select(
             RequestOutcome.instrument,
@@ -206,7 +204,7 @@ def _lunar_lines(session: Session, in_semester: Any, offered: dict[str, dict[str
         (run_id, label): instrument
         for run_id, label, instrument in session.execute(
             select(RequestOutcome.run_id, RequestOutcome.label, RequestOutcome.instrument).where(
-                RequestOutcome.run_id.in_(select(in_semester.c.run_id)), RequestOutcome.verdict.in_(COUNTED_VERDICTS)
+                RequestOutcome.run_id.in_(select(in_semester.c.run_id)), RequestOutcome.verdict.in_(COMPETING_LEVELS)
             )
         )
     }
