@@ -32,6 +32,7 @@ from feasibility.engine.explain import explain_conditions
 from feasibility.engine.moving import MotionOutcome, assess_motion
 from feasibility.engine.sensitivity import assess_exposure
 from feasibility.engine.sky_checks import (
+    SkyMeasure,
     measure_sky,
     moon_finding,
     night_availability,
@@ -58,6 +59,7 @@ def check_proposal(
     schedule: InstrumentSchedule | None = None,
     *,
     step_minutes: float = DEFAULT_STEP_MINUTES,
+    series: bool = True,
 ) -> ProposalResult:
     """Check every observation request of ``proposal`` at ``observatory`` (and its instrument ``schedule``).
 
@@ -65,6 +67,11 @@ def check_proposal(
     request gets an ``unchecked`` finding. A schedule for another semester than
     the proposal's is ignored (every night assumed available), and the schedule
     finding says so.
+
+    With ``series=False`` the per-night plot series, the night curve and the S/N
+    curve are not computed (each request result's ``series`` is empty); verdicts,
+    findings and figures are the same. That is what a stored run keeps (plots are
+    recomputed on demand with the full call), at a fraction of the cost.
     """
     problems = proposal_problems(proposal, observatory)
     general = [p for p in problems if not _REQUEST_FIELD.match(p.field)]
@@ -91,7 +98,7 @@ def check_proposal(
         if request_problems or context is None or instrument is None:
             results.append(_unchecked(request, request_problems))
             continue
-        results.append(check_request(request, observatory, instrument, context))
+        results.append(check_request(request, observatory, instrument, context, series=series))
 
     return ProposalResult(
         proposal_id=proposal.id,
@@ -118,6 +125,22 @@ class _SemesterContext:
         self.weather: NDArray[np.float64] = by_month[grid.night_months]
         self.night_names = grid.night_names
         self.moon_illumination = grid.moon_illumination_series
+        self._clear_fraction: list[float] | None = None
+        self._night_hours: dict[str, list[float]] = {}
+
+    @property
+    def clear_fraction(self) -> list[float]:
+        """The per-night weather rounded for the series: the same for every request, rounded once per proposal."""
+        if self._clear_fraction is None:
+            self._clear_fraction = np.round(self.weather, 3).tolist()
+        return self._clear_fraction
+
+    def rounded_night_hours(self, twilight: str, hours: NDArray[np.float64]) -> list[float]:
+        """Each night's hours for ``twilight`` (``hours``, shared by every request with it) rounded for the series, once."""
+        rounded = self._night_hours.get(twilight)
+        if rounded is None:
+            rounded = self._night_hours[twilight] = np.round(hours, 3).tolist()
+        return rounded
 
     def available(self, instrument: str) -> NDArray[np.bool_]:
         """Nights ``instrument`` is mounted and open; remembered for the same schedule object across proposals."""
@@ -138,8 +161,10 @@ _AVAILABILITY_SIZE = 64
 _AVAILABILITY_LOCK = threading.Lock()
 
 
-def check_request(request: ObservationRequest, observatory: Observatory, instrument: Instrument, context: _SemesterContext) -> RequestResult:
-    """All checks of one request already known to fit the observatory."""
+def check_request(
+    request: ObservationRequest, observatory: Observatory, instrument: Instrument, context: _SemesterContext, *, series: bool = True
+) -> RequestResult:
+    """All checks of one request already known to fit the observatory; ``series=False`` leaves out the plot series."""
     try:
         sky = measure_sky(
             request,
@@ -149,11 +174,14 @@ def check_request(request: ObservationRequest, observatory: Observatory, instrum
             context.available(instrument.name),
             context.weather,
             context.schedule is not None,
+            night_curve=series,
         )
         motion: MotionOutcome | None = None
         if sky.track is not None:  # a solar-system body: its magnitude on the usable nights, its rate, trailing
             motion = assess_motion(request, observatory, instrument, sky)
-        exposure = assess_exposure(motion.request if motion else request, observatory, motion.instrument if motion else instrument, sky.conditions)
+        exposure = assess_exposure(
+            motion.request if motion else request, observatory, motion.instrument if motion else instrument, sky.conditions, series=series
+        )
     except Exception as exc:  # one request's failure must not lose the others' results
         log.exception("request %r could not be evaluated", request.label)
         return _unchecked(request, [], f"could not be evaluated ({type(exc).__name__}: {exc})")
@@ -190,19 +218,6 @@ def check_request(request: ObservationRequest, observatory: Observatory, instrum
     for name, value in exposure.figures.items():
         figures.setdefault(name, value)
 
-    visible, usable, observable = np.round(np.stack([sky.visible, sky.usable, sky.observable]), 3).tolist()
-    series: dict[str, Any] = {
-        "nights": list(context.night_names),
-        "hours_visible": visible,
-        "hours_usable": usable,
-        "hours_observable": observable,
-        "hours_night": np.round(sky.hours_night, 3).tolist(),
-        "clear_fraction": np.round(sky.weather, 3).tolist(),
-        "moon_illumination": list(context.moon_illumination),
-        "night_curve": sky.night_curve,
-        **exposure.series,
-        **(motion.series if motion else {}),
-    }
     return RequestResult(
         label=request.label,
         instrument=instrument.name,
@@ -210,8 +225,25 @@ def check_request(request: ObservationRequest, observatory: Observatory, instrum
         verdict=worst([f.level for f in findings]),
         findings=findings,
         figures=figures,
-        series=series,
+        series=_series(sky, exposure.series, motion, context) if series else {},
     )
+
+
+def _series(sky: SkyMeasure, exposure_series: dict[str, Any], motion: MotionOutcome | None, context: _SemesterContext) -> dict[str, Any]:
+    """The request's plot series: hours per night at each stage, the night's length, weather, Moon, curves."""
+    visible, usable, observable = np.round(np.stack([sky.visible, sky.usable, sky.observable]), 3).tolist()
+    return {
+        "nights": list(context.night_names),
+        "hours_visible": visible,
+        "hours_usable": usable,
+        "hours_observable": observable,
+        "hours_night": list(context.rounded_night_hours(sky.twilight, sky.hours_night)),
+        "clear_fraction": list(context.clear_fraction),
+        "moon_illumination": list(context.moon_illumination),
+        "night_curve": sky.night_curve,
+        **exposure_series,
+        **(motion.series if motion else {}),
+    }
 
 
 def _unchecked(request: ObservationRequest, problems: list[Problem], reason: str | None = None) -> RequestResult:

@@ -11,6 +11,8 @@ same abscissa and the wrap would be lost.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
@@ -25,4 +27,14 @@ def horizon_altitude(site: Site, azimuth_deg: ArrayLike) -> NDArray[np.float64]:
     azimuths, altitudes = site.horizon_profile()
     if not azimuths:
         return np.zeros_like(azimuth)
-    return np.interp(azimuth, azimuths, altitudes, period=360.0)
+    abscissae, ordinates = _wrapped(tuple(azimuths), tuple(altitudes))
+    return np.interp(azimuth, abscissae, ordinates)
+
+
+@functools.lru_cache(maxsize=32)
+def _wrapped(azimuths: tuple[float, ...], altitudes: tuple[float, ...]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """The folded profile with its last point repeated 360° before the first and its first 360° after the last:
+    the table ``np.interp(..., period=360)`` builds (and sorts) on every call, built once per profile (the night
+    curve and the visible mask ask for it on every request)."""
+    xp, fp = np.asarray(azimuths, dtype=float), np.asarray(altitudes, dtype=float)
+    return np.concatenate((xp[-1:] - 360.0, xp, xp[0:1] + 360.0)), np.concatenate((fp[-1:], fp, fp[0:1]))

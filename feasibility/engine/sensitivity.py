@@ -300,8 +300,11 @@ class ExposureMeasure:
         }
 
 
-def assess_exposure(request: ObservationRequest, observatory: Observatory, instrument: Instrument, conditions: Conditions) -> ExposureAssessment:
-    """Findings, figures and S/N curve of ``request`` observed with ``instrument`` under ``conditions``.
+def assess_exposure(
+    request: ObservationRequest, observatory: Observatory, instrument: Instrument, conditions: Conditions, *, series: bool = True
+) -> ExposureAssessment:
+    """Findings, figures and S/N curve of ``request`` observed with ``instrument`` under ``conditions``
+    (without the curve, a plot series, when ``series`` is False).
 
     Measures (:func:`measure_exposure`), then words the findings
     (:mod:`feasibility.engine.sensitivity_findings`). Never raises for a setup
@@ -315,7 +318,7 @@ def assess_exposure(request: ObservationRequest, observatory: Observatory, instr
     return ExposureAssessment(
         exposure_findings(request, observatory, instrument, measure),
         measure.figures(request),
-        {"snr_curve": _snr_curve(request, measure.signal, measure.plan, measure.budget, measure.longest)},
+        {"snr_curve": _snr_curve(request, measure.signal, measure.plan, measure.budget, measure.longest)} if series else {},
     )
 
 

@@ -175,11 +175,14 @@ def measure_sky(
     available: NDArray[np.bool_],
     weather: NDArray[np.float64],
     schedule_given: bool,
+    *,
+    night_curve: bool = True,
 ) -> SkyMeasure:
     """Run ``request``'s target over ``grid`` and reduce it to hours per night at each stage.
 
     ``available`` (per night) comes from :func:`night_availability`, ``weather``
-    (per night) is the usable-night fraction of each night's month.
+    (per night) is the usable-night fraction of each night's month. With
+    ``night_curve=False`` the representative night's curve (a plot series) is left empty.
 
     This is the engine's hot path: each stage is a mask over the instants of the
     instrument's true night, per-night hours are one ``reduceat`` per mask, and
@@ -349,21 +352,25 @@ def measure_sky(
             "max_moon_illumination": moon_limit,
             "sky": constraints.sky or "bright",
         },
-        night_curve=_night_curve(
-            grid,
-            vector if track is None else track,
-            hours_usable,
-            hours_observable,
-            hours_visible,
-            _NightMarks(
-                view=view,
-                usable=usable,
-                site=site,
-                limit_alt=limit_altitude(constraints.max_airmass, formula),
-                floor_alt=max(site.min_altitude_deg, telescope.min_altitude_deg),
-                airmass_limit=constraints.max_airmass,
-                formula=formula,
-            ),
+        night_curve=(
+            _night_curve(
+                grid,
+                vector if track is None else track,
+                hours_usable,
+                hours_observable,
+                hours_visible,
+                _NightMarks(
+                    view=view,
+                    usable=usable,
+                    site=site,
+                    limit_alt=limit_altitude(constraints.max_airmass, formula),
+                    floor_alt=max(site.min_altitude_deg, telescope.min_altitude_deg),
+                    airmass_limit=constraints.max_airmass,
+                    formula=formula,
+                ),
+            )
+            if night_curve
+            else {}
         ),
         probe=SkyProbe(
             view=view,
@@ -453,7 +460,10 @@ def _night_curve(
         return curve
     moon_cos = np.clip(along(view.moon[lo:hi], vector), -1.0, 1.0)
     start, stop = marks.view.night_starts[night], marks.view.night_starts[night + 1]
-    usable_mjd = marks.view.mjd[start:stop][marks.usable[start:stop]]
+    # The usable instants are some of this night's Sun-down instants (the same grid times): their places among
+    # them, by one sorted search, mark them (np.isin would sort both arrays for the same answer).
+    usable = np.zeros(int(hi - lo), dtype=bool)
+    usable[np.searchsorted(view.mjd[lo:hi], marks.view.mjd[start:stop][marks.usable[start:stop]])] = True
     curve.update(
         {
             "longitude_deg": grid.longitude_deg,
@@ -462,7 +472,7 @@ def _night_curve(
             "limit_altitude_deg": round(marks.limit_alt, 4),
             "floor_altitude_deg": marks.floor_alt,
             "moon_separation_deg": np.degrees(np.arccos(moon_cos)).round(2).tolist(),
-            "usable": np.isin(view.mjd[lo:hi], usable_mjd).tolist(),
+            "usable": usable.tolist(),
         }
     )
     if marks.site.horizon:

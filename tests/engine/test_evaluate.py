@@ -8,14 +8,16 @@ from __future__ import annotations
 
 import copy
 import json
+from pathlib import Path
 from typing import Any
 
 import pytest
 
 import feasibility
-from feasibility.documents import InstrumentSchedule, Observatory, Proposal, parse_document
+from feasibility.documents import InstrumentSchedule, Observatory, Proposal, load_document, parse_document
 from feasibility.engine import check_proposal
 from feasibility.results import Level, ProposalResult, worst
+from tests.engine.conftest import DEMO_DATA
 
 REQUEST: dict[str, Any] = {
     "label": "bulge-V",
@@ -134,3 +136,20 @@ def test_conditions_reach_the_exposure_checks(demo_observatory: Observatory) -> 
     assert low.figures["hours_observable"] < high.figures["hours_observable"]
     # Common practice: extinction makes the source fainter at higher airmass, so the source rate drops.
     assert low.figures["source_rate_e_s"] > high.figures["source_rate_e_s"]
+
+
+def test_without_series_everything_but_the_series_is_the_same(demo_observatory: Observatory, demo_schedule: InstrumentSchedule) -> None:
+    """``series=False`` (what a stored run keeps) leaves every request's series empty and changes nothing else:
+    verdicts, findings (messages, figures, suggestions) and figures of every demo proposal, a moving target among them."""
+    paths = sorted(Path(str(DEMO_DATA / "proposals")).glob("*.yaml"))
+    assert paths
+    for path in paths:
+        proposal = load_document(Proposal, path)
+        full = check_proposal(proposal, demo_observatory, demo_schedule).model_dump(mode="json", exclude={"computed_at"})
+        lean = check_proposal(proposal, demo_observatory, demo_schedule, series=False).model_dump(mode="json", exclude={"computed_at"})
+        checked = [r for r in full["requests"] if r["verdict"] != Level.UNCHECKED.value]
+        assert checked and all(r["series"].get("night_curve") and r["series"].get("hours_usable") for r in checked), path.name
+        assert all(r["series"] == {} for r in lean["requests"]), path.name
+        for request in full["requests"]:
+            request["series"] = {}
+        assert lean == full, path.name
