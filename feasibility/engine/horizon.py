@@ -11,8 +11,6 @@ same abscissa and the wrap would be lost.
 
 from __future__ import annotations
 
-import functools
-
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
@@ -24,17 +22,25 @@ __all__ = ["horizon_altitude"]
 def horizon_altitude(site: Site, azimuth_deg: ArrayLike) -> NDArray[np.float64]:
     """The profile's altitude (degrees) towards ``azimuth_deg`` (from north through east); 0 without a profile."""
     azimuth = np.asarray(azimuth_deg, dtype=float) % 360.0
-    azimuths, altitudes = site.horizon_profile()
-    if not azimuths:
+    if not site.horizon:
         return np.zeros_like(azimuth)
-    abscissae, ordinates = _wrapped(tuple(azimuths), tuple(altitudes))
-    return np.interp(azimuth, abscissae, ordinates)
+    key = tuple((point.azimuth_deg, point.altitude_deg) for point in site.horizon)
+    table = _WRAPPED.get(key)
+    if table is None:
+        table = _wrapped(*site.horizon_profile())
+        if len(_WRAPPED) >= 32:
+            _WRAPPED.clear()
+        _WRAPPED[key] = table
+    return np.interp(azimuth, *table)
 
 
-@functools.lru_cache(maxsize=32)
-def _wrapped(azimuths: tuple[float, ...], altitudes: tuple[float, ...]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+#: The interpolation table of each horizon profile seen, by its points (a few sites).
+_WRAPPED: dict[tuple[tuple[float, float], ...], tuple[NDArray[np.float64], NDArray[np.float64]]] = {}
+
+
+def _wrapped(azimuths: list[float], altitudes: list[float]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """The folded profile with its last point repeated 360° before the first and its first 360° after the last:
     the table ``np.interp(..., period=360)`` builds (and sorts) on every call, built once per profile (the night
-    curve and the visible mask ask for it on every request)."""
+    curve and the what-if's visible mask ask for it on every request)."""
     xp, fp = np.asarray(azimuths, dtype=float), np.asarray(altitudes, dtype=float)
     return np.concatenate((xp[-1:] - 360.0, xp, xp[0:1] + 360.0)), np.concatenate((fp[-1:], fp, fp[0:1]))

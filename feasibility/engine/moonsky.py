@@ -102,7 +102,7 @@ def moon_brightness(phase_angle_deg: ArrayLike) -> Array:
 def dark_sky_nl(zenith_mag_arcsec2: float, extinction: float, zenith_deg: ArrayLike) -> Array:
     """The dark sky (nL) at zenith angle ``zenith_deg`` given its zenith brightness (eq. 2)."""
     x = optical_path(zenith_deg)
-    return nanolamberts_from_mag(zenith_mag_arcsec2) * np.exp(-0.4 * _LN10 * extinction * (x - 1.0)) * x
+    return _zenith_nanolamberts(zenith_mag_arcsec2) * np.exp(-0.4 * _LN10 * extinction * (x - 1.0)) * x
 
 
 def moon_term(phase_angle_deg: ArrayLike, moon_zenith_deg: ArrayLike, extinction: float) -> Array:
@@ -132,9 +132,16 @@ def sky_components_nl(zenith_mag_arcsec2: float, extinction: float, sin_altitude
     """
     grid, dark_factor, path_factor = _zenith_tables(float(extinction))
     sin_alt = np.asarray(sin_altitude, dtype=float)
-    dark = nanolamberts_from_mag(zenith_mag_arcsec2) * np.interp(sin_alt, grid, dark_factor)
+    dark = _zenith_nanolamberts(zenith_mag_arcsec2) * np.interp(sin_alt, grid, dark_factor)
     scattering = np.interp(np.asarray(separation_deg, dtype=float), _RHO_TABLE, _SCATTERING_TABLE)
     return dark, scattering * np.asarray(term, dtype=float) * np.interp(sin_alt, grid, path_factor)
+
+
+@functools.lru_cache(maxsize=256)
+def _zenith_nanolamberts(zenith_mag_arcsec2: float) -> float:
+    """:func:`nanolamberts_from_mag` of a zenith sky: a few values per site (its bands, its spectra's wavelengths)
+    asked twice per request, where NumPy's scalar overhead costs more than the sum."""
+    return float(nanolamberts_from_mag(zenith_mag_arcsec2))
 
 
 @functools.lru_cache(maxsize=64)

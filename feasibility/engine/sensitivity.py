@@ -51,6 +51,7 @@ Howell, S. B., *Handbook of CCD Astronomy*, Cambridge University Press.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 from typing import Any
@@ -225,8 +226,10 @@ class ExposureMeasure:
     alternatives: Alternatives | None
     """Changes priced when the design point misses the goal in the hours requested (else None)."""
 
+    @functools.cached_property
     def point_figures(self) -> dict[str, Any]:
-        """The conditions each point was computed at."""
+        """The conditions each point was computed at (worked out once: the result's figures and the sensitivity
+        finding's both carry them; each spreads them into its own dict)."""
         figures: dict[str, Any] = {"design_percentile": self.design.percent}
         for suffix, point, signal in (("design", self.design, self.signal), ("typical", self.typical, self.typical_signal)):
             figures[f"airmass_{suffix}"] = _round(point.airmass, 4)
@@ -243,7 +246,7 @@ class ExposureMeasure:
             "hours_needed_typical": _round(self.typical_plan.hours, 4),
             "snr_expected_typical": _round(self.typical_budget.snr, 3),
             "snr_goal": request.goal.snr,
-            **self.point_figures(),
+            **self.point_figures,
             "source_rate_e_s": _round(signal.source_e_s, 5),
             "sky_rate_e_s_pix": _round(signal.sky_e_s_pix, 5),
             "dark_e_s_pix": signal.dark_e_s_pix,
@@ -296,7 +299,7 @@ class ExposureMeasure:
             "exposures_in_hours_requested": self.budget.exposures,
             "exposure_time_s_in_hours_requested": _round(self.budget.exposure_time_s, 6),
             "hours_needed_faint": _round(faint, 4) if faint is not None else None,
-            **self.point_figures(),
+            **self.point_figures,
         }
 
 
@@ -770,4 +773,8 @@ def _round(value: float | None, digits: int) -> float | None:
         return None
     if value == 0:
         return 0.0
-    return float(f"{value:.{digits}g}")
+    return float(format(value, _SIGNIFICANT[digits]))  # the format spec looked up, not built: a result rounds some 40 figures
+
+
+#: Format specs for 0 to 9 significant digits (".4g"...), for :func:`_round`.
+_SIGNIFICANT = tuple(f".{digits}g" for digits in range(10))
