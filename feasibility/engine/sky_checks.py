@@ -448,8 +448,13 @@ def _night_curve(
         night = grid.n_nights // 2
     view = grid.samples(0.0)
     lo, hi = view.night_starts[night], view.night_starts[night + 1]
-    vector = target if isinstance(target, np.ndarray) else target.directions(view, int(lo), int(hi))
-    up = along(view.up[lo:hi], vector)
+    if isinstance(target, np.ndarray) and view.size == grid.mjd.size:
+        # A fixed target: east, north, up and the Moon in one product over the night's rows of the grid's basis
+        # (the Sun-down view holds every instant of the grid, in order), a third of the cost of four.
+        east, north, up, moon = (grid.basis[lo:hi].reshape(-1, 3) @ target).reshape(-1, 4).T
+    else:
+        vector = target if isinstance(target, np.ndarray) else target.directions(view, int(lo), int(hi))
+        east, north, up, moon = (along(rows[lo:hi], vector) for rows in (view.east, view.north, view.up, view.moon))
     shared = grid.night_sky_curve(night)
     curve: dict[str, object] = {
         "night": shared["night"],
@@ -458,7 +463,7 @@ def _night_curve(
     }
     if marks is None:
         return curve
-    moon_cos = np.clip(along(view.moon[lo:hi], vector), -1.0, 1.0)
+    moon_cos = np.clip(moon, -1.0, 1.0)
     start, stop = marks.view.night_starts[night], marks.view.night_starts[night + 1]
     # The usable instants are some of this night's Sun-down instants (the same grid times): their places among
     # them, by one sorted search, mark them (np.isin would sort both arrays for the same answer).
@@ -476,7 +481,7 @@ def _night_curve(
         }
     )
     if marks.site.horizon:
-        azimuth = np.degrees(np.arctan2(along(view.east[lo:hi], vector), along(view.north[lo:hi], vector)))
+        azimuth = np.degrees(np.arctan2(east, north))
         curve["horizon_alt_deg"] = horizon_altitude(marks.site, azimuth).round(2).tolist()
     return curve
 
