@@ -19,7 +19,7 @@ from feasibility.engine.horizon import horizon_altitude
 from feasibility.engine.positions import along
 from feasibility.engine.skygrid import NightSamples
 
-__all__ = ["in_windows", "to_mjd", "visible_mask", "window_nights"]
+__all__ = ["horizon_top", "in_windows", "to_mjd", "visible_mask", "window_nights"]
 
 _MJD_UNIX_EPOCH = 40587.0
 
@@ -60,7 +60,7 @@ def _clear_below_horizon_profile(
     Only instants lower than the profile's highest point need their azimuth, so
     with the usual airmass limits the profile costs nothing.
     """
-    top = max(p.altitude_deg for p in site.horizon)
+    top = horizon_top(site)
     if top <= min_alt:
         return
     low = np.flatnonzero(visible & (sin_alt < math.sin(math.radians(top))))
@@ -69,6 +69,12 @@ def _clear_below_horizon_profile(
     azimuth = np.degrees(np.arctan2(along(np.take(view.east, low, axis=0), vector, low), along(np.take(view.north, low, axis=0), vector, low)))
     floor = horizon_altitude(site, azimuth)
     visible[low[np.degrees(np.arcsin(sin_alt[low])) < floor]] = False
+
+
+def horizon_top(site: Site) -> float:
+    """The horizon profile's highest altitude (degrees; −90 without a profile): instants at or above it, and every
+    instant with a lower limit at or above it, need no azimuth."""
+    return max((point.altitude_deg for point in site.horizon), default=-90.0)
 
 
 def in_windows(windows: Sequence[TimeWindow], mjd: NDArray[np.float64]) -> NDArray[np.bool_]:

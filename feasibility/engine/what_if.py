@@ -18,7 +18,7 @@ from numpy.typing import NDArray
 from feasibility.documents import Site
 from feasibility.engine.airmass import limit_altitude
 from feasibility.engine.positions import along
-from feasibility.engine.sky_masks import visible_mask
+from feasibility.engine.sky_masks import horizon_top, visible_mask
 from feasibility.engine.skygrid import NightSamples
 
 __all__ = ["Hours", "SkyProbe"]
@@ -58,12 +58,15 @@ class SkyProbe:
     def visible(self, airmass_limit: float | None = None, *, windows: bool = True) -> Hours:
         """Visible hours with ``airmass_limit`` (default: the request's) and with or without the time windows.
 
-        The same instants as :func:`visible_mask` with that limit: the instants visible at the floor
-        (:attr:`floor_alt`, every other limit kept) are found once, and each limit only thresholds
-        their altitudes (a search over limits costs a fraction of a full pass each).
+        The same instants as :func:`visible_mask` with that limit. A limit at or above the horizon profile's top
+        needs no azimuth: its mask is computed directly. Below it, the instants visible at the floor
+        (:attr:`floor_alt`, every other limit kept, the profile applied) are found once, and each limit only
+        thresholds their altitudes (a search over limits costs a fraction of a full pass each).
         """
         limit = self.airmass_limit if airmass_limit is None else airmass_limit
         min_alt = max(limit_altitude(limit, self.formula), self.floor_alt)
+        if min_alt >= horizon_top(self.site):
+            return self._hours(self._visible(limit, windows))
         sin_alt, nights = self._above_floor(windows)
         chosen = nights[sin_alt >= math.sin(math.radians(min_alt))]
         return self._hours_from_counts(np.bincount(chosen, minlength=self.view.night_starts.size - 1))

@@ -2,7 +2,8 @@
 
 - The search for an airmass limit that fits (``SkyProbe.visible``) thresholds the
   altitudes of the instants visible at the site's and telescope's floor, found
-  once, instead of running the whole visibility mask again for every limit tried.
+  once, instead of running the whole visibility mask again for every limit tried (a limit
+  at or above the horizon profile's top runs its own mask, which needs no azimuth).
   Here every limit from 1.1 to 6.0 (with and without the time windows, with the
   demo site's horizon profile) is held to the per-instant path: the mask of
   :func:`feasibility.engine.sky_masks.visible_mask` over every instant, counted
@@ -17,6 +18,7 @@ the exact path does; no grid step at a crossing may differ).
 
 from __future__ import annotations
 
+import math
 import random
 from collections import Counter
 from typing import Any
@@ -26,6 +28,7 @@ import pytest
 
 from feasibility.documents import InstrumentSchedule, ObservationRequest, Observatory, parse_document
 from feasibility.engine import sky_findings
+from feasibility.engine import wording as w
 from feasibility.engine.airmass import limit_altitude
 from feasibility.engine.sky_checks import measure_sky, night_availability
 from feasibility.engine.sky_masks import in_windows, visible_mask
@@ -92,6 +95,29 @@ def test_the_airmass_limit_search_matches_the_per_instant_path(measured, demo_ob
                 assert fast.clear == float(exact @ probe.weather)
     assert compared == REQUESTS * 2 * len(LIMITS)
     assert differing == 0  # not even one grid step at a crossing
+
+
+def test_the_suggested_airmass_limit_is_the_first_that_fits(measured) -> None:
+    """The search (galloping up from the smallest limit, then bisecting) names the limit a plain scan over every
+    candidate finds first, with the same hours, and says so when even the largest does not fit."""
+    searched = 0
+    for _, sky in measured:
+        probe = sky.probe
+        if not probe.airmass_binds(sky.airmass_limit) or not math.isfinite(sky.lowest_airmass):
+            continue
+        needed = sky.hours_requested
+        candidates = [k / 10 for k in range(math.floor(sky.airmass_limit * 10 + 1), 61)]
+        candidates = [c for c in candidates if probe.airmass_binds(c) or c == candidates[0]]
+        first = next((c for c in candidates if sky_findings._fits(probe.visible(c), needed, sky.has_windows)), None)
+        text = sky_findings._airmass_that_fits(sky, probe, needed)
+        if first is not None:
+            assert text == f"airmass limit {w.airmass(first)} would give {sky_findings._gives(probe.visible(first))}"
+        elif probe.visible(candidates[-1]).total > sky.total_visible:
+            assert text is not None and text.startswith(f"even airmass limit {w.airmass(candidates[-1])} ")
+        else:
+            assert text is None
+        searched += 1
+    assert searched > 50
 
 
 def test_the_request_limit_matches_the_measured_visible_hours(measured) -> None:
