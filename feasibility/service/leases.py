@@ -117,13 +117,14 @@ def _is_zombie(pid: int) -> bool:
 class Heartbeat:
     """Renews the claims of a batch of runs every third of a lease, in one thread and one UPDATE, while they compute (a context manager).
 
-    ``claims``: run id → our attempt. It stops renewing after ``max_running``, and
+    ``claims``: run id → our attempt. It stops renewing when one run has computed for
+    longer than ``max_running`` (each run's time counts from :meth:`computing`), and
     notes the runs whose claim was taken over in ``lost`` (their results will then be
     dropped by the finish); the others are still renewed.
     """
 
     def __init__(self, claims: Mapping[int, int], lease: timedelta, max_running: timedelta) -> None:
-        self.claims, self.lease = dict(claims), lease
+        self.claims, self.lease, self.max_running = dict(claims), lease, max_running
         self.deadline = utcnow() + max_running
         self.lost: set[int] = set()
         self._stop = threading.Event()
@@ -133,6 +134,10 @@ class Heartbeat:
     def __enter__(self) -> Heartbeat:
         self._thread.start()
         return self
+
+    def computing(self) -> None:
+        """The next run of the batch starts computing: it may take ``max_running`` from now (a hung one loses the leases)."""
+        self.deadline = utcnow() + self.max_running
 
     def __exit__(self, *_: object) -> None:
         self._stop.set()

@@ -126,13 +126,18 @@ def execute_runs(run_ids: Sequence[int]) -> Batch:
     """
     ids = list(dict.fromkeys(int(run_id) for run_id in run_ids))
     batch = Batch()
+    if not ids:
+        return batch
     with working_on(*ids):
         claims = _claim(ids, batch)
         if not claims:
             return batch
-        with Heartbeat({claim.run_id: claim.attempt for claim in claims}, lease_length(), _run_timeout()):
+        with Heartbeat({claim.run_id: claim.attempt for claim in claims}, lease_length(), _run_timeout()) as heartbeat:
             try:
-                outcomes = {claim.run_id: _compute(claim) for claim in claims}
+                outcomes = {}
+                for claim in claims:
+                    heartbeat.computing()
+                    outcomes[claim.run_id] = _compute(claim)
                 # A proposal's runs are stored in batch order, one a transaction, as if stored one after the other:
                 # each verdict change is then recorded against the run stored just before it.
                 for part in _rounds(claims):

@@ -238,6 +238,23 @@ def test_migration_0007_drops_the_copies_and_keeps_results_readable(store: str, 
     engine.dispose()
 
 
+def test_the_batch_heartbeat_allows_each_run_its_own_time(ctx: Flask, fake_engine: FakeEngine) -> None:
+    (run_id,) = _new_runs("L-3")
+    start = utcnow()
+    with session_scope() as session:
+        session.execute(update(CheckRun).where(CheckRun.id == run_id).values(state="running", attempts=1, started_at=start, lease_expires_at=start))
+    # At most 0.25 s a run, beats every 0.1 s: five runs of 0.15 s each keep the leases renewed past the first run's limit.
+    with Heartbeat({run_id: 1}, timedelta(seconds=0.3), timedelta(seconds=0.25)) as heartbeat:
+        for _ in range(5):
+            heartbeat.computing()
+            threading.Event().wait(0.15)
+        assert heartbeat._thread.is_alive()
+        with session_scope() as session:
+            assert (session.get_one(CheckRun, run_id).lease_expires_at or start) > start + timedelta(seconds=0.6)
+        threading.Event().wait(0.5)  # the last run hangs: the heartbeat stops, the lease is left to lapse
+        assert not heartbeat._thread.is_alive()
+
+
 class _Retry(Exception):
     pass
 
