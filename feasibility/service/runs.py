@@ -151,8 +151,9 @@ def execute_runs(run_ids: Sequence[int]) -> Batch:
 def check(proposal: Proposal, observatory: Observatory, schedule: InstrumentSchedule | None) -> ProposalResult:
     """Call the engine (looked up at call time, so tests may replace ``feasibility.engine.check_proposal``).
 
-    The stored result keeps no plot series (:func:`~feasibility.service.details.compact_result`):
-    an engine that can leave them out is asked to here, and the compact form is the same either way.
+    The stored result keeps no plot series (:func:`~feasibility.service.details.compact_result`
+    gives the same compact form either way): once the engine can leave them out, ``series=False``
+    is the one argument to add here.
     """
     from feasibility import engine
 
