@@ -357,25 +357,8 @@ class Service:
         return peaks
 
     def sizes(self) -> dict[str, Any]:
-        """Bytes on disk: every table (pg_total_relation_size: data, indexes, TOAST), the largest first, and the mean
-        stored result JSON of the done runs."""
-        with self.db.connect() as connection:
-            rows = connection.execute(
-                text(
-                    "SELECT c.relname, pg_total_relation_size(c.oid) FROM pg_class c JOIN pg_namespace n ON n.oid = c.relnamespace "
-                    "WHERE c.relkind = 'r' AND n.nspname = 'public' ORDER BY 2 DESC"
-                )
-            ).all()
-            result_bytes, result_disk = connection.execute(
-                text("SELECT avg(octet_length(result::text)), avg(pg_column_size(result)) FROM check_runs WHERE state = 'done'")
-            ).one()
-        tables = [(str(name), int(size)) for name, size in rows]
-        return {
-            "tables": tables,
-            "total": sum(size for _, size in tables),
-            "result_bytes": float(result_bytes or 0.0),
-            "result_disk": float(result_disk or 0.0),
-        }
+        """Bytes on disk of the store (:func:`store_sizes`)."""
+        return store_sizes(self.db)
 
     def __exit__(self, *exc: object) -> None:
         for process in self.processes:
@@ -402,6 +385,28 @@ class Service:
     def _spawn(self, command: list[str], name: str) -> None:
         with (self.logs / f"{name}.log").open("wb") as handle:
             self.processes.append(subprocess.Popen(command, env=self.env, stdout=handle, stderr=subprocess.STDOUT))
+
+
+def store_sizes(db: Any) -> dict[str, Any]:
+    """Bytes on disk: every table (pg_total_relation_size: data, indexes, TOAST), the largest first, and the mean
+    stored result JSON of the done runs."""
+    with db.connect() as connection:
+        rows = connection.execute(
+            text(
+                "SELECT c.relname, pg_total_relation_size(c.oid) FROM pg_class c JOIN pg_namespace n ON n.oid = c.relnamespace "
+                "WHERE c.relkind = 'r' AND n.nspname = 'public' ORDER BY 2 DESC"
+            )
+        ).all()
+        result_bytes, result_disk = connection.execute(
+            text("SELECT avg(octet_length(result::text)), avg(pg_column_size(result)) FROM check_runs WHERE state = 'done'")
+        ).one()
+    tables = [(str(name), int(size)) for name, size in rows]
+    return {
+        "tables": tables,
+        "total": sum(size for _, size in tables),
+        "result_bytes": float(result_bytes or 0.0),
+        "result_disk": float(result_disk or 0.0),
+    }
 
 
 def _process_table() -> dict[int, tuple[int, float, str]]:

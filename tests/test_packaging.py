@@ -86,7 +86,7 @@ def test_every_imported_distribution_is_declared(folders: tuple[str, ...], extra
     declared = _declared(project["dependencies"])
     for extra in extras:
         declared |= _declared(project["optional-dependencies"][extra])
-    ours = {"feasibility", "worker", "tests", "web", "test_exposure", "integration", "conftest", "support", "private_services"}
+    ours = {"feasibility", "worker", "tests", "web", "test_exposure", "integration", "conftest", "support", "private_services", "bench_service"}
     providers = packages_distributions()
     missing = {}
     for name in sorted(_imported_top_level_modules(*folders) - set(sys.stdlib_module_names) - ours):

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import logging
 import random
-from collections import Counter
 from typing import Any
 
 from celery import shared_task
@@ -13,7 +12,7 @@ from sqlalchemy.exc import SQLAlchemyError
 
 from feasibility.service.dispatch import CHECK_BATCH_TASK, CHECK_TASK, RUNS_HEADER
 from feasibility.service.relay import relay
-from feasibility.service.runs import LeaseHeld, execute_run
+from feasibility.service.runs import LeaseHeld, execute_run, execute_runs
 from feasibility.service.runtime import current_runtime
 from feasibility.store.db import dispose_pools_after_fork
 
@@ -53,34 +52,28 @@ def check_run(task: Any, run_id: int) -> str:
 
 @shared_task(bind=True, name=CHECK_BATCH_TASK, max_retries=None)
 def check_runs(task: Any, run_ids: list[int]) -> dict[str, int]:
-    """Compute and store several check runs one after the other, each as :func:`check_run` does: its own claim, lease and store.
+    """Compute and store several check runs together (:func:`~feasibility.service.runs.execute_runs`): one claim, one
+    heartbeat and one store for the batch, each run finished only while its own claim is ours.
 
     The message is acknowledged once the batch is through (late ack): a worker that dies
     mid-batch leaves it to be delivered again, and the runs already done are then skipped.
     Runs whose lease a live worker holds are sent again as one message when the last of
-    those leases would lapse; a passing database fault sends the rest of the batch again
-    with back-off (the run that met it gave its claim back first). Returns how many runs
-    ended each way.
+    those leases would lapse; a passing database fault sends the batch again with back-off
+    (its claims were given back first; the runs already done are skipped then). Returns
+    how many runs ended each way.
     """
-    ended: Counter[str] = Counter()
-    held: list[int] = []
-    wait = 0.0
-    for position, run_id in enumerate(run_ids):
-        try:
-            ended[execute_run(run_id)] += 1
-        except LeaseHeld as lease:
-            held.append(run_id)
-            wait = max(wait, lease.retry_in)
-        except SQLAlchemyError as exc:  # the store is away: the runs left would meet it too
-            rest = held + list(run_ids[position:])
-            tries = task.request.retries
-            if tries >= _DB_RETRIES:
-                log.error("check runs %s: database faults on %d tries; left for the relay", rest, tries)
-                return dict(ended)
-            raise task.retry(args=[rest], exc=exc, countdown=_backoff(tries), headers={RUNS_HEADER: len(rest)}) from exc
-    if held:
-        raise task.retry(args=[held], countdown=wait, headers={RUNS_HEADER: len(held)})
-    return dict(ended)
+    try:
+        batch = execute_runs(run_ids)
+    except SQLAlchemyError as exc:  # the store is away: the whole batch again, later
+        tries = task.request.retries
+        if tries >= _DB_RETRIES:
+            log.error("check runs %s: database faults on %d tries; left for the relay", run_ids, tries)
+            return {}
+        raise task.retry(args=[list(run_ids)], exc=exc, countdown=_backoff(tries), headers={RUNS_HEADER: len(run_ids)}) from exc
+    if batch.held:
+        held = list(batch.held)
+        raise task.retry(args=[held], countdown=max(batch.held.values()), headers={RUNS_HEADER: len(held)})
+    return dict(batch.ended)
 
 
 def _backoff(tries: int) -> float:

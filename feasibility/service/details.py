@@ -1,12 +1,14 @@
 """A check run's stored result, compact, and its details recomputed on demand.
 
 A run stores a compact result (:func:`compact_result`): the verdicts, every
-finding (check, level, message, figures, suggestion, cause) and every request's
-figures. Left out are what is bulky and can be computed again: each request's
-per-night plot series and each finding's ``method`` text (the same for every
-run of an engine version). They make most of a full result's size (about 75 of
-its 118 KB for five requests), and a page asks for them only when a person
-looks at one proposal.
+finding (check, level, message, suggestion, cause) and every request's figures.
+Left out are what is bulky and can be computed again: each request's per-night
+plot series, each finding's ``method`` text (the same for every run of an engine
+version) and each finding's figures (the numbers behind its message; the request's
+key figures are kept). They make most of a full result's size (about 100 of its
+118 KB for five requests), and a page asks for them only when a person looks at
+one proposal. Compact results stored before finding figures were left out keep
+theirs.
 
 :func:`full_result` gives the result as the engine returned it. A result in the
 older, full form (stored before this) is returned as it is. A compact one gets
@@ -44,19 +46,23 @@ log = logging.getLogger(__name__)
 FORM_KEY = "form"
 COMPACT = "compact"
 
-#: Recomputed details kept per process (run id -> per request: series and the findings' methods).
+#: Recomputed details kept per process (run id -> per request: series, and the findings' methods and figures).
 DETAILS_CACHE_SIZE = 32
 
 #: What the compact form leaves out of a :class:`ProposalResult`.
-_LEFT_OUT: Any = {"requests": {"__all__": {"series": True, "findings": {"__all__": {"method"}}}}}
+_LEFT_OUT: Any = {"requests": {"__all__": {"series": True, "findings": {"__all__": {"method", "figures"}}}}}
 
-_Details = list[tuple[dict[str, Any], list[str | None]]]
+#: Per request: its series, and per finding its method and figures.
+_Details = list[tuple[dict[str, Any], list[tuple[str | None, dict[str, Any]]]]]
 _cache: OrderedDict[RunKey, _Details | None] = OrderedDict()
 _cache_lock = threading.Lock()
 
 
 def compact_result(result: ProposalResult) -> dict[str, Any]:
-    """``result`` as stored: without plot series nor method texts, marked compact."""
+    """``result`` as stored: without plot series, method texts nor finding figures, marked compact.
+
+    The same whether or not the engine computed the series (they are never written).
+    """
     stored = result.model_dump(mode="json", exclude=_LEFT_OUT)
     stored[FORM_KEY] = COMPACT
     return stored
@@ -68,7 +74,7 @@ def is_compact(stored: Any) -> bool:
 
 
 def full_result(session: Session, run: CheckRun) -> dict[str, Any] | None:
-    """Run ``run``'s result with series and methods (recomputed for a compact result); None when it has none.
+    """Run ``run``'s result with series, methods and finding figures (recomputed for a compact result); None when it has none.
 
     The answer is a new dict (the stored one is not changed) without the form marker,
     shaped as :class:`ProposalResult`. A compact result whose details cannot be
@@ -81,14 +87,22 @@ def full_result(session: Session, run: CheckRun) -> dict[str, Any] | None:
         return stored
     answer = {k: v for k, v in stored.items() if k != FORM_KEY}
     details = _details(session, run)
-    if details is None:
+    if details is None:  # still shaped as a ProposalResult: findings without figures show none
+        answer["requests"] = [_with_empty_figures(raw) for raw in stored.get("requests") or []]
         return answer
     requests = []
-    for raw, (series, methods) in zip(stored.get("requests") or [], details):
-        findings = [{**finding, "method": method} for finding, method in zip(raw.get("findings") or [], methods)]
+    for raw, (series, per_finding) in zip(stored.get("requests") or [], details):
+        findings = [{"figures": figures, **finding, "method": method} for finding, (method, figures) in zip(raw.get("findings") or [], per_finding)]
         requests.append({**raw, "findings": findings, "series": series})
     answer["requests"] = requests
     return answer
+
+
+def _with_empty_figures(raw: Any) -> Any:
+    """A stored request whose findings lack their figures (left out, not recomputed) given empty ones: the result's shape."""
+    if not isinstance(raw, dict):
+        return raw
+    return {**raw, "findings": [{"figures": {}, **f} if isinstance(f, dict) else f for f in raw.get("findings") or []]}
 
 
 def details_missing_reason(run: CheckRun) -> str | None:
@@ -116,7 +130,7 @@ def run_key(session: Session, run: CheckRun) -> RunKey:
 
 
 def _details(session: Session, run: CheckRun) -> _Details | None:
-    """Series and methods of each request of compact ``run``: from the cache, or the engine run again."""
+    """Series, methods and finding figures of each request of compact ``run``: from the cache, or the engine run again."""
     key = run_key(session, run)
     with _cache_lock:
         if key in _cache:
@@ -149,7 +163,10 @@ def _recompute(session: Session, run: CheckRun) -> _Details | None:
     if not _same(stored, again):
         log.warning("check run %s: the engine now gives another result for its inputs; its details are not shown", run.id)
         return None
-    return [(request.series, [finding.method for finding in request.findings]) for request in again.requests]
+    return [
+        (request.series, [(finding.method, finding.model_dump(mode="json", include={"figures"})["figures"]) for finding in request.findings])
+        for request in again.requests
+    ]
 
 
 def _document(session: Session, kind: Any, model: Any, row_id: int) -> Any:

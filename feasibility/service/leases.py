@@ -1,4 +1,4 @@
-"""Leases on check runs: a claim lasts ``LEASE_S`` seconds and a heartbeat renews it while the run computes.
+"""Leases on check runs: a claim lasts ``LEASE_S`` seconds and a heartbeat renews it while the run computes (one for a batch).
 
 A worker that dies stops renewing, so its claim lapses within one lease and the
 run can be taken over then — not after the longest a check could ever take.
@@ -15,12 +15,11 @@ import logging
 import os
 import socket
 import threading
-from collections.abc import Iterator
+from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from datetime import datetime, timedelta
-from typing import Any, cast
 
-from sqlalchemy import CursorResult, Table, update
+from sqlalchemy import Table, tuple_, update
 from sqlalchemy.exc import SQLAlchemyError
 
 from feasibility.logs import run_context
@@ -58,22 +57,24 @@ def active_here(run_id: int) -> bool:
 
 
 @contextmanager
-def working_on(run_id: int) -> Iterator[None]:
-    """Mark ``run_id`` as being claimed or computed by this process, from before its claim until the run is left.
+def working_on(*run_ids: int) -> Iterator[None]:
+    """Mark ``run_ids`` as being claimed or computed by this process, from before their claim until they are left.
 
     So another thread here (the relay, a second message) never takes a claim of ours
     for a stale one while it is being made or used.
     """
     with _active_lock:
-        _active[run_id] = _active.get(run_id, 0) + 1
+        for run_id in run_ids:
+            _active[run_id] = _active.get(run_id, 0) + 1
     try:
         yield
     finally:
         with _active_lock:
-            if _active[run_id] <= 1:
-                del _active[run_id]
-            else:
-                _active[run_id] -= 1
+            for run_id in run_ids:
+                if _active[run_id] <= 1:
+                    del _active[run_id]
+                else:
+                    _active[run_id] -= 1
 
 
 def holder_is_gone(owner: str | None, run_id: int, *, ours: int = 0) -> bool:
@@ -114,30 +115,36 @@ def _is_zombie(pid: int) -> bool:
 
 
 class Heartbeat:
-    """Renews one claim every third of a lease, in a thread, while the run computes (a context manager).
+    """Renews the claims of a batch of runs every third of a lease, in one thread and one UPDATE, while they compute (a context manager).
 
-    It stops renewing after ``max_running``, and notes when the claim was taken
-    over (the result will then be dropped by the finish).
+    ``claims``: run id → our attempt. It stops renewing when one run has computed for
+    longer than ``max_running`` (each run's time counts from :meth:`computing`), and
+    notes the runs whose claim was taken over in ``lost`` (their results will then be
+    dropped by the finish); the others are still renewed.
     """
 
-    def __init__(self, run_id: int, attempt: int, lease: timedelta, max_running: timedelta) -> None:
-        self.run_id, self.attempt, self.lease = run_id, attempt, lease
+    def __init__(self, claims: Mapping[int, int], lease: timedelta, max_running: timedelta) -> None:
+        self.claims, self.lease, self.max_running = dict(claims), lease, max_running
         self.deadline = utcnow() + max_running
-        self.lost = False
+        self.lost: set[int] = set()
         self._stop = threading.Event()
         self._runtime: Runtime | None = current_runtime()  # the heartbeat's thread starts with an empty context
-        self._thread = threading.Thread(target=self._run, name=f"lease-{run_id}", daemon=True)
+        self._thread = threading.Thread(target=self._run, name=f"lease-{min(self.claims, default=0)}", daemon=True)
 
     def __enter__(self) -> Heartbeat:
         self._thread.start()
         return self
 
+    def computing(self) -> None:
+        """The next run of the batch starts computing: it may take ``max_running`` from now (a hung one loses the leases)."""
+        self.deadline = utcnow() + self.max_running
+
     def __exit__(self, *_: object) -> None:
         self._stop.set()
-        self._thread.join(1.0)  # a renewal stuck on an unreachable store need not hold the run up: it matches nothing later
+        self._thread.join(1.0)  # a renewal stuck on an unreachable store need not hold the runs up: it matches nothing later
 
     def _run(self) -> None:
-        with run_context(self.run_id):  # the heartbeat's thread logs as the run's too
+        with run_context(min(self.claims, default=0)):  # the heartbeat's thread logs as the (first) run's too
             self._beat()
 
     def _beat(self) -> None:
@@ -145,25 +152,32 @@ class Heartbeat:
         while not self._stop.wait(interval):
             now = utcnow()
             if now > self.deadline:
-                log.warning("check run %s has computed longer than allowed; its lease is left to lapse", self.run_id)
+                log.warning("check runs %s have computed longer than allowed; their leases are left to lapse", sorted(self.claims))
                 return
             try:
-                if not self._renew(now + self.lease):
-                    self.lost = True
-                    log.warning("check run %s: claim %s was taken over", self.run_id, self.attempt)
-                    return
+                kept = self._renew(now + self.lease)
             except SQLAlchemyError as exc:  # the store restarting: try again at the next beat
-                log.warning("check run %s: lease not renewed (%s)", self.run_id, exc.__class__.__name__)
+                log.warning("check runs %s: leases not renewed (%s)", sorted(self.claims), exc.__class__.__name__)
+                continue
+            for run_id in set(self.claims) - kept:
+                log.warning("check run %s: claim %s was taken over", run_id, self.claims.pop(run_id))
+                self.lost.add(run_id)
+            if not self.claims:
+                return
 
-    def _renew(self, until: datetime) -> bool:
+    def _renew(self, until: datetime) -> set[int]:
         if self._runtime is None:
             return self._renew_here(until)
         with self._runtime.bound():
             return self._renew_here(until)
 
-    def _renew_here(self, until: datetime) -> bool:
+    def _renew_here(self, until: datetime) -> set[int]:
+        """Extend every claim still ours; the run ids renewed."""
         with session_scope() as session:
             statement = (
-                update(_RUNS).where(_RUNS.c.id == self.run_id, _RUNS.c.state == "running", _RUNS.c.attempts == self.attempt).values(lease_expires_at=until)
+                update(_RUNS)
+                .where(tuple_(_RUNS.c.id, _RUNS.c.attempts).in_(list(self.claims.items())), _RUNS.c.state == "running")
+                .values(lease_expires_at=until)
+                .returning(_RUNS.c.id)
             )
-            return bool(cast(CursorResult[Any], session.execute(statement)).rowcount)
+            return set(session.execute(statement).scalars())

@@ -255,7 +255,7 @@ class CheckRun(Base):
 
 
 class RequestOutcome(Base):
-    """One observation request's verdict and key figures in one run, queryable."""
+    """One observation request's verdict and key figures in one run, queryable; all its figures are in the run's result."""
 
     __tablename__ = "request_outcomes"
 
@@ -269,14 +269,16 @@ class RequestOutcome(Base):
     hours_observable: Mapped[float | None] = mapped_column(Float)
     hours_needed: Mapped[float | None] = mapped_column(Float)
     snr_expected: Mapped[float | None] = mapped_column(Float)
-    figures: Mapped[dict[str, Any]]
 
     run: Mapped[CheckRun] = relationship(back_populates="outcomes")
     findings: Mapped[list[FindingRow]] = relationship(back_populates="outcome", cascade="all, delete-orphan", order_by="FindingRow.id")
 
 
 class FindingRow(Base):
-    """One finding of one request in one run, for the lists' filters. Newer runs keep its figures in the run's result only."""
+    """A finding that is not ``feasible`` of one request in one run: what the lists filter and sort on (check, level).
+
+    Its words and figures live in the run's result only (migration 0007); feasible findings have no row.
+    """
 
     __tablename__ = "findings"
 
@@ -284,10 +286,6 @@ class FindingRow(Base):
     outcome_id: Mapped[int] = mapped_column(ForeignKey("request_outcomes.id"), index=True)
     check: Mapped[str] = mapped_column(String(40), index=True)
     level: Mapped[str] = mapped_column(String(12), index=True)
-    message: Mapped[str] = mapped_column(Text)
-    suggestion: Mapped[str | None] = mapped_column(Text)
-    method: Mapped[str | None] = mapped_column(Text, doc="How the figures were computed, with the published source.")
-    figures: Mapped[dict[str, Any]]
 
     outcome: Mapped[RequestOutcome] = relationship(back_populates="findings")
 

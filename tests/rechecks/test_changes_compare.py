@@ -62,7 +62,7 @@ def _outcome(**figures: Any) -> Any:
     from feasibility.store.models import RequestOutcome
 
     values = {"hours_requested": 4.0, "hours_observable": 40.0, "hours_needed": 4.0, "snr_expected": 50.0, **figures}
-    return RequestOutcome(label="a", instrument="HERON", target="T", verdict="feasible", figures={}, **values)
+    return RequestOutcome(label="a", instrument="HERON", target="T", verdict="feasible", **values)
 
 
 def test_the_run_history_uses_the_same_rule_as_the_notices() -> None:

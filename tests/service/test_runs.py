@@ -49,7 +49,7 @@ def test_running_a_task_twice_stores_one_result(ctx: Flask, fake_engine: FakeEng
     with session_scope() as session:
         run = session.get_one(CheckRun, run_id)
         assert (run.state, run.verdict, run.attempts) == ("done", "feasible", 1)
-        assert session.scalar(select(func.count()).select_from(FindingRow)) == 2
+        assert session.scalar(select(func.count()).select_from(FindingRow)) == 0  # feasible findings have no row (the lists ask for none)
 
 
 def test_two_workers_at_once_store_one_result(ctx: Flask, fake_engine: FakeEngine) -> None:
@@ -168,7 +168,7 @@ def test_a_database_fault_propagates_and_releases_the_claim(ctx: Flask, fake_eng
     def broken(*args: object) -> str:
         raise OperationalError("INSERT", {}, Exception("database is locked"))
 
-    monkeypatch.setattr("feasibility.service.runs._store_result", broken)
+    monkeypatch.setattr("feasibility.service.runs._store_together", broken)
     with pytest.raises(OperationalError):
         execute_run(run_id)
     with session_scope() as session:
