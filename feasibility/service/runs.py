@@ -151,13 +151,12 @@ def execute_runs(run_ids: Sequence[int]) -> Batch:
 def check(proposal: Proposal, observatory: Observatory, schedule: InstrumentSchedule | None) -> ProposalResult:
     """Call the engine (looked up at call time, so tests may replace ``feasibility.engine.check_proposal``).
 
-    The stored result keeps no plot series (:func:`~feasibility.service.details.compact_result`
-    gives the same compact form either way): once the engine can leave them out, ``series=False``
-    is the one argument to add here.
+    The stored result keeps no plot series (:func:`~feasibility.service.details.compact_result`),
+    so the engine is asked not to compute them; pages recompute them on demand with the full call.
     """
     from feasibility import engine
 
-    return engine.check_proposal(proposal, observatory, schedule)
+    return engine.check_proposal(proposal, observatory, schedule, series=False)
 
 
 def _compute(claim: _Claim) -> ProposalResult | _Failed:
