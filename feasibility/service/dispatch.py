@@ -36,6 +36,7 @@ __all__ = [
     "control_queue_name",
     "enqueue",
     "mark_with_commit",
+    "marks_with_commit",
     "queue_names",
 ]
 
@@ -121,11 +122,16 @@ def mark_with_commit(run: Any) -> bool:
     """
     from feasibility.store.models import utcnow
 
-    runtime = current_runtime()
-    if runtime is None or not getattr(runtime.dispatcher, "durable", False):
+    if not marks_with_commit():
         return False
     run.dispatched_at = utcnow()
     return True
+
+
+def marks_with_commit() -> bool:
+    """Whether runs sent right after their commit are marked sent in it (:func:`mark_with_commit`): the dispatcher's messages live in a broker."""
+    runtime = current_runtime()
+    return runtime is not None and bool(getattr(runtime.dispatcher, "durable", False))
 
 
 def _unmark(run_ids: list[int]) -> None:
