@@ -17,7 +17,7 @@ The caller commits, then enqueues the runs (:func:`feasibility.service.dispatch.
 whose :attr:`Submission.must_send` says so: a new run, and also a run found still
 queued — its first message may never have reached the broker, and a second is
 harmless (the task is idempotent). A run created here is unsent until then (or
-marked sent in advance with ``mark_sent``: :func:`~feasibility.service.dispatch.mark_with_commit`),
+marked sent in advance with ``mark_sent``: :func:`~feasibility.service.dispatch.marks_with_commit`),
 so the relay sends it should the caller fail to.
 """
 
@@ -123,7 +123,7 @@ def submit_many(
     if submitted_by is not None:
         access.check(submitted_by, access.SUBMIT)
     mappings = [_mapping(document) for document in documents]
-    forces = in_force(session, {m["semester"].strip() for m in mappings if isinstance(m, dict) and isinstance(m.get("semester"), str)})
+    forces = in_force(session, {name for m in mappings if (name := _semester_named(m)) is not None})
     if forces is None:
         return [_without_observatory(m) for m in mappings]
     observatory = forces.observatory(session)
@@ -325,6 +325,19 @@ def _mapping(document: dict[str, Any] | str | bytes) -> dict[str, Any] | Documen
         return read_mapping(document, DOCUMENT)
     except DocumentError as error:
         return error
+
+
+def _semester_named(data: dict[str, Any] | DocumentError) -> str | None:
+    """The semester a document names, asked of the store with what is in force before the document is validated.
+
+    Only plausible text (printable, short): the store refuses some (PostgreSQL any NUL), and
+    anything else is asked once validated (:func:`_schedule_keys`), as a name of the observatory's.
+    """
+    name = data.get("semester") if isinstance(data, dict) else None
+    if not isinstance(name, str):
+        return None
+    name = name.strip()
+    return name if 0 < len(name) <= 20 and name.isprintable() else None
 
 
 def _read(data: dict[str, Any], observatory: Any) -> Proposal | DocumentError:
