@@ -93,13 +93,14 @@ def _client(url: str, prefix: str) -> tuple[Callable[[list[dict[str, Any]], int]
     """A function posting proposals (one a request, or ``bulk`` a request) to a new app on ``url``; its statements; a closer."""
     from feasibility.store.db import session_scope
     from feasibility.store.migrate import upgrade
-    from feasibility.web import create_app
+    from feasibility.web import create_app, settle_for_serving
     from feasibility.web.auth import create_token, create_user
 
     upgrade(url)
     app = create_app(
         {"DATABASE_URL": url, "BROKER_URL": REDIS_URL, "QUEUE_PREFIX": prefix, "SWEEP_INTERVAL_S": 0, "RATE_LIMIT_SUBMISSIONS_PER_TOKEN": "1000000 per minute"}
     )
+    settle_for_serving()  # as the app does when a server builds it
     with app.app_context(), session_scope() as session:
         headers = {"Authorization": f"Bearer {create_token(session, create_user(session, 'bench-portal', 'portal'))}"}
     statements: list[str] = []
