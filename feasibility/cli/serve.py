@@ -31,7 +31,7 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
 
     from feasibility.settings import load_settings
     from feasibility.store.migrate import upgrade
-    from feasibility.web import create_app
+    from feasibility.web import create_app, settle_for_serving
 
     settings = load_settings()
     url = settings.store_url()
@@ -49,6 +49,7 @@ def serve(host: str, port: int, workers: int, demo: bool) -> None:
     dispatcher = app.extensions["feasibility.dispatch"]
     if hasattr(dispatcher, "start"):
         dispatcher.start()
+    settle_for_serving()
     server = make_server(host, port, app, threaded=True)
     mode = "Celery workers via BROKER_URL" if app.config["BROKER_URL"] else f"{workers} embedded workers"
     click.echo(f"Serving on http://{host}:{server.server_port}/  (dashboard: /, API: /api/v1, store: {safe_url(app.config['DATABASE_URL'])}, {mode})")

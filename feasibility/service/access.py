@@ -19,6 +19,8 @@ adds no rights beyond the role's.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 from sqlalchemy import ColumnElement, exists, false, or_, select, true
 from sqlalchemy.orm import Session, aliased
 
@@ -58,6 +60,7 @@ __all__ = [
     "check_new_version",
     "may",
     "may_see",
+    "new_version_refusals",
     "notice_recipients",
     "refusal",
     "roles_for",
@@ -196,22 +199,43 @@ def takes_ownership(submitted_by: User | None, on_behalf_of: User | None) -> Use
 
 
 def check_new_version(session: Session, record: ProposalRecord, user: User | None, owner: User | None) -> None:
-    """Raise :class:`NotAllowed` unless ``user`` may add a version to the existing proposal ``record``.
+    """Raise :class:`NotAllowed` unless ``user`` may add a version to the existing proposal ``record`` (see :func:`new_version_refusals`)."""
+    refusal = new_version_refusals(session, [record], user, owner).get(record.id)
+    if refusal is not None:
+        raise refusal
+
+
+def new_version_refusals(session: Session, records: Sequence[ProposalRecord], user: User | None, owner: User | None) -> dict[int, NotAllowed]:
+    """Why ``user`` may not add a version to each of the existing proposals ``records`` that it may not, by record id.
 
     The service itself (no user: the command line, re-checks) and :data:`SUBMIT_TO_ANY`
     roles add to any proposal; an owning role only to proposals it owns; a portal only to
     proposals it alone submitted — and the proposer it names must be the owner (an unowned
-    proposal is given to them here).
+    proposal is given to them here). One query for any number of records (who submitted their versions).
     """
-    if user is None or may(user, SUBMIT_TO_ANY):
-        return
+    if user is None or may(user, SUBMIT_TO_ANY) or not records:
+        return {}
+    by_others: set[int] = set()
+    if may(user, SUBMIT) and not may(user, OWN_PROPOSALS) and may(user, SEE_SUBMITTED):
+        others = or_(ProposalVersion.submitted_by.is_(None), ProposalVersion.submitted_by != user.id)
+        query = select(ProposalVersion.proposal_ref).where(ProposalVersion.proposal_ref.in_([r.id for r in records]), others).distinct()
+        by_others = set(session.scalars(query))
+    refusals: dict[int, NotAllowed] = {}
+    for record in records:
+        try:
+            _check_new_version(record, user, owner, submitted_by_others=record.id in by_others)
+        except NotAllowed as refusal:
+            refusals[record.id] = refusal
+    return refusals
+
+
+def _check_new_version(record: ProposalRecord, user: User, owner: User | None, *, submitted_by_others: bool) -> None:
     check(user, SUBMIT)
     if may(user, OWN_PROPOSALS):
         if record.owner_id != user.id:
             raise NotAllowed(f"proposal {record.proposal_id!r} belongs to another user")
     elif may(user, SEE_SUBMITTED):
-        by_others = or_(ProposalVersion.submitted_by.is_(None), ProposalVersion.submitted_by != user.id)
-        if session.scalar(select(exists().where(ProposalVersion.proposal_ref == record.id, by_others))):
+        if submitted_by_others:
             raise NotAllowed(f"proposal {record.proposal_id!r} was submitted by another user")
         if owner is not None:
             if record.owner_id is None:

@@ -16,7 +16,7 @@ import secrets
 from datetime import datetime
 from typing import Any, cast
 
-from sqlalchemy import CursorResult, select, update
+from sqlalchemy import CursorResult, bindparam, select, update
 from sqlalchemy.orm import Session
 from werkzeug.security import check_password_hash, generate_password_hash
 
@@ -124,9 +124,11 @@ def hash_token(raw: str) -> str:
 
 
 def user_for_token(session: Session, raw: str) -> User | None:
-    """The user holding the (not revoked) token ``raw``, or None."""
-    query = select(User).join(ApiToken, ApiToken.user_id == User.id).where(ApiToken.token_hash == hash_token(raw), ApiToken.revoked_at.is_(None))
-    return session.scalar(query)
+    """The user holding the (not revoked) token ``raw``, or None (asked of every API request: the query is built once)."""
+    return session.scalar(_USER_FOR_TOKEN, {"token_hash": hash_token(raw)})
+
+
+_USER_FOR_TOKEN = select(User).join(ApiToken, ApiToken.user_id == User.id).where(ApiToken.token_hash == bindparam("token_hash"), ApiToken.revoked_at.is_(None))
 
 
 def revoke_user_sessions(db: Session, user_id: int) -> int:

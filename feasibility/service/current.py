@@ -6,12 +6,13 @@ observatory and its schedules are stored when the store holds none.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass
 from importlib import resources
 from typing import Any, TypeVar
 
 from pydantic import BaseModel
-from sqlalchemy import select, text
+from sqlalchemy import bindparam, func, select, text, true
 from sqlalchemy.orm import Session, defer
 
 from feasibility.documents import InstrumentSchedule, Observatory, parse_document
@@ -23,11 +24,13 @@ from feasibility.store.models import ObservatoryVersion, ScheduleVersion, User
 D = TypeVar("D", bound=BaseModel)
 
 __all__ = [
+    "InForce",
     "add_observatory_version",
     "add_schedule_version",
     "cached_document",
     "current_observatory",
     "current_schedule",
+    "in_force",
     "observatory_of",
     "schedule_of",
     "seed_demo",
@@ -50,6 +53,49 @@ def current_schedule(session: Session, semester: str) -> ScheduleVersion | None:
         .limit(1)
     )
     return session.scalars(query).first()
+
+
+@dataclass(frozen=True)
+class InForce:
+    """The versions in force, by id: the observatory description, and the schedule of each semester asked about."""
+
+    observatory_id: int
+    observatory_hash: str
+    #: Semester -> the id of its schedule in force, None when none was uploaded (every semester asked about is here).
+    schedules: dict[str, int | None]
+
+    def observatory(self, session: Session) -> Observatory:
+        """The observatory description as a document: parsed once per content hash and process, its JSON read only then."""
+        query = select(ObservatoryVersion.document).where(ObservatoryVersion.id == self.observatory_id)
+        return cached_document(Observatory, self.observatory_hash, lambda: session.scalar(query))
+
+
+def in_force(session: Session, semesters: Iterable[str]) -> InForce | None:
+    """The ids of the observatory in force and of each semester's schedule in force, in one statement; None without an observatory.
+
+    What :func:`current_observatory` and :func:`current_schedule` say, for a submission: ids and
+    the observatory's hash only (stored versions never change, so the parsed observatory is kept per
+    hash), and one round trip for any number of semesters.
+    """
+    asked = sorted(set(semesters))
+    rows = session.execute(_IN_FORCE, {"semesters": asked}).all()
+    if not rows:
+        return None
+    schedules: dict[str, int | None] = dict.fromkeys(asked)
+    schedules.update({semester: schedule_id for _, _, semester, schedule_id in rows if semester is not None})
+    return InForce(observatory_id=rows[0][0], observatory_hash=rows[0][1], schedules=schedules)
+
+
+def _in_force_query() -> Any:
+    """The newest observatory version joined to the newest schedule version of each semester asked (built once)."""
+    observatory = select(ObservatoryVersion.id, ObservatoryVersion.content_hash).order_by(ObservatoryVersion.id.desc()).limit(1).subquery()
+    schedules = (
+        select(ScheduleVersion.semester, func.max(ScheduleVersion.id).label("id"))
+        .where(ScheduleVersion.semester.in_(bindparam("semesters", expanding=True)))
+        .group_by(ScheduleVersion.semester)
+        .subquery()
+    )
+    return select(observatory.c.id, observatory.c.content_hash, schedules.c.semester, schedules.c.id).select_from(observatory.outerjoin(schedules, true()))
 
 
 def observatory_of(version: ObservatoryVersion) -> Observatory:
@@ -140,6 +186,8 @@ def seed_demo(session: Session) -> bool:
             add_schedule_version(session, parse_document(InstrumentSchedule, item.read_bytes(), item.name))
     return True
 
+
+_IN_FORCE = _in_force_query()
 
 #: Parsed documents by (kind, content hash): the same hash is the same document, in any store.
 _parsed: dict[tuple[str, str], object] = {}

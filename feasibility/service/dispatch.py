@@ -35,7 +35,7 @@ __all__ = [
     "batches",
     "control_queue_name",
     "enqueue",
-    "mark_with_commit",
+    "marks_with_commit",
     "queue_names",
 ]
 
@@ -83,7 +83,7 @@ def enqueue(run_ids: Iterable[int], *, bulk: bool = False, marked: bool = False)
     Call only after the transaction that created the runs has committed. Returns False
     when the broker could not take them: they stay unsent and the relay sends them
     within seconds of the broker being back. ``marked``: the runs were marked sent in
-    the transaction that stored them (:func:`mark_with_commit`), so a request costs one
+    the transaction that stored them (:func:`marks_with_commit`), so a request costs one
     transaction; they are unmarked should the broker refuse them. Needs a runtime bound
     (an application context, a worker, a command).
     """
@@ -111,21 +111,17 @@ def enqueue(run_ids: Iterable[int], *, bulk: bool = False, marked: bool = False)
     return True
 
 
-def mark_with_commit(run: Any) -> bool:
-    """Mark a queued run as sent in the transaction that stores it, when its message goes to a broker; whether marked.
+def marks_with_commit() -> bool:
+    """Whether runs sent right after their commit are marked sent in the transaction that stores them (``dispatched_at``).
 
-    The caller then sends it after the commit with ``enqueue(..., marked=True)``: one
-    transaction per submission instead of a second one to mark it. Should the process
-    die between the commit and the send, the run is marked but has no message: the
-    relay finds the broker short of messages and sends it again (:mod:`feasibility.service.relay`).
+    So when the dispatcher's messages go to a broker. The caller then sends them after the
+    commit with ``enqueue(..., marked=True)``: one transaction per submission instead of a
+    second one to mark them. Should the process die between the commit and the send, the
+    runs are marked but have no message: the relay finds the broker short of messages and
+    sends them again (:mod:`feasibility.service.relay`).
     """
-    from feasibility.store.models import utcnow
-
     runtime = current_runtime()
-    if runtime is None or not getattr(runtime.dispatcher, "durable", False):
-        return False
-    run.dispatched_at = utcnow()
-    return True
+    return runtime is not None and bool(getattr(runtime.dispatcher, "durable", False))
 
 
 def _unmark(run_ids: list[int]) -> None:

@@ -11,6 +11,7 @@ check runs are computed by an embedded pool of threads in this process.
 
 from __future__ import annotations
 
+import gc
 import logging
 import os
 from importlib import import_module
@@ -28,7 +29,7 @@ from feasibility.service.startup import start_runtime
 from feasibility.settings import Settings, load_settings
 from feasibility.web import protection, unavailable
 
-__all__ = ["RUNTIME", "WebApp", "create_app", "flask_config"]
+__all__ = ["RUNTIME", "WebApp", "create_app", "flask_config", "settle_for_serving"]
 
 log = logging.getLogger(__name__)
 
@@ -122,7 +123,21 @@ def create_app(test_config: dict[str, Any] | None = None, *, settings: Settings 
     protection.init_app(app)  # CSRF on every form, rate limits (after the blueprints: it names their views)
     app.register_error_handler(HTTPException, _api_error)
     unavailable.register(app)  # 503 with Retry-After while the store cannot be reached
+    if test_config is None:
+        settle_for_serving()
     return app
+
+
+def settle_for_serving() -> None:
+    """Keep what start-up made out of the garbage collector's full passes (``gc.freeze``): the process now serves.
+
+    A web process holds many long-lived objects (modules, mappings and compiled statements,
+    validators, the observatory). A full collection walks every one of them, and the garbage
+    of bulk submissions sets one off every few requests: a quarter of their CPU, measured with
+    benchmarks/bench_submit.py. What is made later is collected as usual.
+    """
+    gc.collect()
+    gc.freeze()
 
 
 def _keep(app: Flask, runtime: Runtime) -> None:

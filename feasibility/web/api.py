@@ -17,11 +17,11 @@ from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session
 
 from feasibility.documents.loading import DocumentError, Problem
-from feasibility.service import access
+from feasibility.service import access, submissions
 from feasibility.service.details import full_result
-from feasibility.service.dispatch import enqueue, mark_with_commit
+from feasibility.service.dispatch import enqueue, marks_with_commit
 from feasibility.service.faults import is_lasting, is_passing
-from feasibility.service.submissions import NotAllowed, Submission, submit
+from feasibility.service.submissions import NotAllowed, Outcome, Submission, submit
 from feasibility.store import queries
 from feasibility.store.db import session_scope
 from feasibility.store.models import CheckRun, ProposalRecord, ProposalVersion, User
@@ -93,16 +93,20 @@ def submit_one() -> tuple[dict[str, Any], int, dict[str, str]]:
     if not isinstance(body, dict):
         raise DocumentError([Problem("", "must be a mapping of fields at the top level")], "proposal")
     try:
-        run_id, created, send, marked, payload = _submit_one(body, user, owner, describe=True, mark=True)
+        with session_scope() as session:
+            # Marked sent in this transaction when its message goes to a broker right after the commit: no second transaction.
+            result = submit(session, body, user, owner=owner, mark_sent=marks_with_commit())
+            run_id = result.run.id
+            payload = run_json(session, result.run, with_result=True, proposal_id=result.proposal_id)
     except SQLAlchemyError as exc:
         status, answer = _store_fault(exc)
         return answer, status, {"Retry-After": "5"} if status == 503 else {}
-    if send:
-        enqueue([run_id], marked=marked)  # only now that the run is committed; should the broker fail, the relay sends it
+    if result.must_send:
+        enqueue([run_id], marked=result.marked)  # only now that the run is committed; should the broker fail, the relay sends it
     if wait > 0 and payload["state"] in ("queued", "running"):
         payload = _wait_for(run_id, wait)
-    status = 202 if created and payload["state"] in ("queued", "running") else 200
-    return {"created": created, "run": payload}, status, {"Location": url_for("api.get_run", run_id=run_id)}
+    status = 202 if result.created and payload["state"] in ("queued", "running") else 200
+    return {"created": result.created, "run": payload}, status, {"Location": url_for("api.get_run", run_id=run_id)}
 
 
 def _wait_for(run_id: int, wait: float) -> dict[str, Any]:
@@ -130,36 +134,61 @@ def submit_many() -> dict[str, Any]:
     limit = int(current_app.config["MAX_BULK"])
     if len(items) > limit:
         raise DocumentError([Problem("proposals", f"holds {len(items)} proposals; at most {limit} at once")], "bulk submission")
-    answers: list[dict[str, Any]] = []
-    to_send: list[int] = []
+    answers: list[dict[str, Any] | None] = [None] * len(items)
+    documents: list[tuple[int, dict[str, Any]]] = []
+    for index, item in enumerate(items):
+        if isinstance(item, dict):
+            documents.append((index, item))
+        else:
+            answers[index] = {"index": index, "status": 422, **DocumentError([Problem("", "must be a mapping of fields")], "proposal").as_dict()}
+    mark = marks_with_commit()
+    to_send: dict[int, None] = {}
+    for (index, _), outcome in zip(documents, _store_many([d for _, d in documents], user, owner, mark), strict=True):
+        answers[index] = _bulk_item(index, outcome)
+        if isinstance(outcome, Submission) and outcome.must_send:
+            to_send[outcome.run.id] = None
+    # Only now that they are committed: several runs a message (dispatch.RUNS_PER_MESSAGE). Should the broker fail, the relay sends them.
+    enqueue(list(to_send), marked=mark)
+    done = [a for a in answers if a is not None]
+    accepted = sum(1 for a in done if a["status"] in (200, 202))
+    return {"accepted": accepted, "rejected": len(done) - accepted, "items": done}
+
+
+def _store_many(documents: list[dict[str, Any]], user: User | None, owner: User | None, mark: bool) -> list[Outcome | tuple[int, dict[str, Any]]]:
+    """Store the documents in one transaction: each one's outcome, or the store's fault (status, answer) for each.
+
+    Should the store refuse one of them for good (a value it cannot hold), each is stored on its own
+    transaction instead, so the others are kept and that one is named.
+    """
+    if not documents:
+        return []
     try:
-        for index, item in enumerate(items):
-            # Each item in its own transaction: a bad item is answered on its own, the others are stored and queued.
-            try:
-                if not isinstance(item, dict):
-                    raise DocumentError([Problem("", "must be a mapping of fields")], "proposal")
-                run_id, created, send, _, _ = _submit_one(item, user, owner)
-            except DocumentError as error:
-                answers.append({"index": index, "status": 422, **error.as_dict()})
-                continue
-            except NotAllowed as error:
-                answers.append({"index": index, "status": 403, "error": "forbidden", "message": str(error)})
-                continue
-            except SQLAlchemyError as exc:
-                status, answer = _store_fault(exc)
-                answers.append({"index": index, "status": status, **answer})
-                continue
-            if send:
-                to_send.append(run_id)
-            answers.append(
-                {"index": index, "status": 202 if created else 200, "created": created, "run_id": run_id, "run": url_for("api.get_run", run_id=run_id)}
-            )
-    finally:
-        # What was stored is queued, whatever happened to the items after it: several runs a message (dispatch.RUNS_PER_MESSAGE),
-        # marked sent in one transaction once the broker has them (not with each item's commit: the batch is sent at its end).
-        enqueue(to_send)
-    accepted = sum(1 for a in answers if a["status"] in (200, 202))
-    return {"accepted": accepted, "rejected": len(answers) - accepted, "items": answers}
+        with session_scope() as session:
+            return list(submissions.submit_many(session, documents, user, owner=owner, mark_sent=mark, with_results=False))
+    except SQLAlchemyError as exc:
+        if len(documents) > 1 and is_lasting(exc):
+            return [outcome for document in documents for outcome in _store_many([document], user, owner, mark)]
+        fault = _store_fault(exc)
+        return [fault] * len(documents)
+
+
+def _bulk_item(index: int, outcome: Outcome | tuple[int, dict[str, Any]]) -> dict[str, Any]:
+    """One bulk item's answer."""
+    if isinstance(outcome, Submission):
+        run_id = outcome.run.id
+        return {
+            "index": index,
+            "status": 202 if outcome.created else 200,
+            "created": outcome.created,
+            "run_id": run_id,
+            "run": url_for("api.get_run", run_id=run_id),
+        }
+    if isinstance(outcome, DocumentError):
+        return {"index": index, "status": 422, **outcome.as_dict()}
+    if isinstance(outcome, NotAllowed):
+        return {"index": index, "status": 403, "error": "forbidden", "message": str(outcome)}
+    status, answer = outcome
+    return {"index": index, "status": status, **answer}
 
 
 def _store_fault(exc: SQLAlchemyError) -> tuple[int, dict[str, Any]]:
@@ -230,13 +259,17 @@ def proposal_runs(proposal_id: str) -> dict[str, Any]:
         return {"proposal_id": record.proposal_id, "page": page, "per_page": per_page, "items": [run_json(session, r) for r in runs]}
 
 
-def run_json(session: Session, run: CheckRun, *, with_result: bool = False) -> dict[str, Any]:
-    """A check run as the API shows it; ``with_result`` adds its result (findings, figures, and the series recomputed when stored compact)."""
-    version = run.proposal_version
+def run_json(session: Session, run: CheckRun, *, with_result: bool = False, proposal_id: str | None = None) -> dict[str, Any]:
+    """A check run as the API shows it; ``with_result`` adds its result (findings, figures, and the series recomputed when stored compact).
+
+    ``proposal_id``: its proposal's id when the caller knows it (a submission), so the version and proposal need not be read.
+    """
+    if proposal_id is None:
+        proposal_id = run.proposal_version.proposal.proposal_id
     body: dict[str, Any] = {
         "id": run.id,
-        "proposal_id": version.proposal.proposal_id,
-        "proposal_version": version.id,
+        "proposal_id": proposal_id,
+        "proposal_version": run.proposal_version_id,
         "state": run.state,
         "reason": run.reason,
         "verdict": run.verdict,
@@ -248,7 +281,7 @@ def run_json(session: Session, run: CheckRun, *, with_result: bool = False) -> d
         "started_at": _iso(run.started_at),
         "finished_at": _iso(run.finished_at),
         "error": run.error,
-        "links": {"self": f"/api/v1/runs/{run.id}", "proposal": f"/api/v1/proposals/{version.proposal.proposal_id}"},
+        "links": {"self": f"/api/v1/runs/{run.id}", "proposal": f"/api/v1/proposals/{proposal_id}"},
     }
     if with_result and run.state == "done":
         body["result"] = full_result(session, run)
@@ -292,26 +325,6 @@ def _version_summary(version: ProposalVersion) -> dict[str, Any]:
         "hours_requested": version.hours_requested,
         "submitted_at": _iso(version.submitted_at),
     }
-
-
-def _submit_one(
-    body: Any, user: User | None, owner: User | None, *, describe: bool = False, mark: bool = False
-) -> tuple[int, bool, bool, bool, dict[str, Any]]:
-    """Store one submission in its own transaction (on SQLite it waits for the write lock; see feasibility.store.db).
-
-    Returns the run id, whether the run is new, whether it must be sent to the workers
-    after commit (new, or found still queued), whether (asked with ``mark``, for a run sent right after
-    the commit) it was marked sent in this transaction (:func:`~feasibility.service.dispatch.mark_with_commit`),
-    and (with ``describe``) the run as the API shows it.
-    """
-    with session_scope() as session:
-        if owner is not None:
-            owner = session.merge(owner, load=False)
-        user_here = session.merge(user, load=False) if user is not None else None
-        result: Submission = submit(session, body, user_here, owner=owner)
-        marked = mark and result.must_send and mark_with_commit(result.run)  # sent right after this commit: no second transaction
-        payload = run_json(session, result.run, with_result=True) if describe else {}
-        return result.run.id, result.created, result.must_send, marked, payload
 
 
 def _readable_proposal(session: Session, proposal_id: str) -> ProposalRecord:
