@@ -14,6 +14,7 @@ from feasibility.service.dispatch import CHECK_BATCH_TASK, CHECK_TASK, RUNS_HEAD
 from feasibility.service.relay import relay
 from feasibility.service.runs import LeaseHeld, execute_run, execute_runs
 from feasibility.service.runtime import current_runtime
+from feasibility.service.startup import settle_for_serving
 from feasibility.store.db import dispose_pools_after_fork
 
 __all__ = ["RELAY_TASK", "check_run", "check_runs", "sweep_runs"]
@@ -102,9 +103,12 @@ def sweep_runs() -> int:
 def _load_engine(**_: object) -> None:
     """Import the engine (NumPy, astropy) in the worker's main process, before its pool forks.
 
-    Every child then starts with it loaded instead of spending seconds on imports in its first check.
+    Every child then starts with it loaded instead of spending seconds on imports in its first check,
+    and with what start-up made kept out of the garbage collector's full passes (``settle_for_serving``).
     """
     import feasibility.engine  # noqa: F401
+
+    settle_for_serving()
 
 
 @worker_process_init.connect

@@ -49,9 +49,10 @@ CHECK_TASK = "feasibility.check_run"
 #: The task computing several runs one after the other, for many runs queued at once (a bulk submission, a re-check, the relay).
 CHECK_BATCH_TASK = "feasibility.check_runs"
 
-#: At most this many runs in one message. Each run is still claimed, computed and stored on its own (its own
-#: lease and transaction), so a batch cut short by a dead worker loses nothing: its message comes back, the runs
-#: done are skipped. A batch of 16 runs takes a second or two: a fresh submission waits behind at most that.
+#: At most this many runs in one message. The worker claims, computes and stores a batch together
+#: (service/runs.execute_runs), each run finished only while its own claim holds, so a batch cut short by a dead
+#: worker loses nothing: its message comes back, the runs done are skipped. A batch of 16 runs takes well under
+#: a second: a fresh submission waits behind at most that.
 RUNS_PER_MESSAGE = 16
 
 #: Runs queued at once below this go one a message, so that a few runs are spread over every worker process.

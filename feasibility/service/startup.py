@@ -9,6 +9,7 @@ process never builds the web app.
 
 from __future__ import annotations
 
+import gc
 import logging
 from collections.abc import Sequence
 
@@ -18,7 +19,7 @@ from feasibility.service.runtime import Runtime
 from feasibility.settings import Settings
 from feasibility.store.db import open_store
 
-__all__ = ["start_runtime"]
+__all__ = ["settle_for_serving", "start_runtime"]
 
 log = logging.getLogger(__name__)
 
@@ -56,3 +57,17 @@ def _seed(runtime: Runtime) -> None:
                 seed_demo(session)
         except (OperationalError, ProgrammingError) as exc:  # tables missing: the store was not upgraded yet
             log.warning("demo observatory not loaded (run `feasibility db upgrade`): %s", exc.orig)
+
+
+def settle_for_serving() -> None:
+    """Keep what start-up made out of the garbage collector's full passes (``gc.freeze``): the process now serves.
+
+    A serving process (web or worker) holds many long-lived objects (modules, mappings and
+    compiled statements, validators, the observatory, the engine's tables). A full collection
+    walks every one of them, and the garbage of bulk submissions sets one off every few
+    requests: a quarter of their CPU, measured with benchmarks/bench_submit.py. What is made
+    later is collected as usual. In a worker's parent, before its pool forks, it also keeps
+    the children from touching (and so copying) the shared pages.
+    """
+    gc.collect()
+    gc.freeze()

@@ -11,7 +11,6 @@ check runs are computed by an embedded pool of threads in this process.
 
 from __future__ import annotations
 
-import gc
 import logging
 import os
 from importlib import import_module
@@ -25,7 +24,7 @@ from feasibility.documents.reading import MAX_DOCUMENT_BYTES
 from feasibility.logs import configure_logging
 from feasibility.service.dispatch import EXTENSION
 from feasibility.service.runtime import Runtime, unbind
-from feasibility.service.startup import start_runtime
+from feasibility.service.startup import settle_for_serving, start_runtime
 from feasibility.settings import Settings, load_settings
 from feasibility.web import protection, unavailable
 
@@ -126,18 +125,6 @@ def create_app(test_config: dict[str, Any] | None = None, *, settings: Settings 
     if test_config is None:
         settle_for_serving()
     return app
-
-
-def settle_for_serving() -> None:
-    """Keep what start-up made out of the garbage collector's full passes (``gc.freeze``): the process now serves.
-
-    A web process holds many long-lived objects (modules, mappings and compiled statements,
-    validators, the observatory). A full collection walks every one of them, and the garbage
-    of bulk submissions sets one off every few requests: a quarter of their CPU, measured with
-    benchmarks/bench_submit.py. What is made later is collected as usual.
-    """
-    gc.collect()
-    gc.freeze()
 
 
 def _keep(app: Flask, runtime: Runtime) -> None:
