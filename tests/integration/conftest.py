@@ -73,8 +73,8 @@ class LiveService:
         raise AssertionError(f"run {run_id} not finished within {timeout} s")
 
 
-def start_workers(env: dict[str, str], log: Path, concurrency: int = 2, count: int = 1) -> list[subprocess.Popen[bytes]]:
-    """Start real Celery worker processes (prefork pool) and wait until they say they are ready."""
+def start_workers(env: dict[str, str], log: Path, concurrency: int = 2, count: int = 1, app: str = "worker.celery_app") -> list[subprocess.Popen[bytes]]:
+    """Start real Celery worker processes (prefork pool) of ``app`` and wait until they say they are ready."""
     celery = Path(sys.executable).with_name("celery")
     workers = []
     for n in range(count):
@@ -82,7 +82,7 @@ def start_workers(env: dict[str, str], log: Path, concurrency: int = 2, count: i
         command = [
             str(celery),
             "-A",
-            "worker.celery_app",
+            app,
             "worker",
             "--pool",
             "prefork",

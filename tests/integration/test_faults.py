@@ -179,7 +179,9 @@ def faulty(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Faulty]:
         app = create_app(settings)
         with app.app_context(), session_scope() as session:
             token = create_token(session, create_user(session, "fault-portal", "portal"))
-        started += start_workers(env, folder / "worker.log", concurrency=2, count=2)
+        started += start_workers(
+            env, folder / "worker.log", concurrency=2, count=2, app="tests.integration.held_worker_app"
+        )  # runs held 0.3 s: killable mid-run
         beat_log = folder / "beat.log"
         celery = Path(sys.executable).with_name("celery")
         with beat_log.open("wb") as handle:
