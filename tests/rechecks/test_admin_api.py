@@ -138,8 +138,16 @@ def test_schedule_upload_rechecks_affected_and_notifies(
         headers, raw = receiver.received[0]
         assert hmac.compare_digest(headers["X-Feasibility-Signature"], hmac.new(SECRET.encode(), raw, hashlib.sha256).hexdigest())
         assert json.loads(raw)["verdict_after"] == "infeasible"
-        with app.app_context(), session_scope() as session:
-            assert session.scalars(select(WebhookDelivery.state)).all() == ["sent"]
+        # The receiver records the notice before it answers, and the sender marks the delivery sent after the
+        # answer: wait for the mark rather than race it.
+        states: list[str] = []
+        while time.monotonic() < deadline:
+            with app.app_context(), session_scope() as session:
+                states = list(session.scalars(select(WebhookDelivery.state)).all())
+            if states != ["pending"]:
+                break
+            time.sleep(0.05)
+        assert states == ["sent"]
     finally:
         receiver.close()
 
