@@ -42,6 +42,9 @@ NODE_DAYS = 0.5
 _DIRECTIONS: OrderedDict[tuple[int, int, int, int], tuple[Track, NightSamples, Array]] = OrderedDict()
 _DIRECTIONS_SIZE = 8
 _DIRECTIONS_LOCK = threading.Lock()
+#: The tracks computed, by (target's JSON, kind, first and last midnight, latitude, longitude, elevation).
+_TRACKS: OrderedDict[tuple[object, ...], Track] = OrderedDict()
+_TRACKS_SIZE = 512
 #: Where the last few views' instants fall among the nodes (:func:`_placement`), by (view, nodes, site).
 _PLACEMENTS: OrderedDict[tuple[object, ...], tuple[NightSamples, _Placement]] = OrderedDict()
 _MJD_TO_JD = 2400000.5
@@ -261,16 +264,24 @@ def _placement(view: NightSamples, start: int, stop: int, nodes: Array, site_off
 
 
 def track_for(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget, grid: SkyGrid) -> Track:
-    """The track of a moving ``target`` over ``grid``'s semester (computed once per target and semester)."""
-    return _cached_track(
-        target.model_dump_json(),
-        target.kind,
-        float(grid.midnight_mjd[0]),
-        float(grid.midnight_mjd[-1]),
-        grid.latitude_deg,
-        grid.longitude_deg,
-        grid.elevation_m,
-    )
+    """The track of a moving ``target`` over ``grid``'s semester (computed once per target and semester: kept by the
+    target's JSON and the grid's site and nights, least recently used, :data:`_TRACKS_SIZE` of them, about 50 kB each).
+
+    A track first seen is computed from ``target`` itself (not parsed back from its JSON, which costs more than the
+    track for an ephemeris table's rows)."""
+    semester = (float(grid.midnight_mjd[0]), float(grid.midnight_mjd[-1]), grid.latitude_deg, grid.longitude_deg, grid.elevation_m)
+    key = (target.model_dump_json(), target.kind, *semester)
+    with _DIRECTIONS_LOCK:
+        track = _TRACKS.get(key)
+        if track is not None:
+            _TRACKS.move_to_end(key)
+    if track is None:
+        track = _new_track(target, *semester)
+        with _DIRECTIONS_LOCK:
+            _TRACKS[key] = track
+            while len(_TRACKS) > _TRACKS_SIZE:
+                _TRACKS.popitem(last=False)
+    return track
 
 
 def geocentric_ra_deg(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget, utc_mjd: float) -> float | None:
@@ -292,27 +303,24 @@ def geocentric_ra_deg(target: MajorBodyTarget | OrbitalElementsTarget | Ephemeri
 
 def forget_tracks() -> None:
     """Empty this process's cache of tracks and their directions (the benchmark's first-sight figure; tests)."""
-    _cached_track.cache_clear()
     with _DIRECTIONS_LOCK:
+        _TRACKS.clear()
         _DIRECTIONS.clear()
         _PLACEMENTS.clear()
 
 
-@functools.lru_cache(maxsize=512)  # about 50 kB each
-def _cached_track(document: str, kind: str, first_midnight: float, last_midnight: float, latitude: float, longitude: float, elevation: float) -> Track:
-    import erfa
-
-    target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget
-    if kind == "major_body":
-        target = MajorBodyTarget.model_validate_json(document)
-    elif kind == "orbital_elements":
-        target = OrbitalElementsTarget.model_validate_json(document)
-    else:
-        target = EphemerisTableTarget.model_validate_json(document)
+def _new_track(
+    target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget,
+    first_midnight: float,
+    last_midnight: float,
+    latitude: float,
+    longitude: float,
+    elevation: float,
+) -> Track:
     step = NODE_DAYS
     count = int(math.ceil((last_midnight - first_midnight + 2.0) / step)) + 1
     mjd: Array = first_midnight - 1.0 + np.arange(count, dtype=np.float64) * step
-    site = enu_matrix(latitude, longitude) @ (erfa.gd2gc(1, math.radians(longitude), math.radians(latitude), elevation) / erfa.DAU)
+    site = _site_position(latitude, longitude, elevation)
     if isinstance(target, MajorBodyTarget):
         return Track(
             kind=target.kind,
@@ -371,6 +379,16 @@ def _elements_track(target: OrbitalElementsTarget, mjd: Array, site: Array, step
         f"the Earth from ERFA epv00, light-time corrected, every {step * 24:g} h, interpolated; topocentric with the "
         f"site's position; {law}",
     )
+
+
+@functools.lru_cache(maxsize=8)
+def _site_position(latitude: float, longitude: float, elevation: float) -> Array:
+    """The site's position (au) in its own (east, north, up) frame: the same for every track at the site (read-only)."""
+    import erfa
+
+    site = enu_matrix(latitude, longitude) @ (erfa.gd2gc(1, math.radians(longitude), math.radians(latitude), elevation) / erfa.DAU)
+    site.setflags(write=False)
+    return site
 
 
 @functools.lru_cache(maxsize=8)
