@@ -74,7 +74,6 @@ class Track:
     """The site's position in its own (east, north, up) frame (au): subtracted for the topocentric direction."""
     parallax: bool = True
     _coefficients: Array | None = field(default=None, repr=False, compare=False)
-    _columns: Array | None = field(default=None, repr=False, compare=False)
     _geocentric_last: tuple[Array, Array] | None = field(default=None, repr=False, compare=False)
 
     def geocentric_directions(self, mjd: Array) -> Array:
@@ -106,9 +105,7 @@ class Track:
         if cached is not None and cached[0] is self and cached[1] is view:
             return cached[2]
         placement = _placement(view, start, stop, self.mjd, self.site_offset if self.parallax else None)
-        if self._columns is None:
-            self._columns = _by_component(self._coefficients_now())
-        position = placement.evaluate(self._columns)
+        position = placement.evaluate(_by_component(self._coefficients_now()))  # a 35 kB copy: not kept per track
         if placement.site is not None:
             position -= placement.site
         x, y, z = position
