@@ -211,9 +211,29 @@ def _track_series(track: Track, midnights: NDArray[np.float64], rate: NDArray[np
     ra, dec = radec_from_vector(track.geocentric_directions(midnights))
     known = track.known_at(midnights)
     return {
-        "ra_deg": [round(float(x), 3) if k else None for x, k in zip(ra, known)],
-        "dec_deg": [round(float(x), 3) if k else None for x, k in zip(dec, known)],
+        "ra_deg": _rounded_where(ra, 3, known),
+        "dec_deg": _rounded_where(dec, 3, known),
         "rate_arcsec_per_hour": np.round(rate, 2).tolist(),
         "magnitude": None if magnitudes is None else np.round(magnitudes, 2).tolist(),
         "magnitude_band": track.magnitude_band,
     }
+
+
+def _rounded_where(values: NDArray[np.float64], digits: int, keep: NDArray[np.bool_]) -> list[float | None]:
+    """``round(x, digits)`` of each value (None where ``keep`` is False), the same numbers as Python's ``round``.
+
+    Scaled, rounded to an integer and scaled back as NumPy does, which is Python's answer (the decimal nearest the
+    exact binary value) unless the scaled value lies within a hair of a half: those few go through ``round`` itself.
+    A tenth of the cost of ``round`` over a semester's nights.
+    """
+    scale = 10.0**digits
+    scaled = values * scale
+    rounded = np.rint(scaled) / scale
+    with np.errstate(invalid="ignore"):
+        plain = np.abs(scaled - np.floor(scaled) - 0.5) > 1e-6
+    for i in np.flatnonzero(~plain):  # near a half, or not finite
+        rounded[i] = round(float(values[i]), digits)
+    out: list[float | None] = rounded.tolist()
+    for i in np.flatnonzero(~keep):
+        out[i] = None
+    return out

@@ -42,6 +42,11 @@ NODE_DAYS = 0.5
 _DIRECTIONS: OrderedDict[tuple[int, int, int, int], tuple[Track, NightSamples, Array]] = OrderedDict()
 _DIRECTIONS_SIZE = 8
 _DIRECTIONS_LOCK = threading.Lock()
+#: The tracks computed, by (target's JSON, kind, first and last midnight, latitude, longitude, elevation).
+_TRACKS: OrderedDict[tuple[object, ...], Track] = OrderedDict()
+_TRACKS_SIZE = 512
+#: Where the last few views' instants fall among the nodes (:func:`_placement`), by (view, nodes, site).
+_PLACEMENTS: OrderedDict[tuple[object, ...], tuple[NightSamples, _Placement]] = OrderedDict()
 _MJD_TO_JD = 2400000.5
 
 
@@ -69,17 +74,29 @@ class Track:
     """The site's position in its own (east, north, up) frame (au): subtracted for the topocentric direction."""
     parallax: bool = True
     _coefficients: Array | None = field(default=None, repr=False, compare=False)
+    _geocentric_last: tuple[Array, Array] | None = field(default=None, repr=False, compare=False)
 
     def geocentric_directions(self, mjd: Array) -> Array:
-        """Geocentric unit vectors at UTC ``mjd`` (interpolated)."""
+        """Geocentric unit vectors at UTC ``mjd`` (interpolated); the last call's kept, read-only, for the same
+        array (a grid's midnights: the sun-safety check, the motion finding and the track's series ask for them)."""
+        last = self._geocentric_last
+        if last is not None and last[0] is mjd:
+            return last[1]
         position = self._position_at(np.asarray(mjd, dtype=float))
-        return position / np.linalg.norm(position, axis=-1, keepdims=True)
+        unit = position / np.linalg.norm(position, axis=-1, keepdims=True)
+        unit.setflags(write=False)
+        self._geocentric_last = (mjd, unit)
+        return unit
 
     def directions(self, view: NightSamples, start: int = 0, stop: int | None = None) -> Array:
         """Topocentric unit vectors at ``view``'s instants ``start:stop``; straight down where the position is unknown.
 
-        The last few are kept (:data:`_DIRECTIONS`), as the same target comes back for the night plot and the what-if
-        suggestions; each takes about 0.5 MB for a semester.
+        The same arithmetic as :meth:`geocentric_directions` minus the site's position, laid out by component
+        (three contiguous rows, returned transposed as an ``(n, 3)`` view): every operation then runs along
+        whole rows instead of three numbers at a time, several times faster over a semester's instants. Where
+        the instants fall among the nodes, and the site's position at each, are shared by every track of the
+        semester (:func:`_placement`). The last few results are kept (:data:`_DIRECTIONS`), as the same target
+        comes back for the night plot and the what-if suggestions; each takes about 0.5 MB for a semester.
         """
         stop = view.size if stop is None else stop
         key = (id(self), id(view), start, stop)
@@ -87,16 +104,16 @@ class Track:
             cached = _DIRECTIONS.get(key)
         if cached is not None and cached[0] is self and cached[1] is view:
             return cached[2]
-        mjd = view.mjd[start:stop]
-        up = view.up[start:stop]
-        position = self._position_at(mjd)
-        if self.parallax:
-            east, north = view.east[start:stop], view.north[start:stop]
-            position = position - (self.site_offset[0] * east + self.site_offset[1] * north + self.site_offset[2] * up)
-        unit = position / np.linalg.norm(position, axis=-1, keepdims=True)
+        placement = _placement(view, start, stop, self.mjd, self.site_offset if self.parallax else None)
+        position = placement.evaluate(_by_component(self._coefficients_now()))  # a 35 kB copy: not kept per track
+        if placement.site is not None:
+            position -= placement.site
+        x, y, z = position
+        position /= np.sqrt(x * x + y * y + z * z)  # np.linalg.norm's sum, in its order
+        unit = position.T
         if self.known_span is not None:
-            known = self._covered_at(mjd)
-            unit[~known] = -up[~known]
+            known = self._covered_at(view.mjd[start:stop])
+            unit[~known] = -view.up[start:stop][~known]
         unit.setflags(write=False)
         with _DIRECTIONS_LOCK:
             _DIRECTIONS[key] = (self, view, unit)
@@ -116,15 +133,23 @@ class Track:
 
     def rate_arcsec_per_hour(self, mjd: Array) -> Array:
         """The geocentric motion on the sky at UTC ``mjd`` (arcseconds per hour), from the nodes on either side."""
-        unit = self.position / np.linalg.norm(self.position, axis=-1, keepdims=True)
-        step = separation_deg(unit[:-1], unit[1:]) * 3600.0 / (np.diff(self.mjd) * 24.0)
-        middle = (self.mjd[:-1] + self.mjd[1:]) / 2.0
+        middle, step = self._node_rates
         return np.interp(np.asarray(mjd, dtype=float), middle, step)
 
+    @functools.cached_property
+    def _node_rates(self) -> tuple[Array, Array]:
+        """Between each two nodes: the middle time and the motion (arcseconds per hour), worked out once."""
+        unit = self.position / np.linalg.norm(self.position, axis=-1, keepdims=True)
+        step = separation_deg(unit[:-1], unit[1:]) * 3600.0 / (np.diff(self.mjd) * 24.0)
+        return (self.mjd[:-1] + self.mjd[1:]) / 2.0, step
+
     def _position_at(self, mjd: Array) -> Array:
+        return cubic_at(self.mjd, self.position, mjd, self._coefficients_now())
+
+    def _coefficients_now(self) -> Array:
         if self._coefficients is None:
             self._coefficients = cubic_coefficients(self.position)
-        return cubic_at(self.mjd, self.position, mjd, self._coefficients)
+        return self._coefficients
 
     def _covered_at(self, mjd: Array) -> NDArray[np.bool_]:
         if self.known_span is None:
@@ -138,11 +163,9 @@ def cubic_at(nodes: Array, values: Array, mjd: Array, coefficients: Array | None
     (clamped to the nodes' span); ``coefficients`` (:func:`cubic_coefficients`) when already worked out."""
     if coefficients is None:
         coefficients = cubic_coefficients(values)
-    step = float(nodes[1] - nodes[0])
-    u = np.clip((np.asarray(mjd, dtype=float) - nodes[0]) / step, 0.0, nodes.size - 1.0)
-    i = np.clip(np.floor(u).astype(np.intp), 1, nodes.size - 3)
-    s = (u - i)[:, None]
-    c = coefficients[i - 1]  # one gather: (n, 4, 3)
+    segment, fraction = _segments(nodes, np.asarray(mjd, dtype=float))
+    s = fraction[:, None]
+    c = coefficients[segment]  # one gather: (n, 4, 3)
     return c[:, 0] + s * (c[:, 1] + s * (c[:, 2] + s * c[:, 3]))
 
 
@@ -163,17 +186,99 @@ def cubic_coefficients(values: Array) -> Array:
     )
 
 
+def _segments(nodes: Array, mjd: Array) -> tuple[NDArray[np.intp], Array]:
+    """Per time, the segment (the row of :func:`cubic_coefficients`) and the fraction s within it (clamped)."""
+    step = float(nodes[1] - nodes[0])
+    u = np.clip((mjd - nodes[0]) / step, 0.0, nodes.size - 1.0)
+    i = np.clip(np.floor(u).astype(np.intp), 1, nodes.size - 3)
+    return i - 1, u - i
+
+
+def _by_component(coefficients: Array) -> Array:
+    """:func:`cubic_coefficients` as (3 · 4, m − 3): one contiguous row per component and power."""
+    return np.ascontiguousarray(coefficients.transpose(2, 1, 0)).reshape(12, -1)
+
+
+@dataclass(frozen=True)
+class _Placement:
+    """Where a view's instants (in time order) fall among a semester's nodes, and the site's position at each
+    (ICRS axes, by component): the same for every track of the semester."""
+
+    segment: NDArray[np.intp]
+    """Per instant, its segment (the row of :func:`cubic_coefficients`)."""
+    per_segment: NDArray[np.intp]
+    """How many instants fall in each segment: the segments' coefficients repeated that often, in order, are the
+    coefficients at the instants (as a gather by :attr:`segment`, for a tenth of the cost)."""
+    fraction: Array
+    site: Array | None
+    """(3, n): the site's position, subtracted from the geocentric one (None: no parallax)."""
+
+    def evaluate(self, columns: Array) -> Array:
+        """The cubic at the instants, (3, n): Horner's rule as :func:`cubic_at` computes it, row by row."""
+        c = columns.repeat(self.per_segment, axis=1).reshape(3, 4, -1)
+        s = self.fraction
+        position = c[:, 3] * s
+        position += c[:, 2]
+        position *= s
+        position += c[:, 1]
+        position *= s
+        position += c[:, 0]
+        return position
+
+    def part(self, start: int, stop: int) -> _Placement:
+        """The instants ``start:stop`` only (one night, for the night plot)."""
+        segment = self.segment[start:stop]
+        return _Placement(
+            segment,
+            np.bincount(segment, minlength=self.per_segment.size),
+            self.fraction[start:stop],
+            None if self.site is None else self.site[:, start:stop],
+        )
+
+
+def _placement(view: NightSamples, start: int, stop: int, nodes: Array, site_offset: Array | None) -> _Placement:
+    """:class:`_Placement` of ``view``'s instants ``start:stop``, cut from the whole view's (the last few views'
+    kept, identity-checked)."""
+    offset = None if site_offset is None else site_offset.tobytes()
+    key = (id(view), float(nodes[0]), float(nodes[1]), nodes.size, offset)
+    with _DIRECTIONS_LOCK:
+        cached = _PLACEMENTS.get(key)
+        if cached is not None:
+            _PLACEMENTS.move_to_end(key)
+    if cached is not None and cached[0] is view:
+        placement = cached[1]
+    else:
+        segment, fraction = _segments(nodes, view.mjd)
+        site = None
+        if site_offset is not None:
+            site = np.ascontiguousarray((site_offset[0] * view.east + site_offset[1] * view.north + site_offset[2] * view.up).T)
+        placement = _Placement(segment, np.bincount(segment, minlength=nodes.size - 3), fraction, site)
+        with _DIRECTIONS_LOCK:
+            _PLACEMENTS[key] = (view, placement)
+            while len(_PLACEMENTS) > _DIRECTIONS_SIZE:
+                _PLACEMENTS.popitem(last=False)
+    return placement if (start, stop) == (0, view.size) else placement.part(start, stop)
+
+
 def track_for(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget, grid: SkyGrid) -> Track:
-    """The track of a moving ``target`` over ``grid``'s semester (computed once per target and semester)."""
-    return _cached_track(
-        target.model_dump_json(),
-        target.kind,
-        float(grid.midnight_mjd[0]),
-        float(grid.midnight_mjd[-1]),
-        grid.latitude_deg,
-        grid.longitude_deg,
-        grid.elevation_m,
-    )
+    """The track of a moving ``target`` over ``grid``'s semester (computed once per target and semester: kept by the
+    target's JSON and the grid's site and nights, least recently used, :data:`_TRACKS_SIZE` of them, about 50 kB each).
+
+    A track first seen is computed from ``target`` itself (not parsed back from its JSON, which costs more than the
+    track for an ephemeris table's rows)."""
+    semester = (float(grid.midnight_mjd[0]), float(grid.midnight_mjd[-1]), grid.latitude_deg, grid.longitude_deg, grid.elevation_m)
+    key = (target.model_dump_json(), target.kind, *semester)
+    with _DIRECTIONS_LOCK:
+        track = _TRACKS.get(key)
+        if track is not None:
+            _TRACKS.move_to_end(key)
+    if track is None:
+        track = _new_track(target, *semester)
+        with _DIRECTIONS_LOCK:
+            _TRACKS[key] = track
+            while len(_TRACKS) > _TRACKS_SIZE:
+                _TRACKS.popitem(last=False)
+    return track
 
 
 def geocentric_ra_deg(target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget, utc_mjd: float) -> float | None:
@@ -195,26 +300,24 @@ def geocentric_ra_deg(target: MajorBodyTarget | OrbitalElementsTarget | Ephemeri
 
 def forget_tracks() -> None:
     """Empty this process's cache of tracks and their directions (the benchmark's first-sight figure; tests)."""
-    _cached_track.cache_clear()
     with _DIRECTIONS_LOCK:
+        _TRACKS.clear()
         _DIRECTIONS.clear()
+        _PLACEMENTS.clear()
 
 
-@functools.lru_cache(maxsize=512)  # about 50 kB each
-def _cached_track(document: str, kind: str, first_midnight: float, last_midnight: float, latitude: float, longitude: float, elevation: float) -> Track:
-    import erfa
-
-    target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget
-    if kind == "major_body":
-        target = MajorBodyTarget.model_validate_json(document)
-    elif kind == "orbital_elements":
-        target = OrbitalElementsTarget.model_validate_json(document)
-    else:
-        target = EphemerisTableTarget.model_validate_json(document)
+def _new_track(
+    target: MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget,
+    first_midnight: float,
+    last_midnight: float,
+    latitude: float,
+    longitude: float,
+    elevation: float,
+) -> Track:
     step = NODE_DAYS
     count = int(math.ceil((last_midnight - first_midnight + 2.0) / step)) + 1
     mjd: Array = first_midnight - 1.0 + np.arange(count, dtype=np.float64) * step
-    site = enu_matrix(latitude, longitude) @ (erfa.gd2gc(1, math.radians(longitude), math.radians(latitude), elevation) / erfa.DAU)
+    site = _site_position(latitude, longitude, elevation)
     if isinstance(target, MajorBodyTarget):
         return Track(
             kind=target.kind,
@@ -273,6 +376,16 @@ def _elements_track(target: OrbitalElementsTarget, mjd: Array, site: Array, step
         f"the Earth from ERFA epv00, light-time corrected, every {step * 24:g} h, interpolated; topocentric with the "
         f"site's position; {law}",
     )
+
+
+@functools.lru_cache(maxsize=8)
+def _site_position(latitude: float, longitude: float, elevation: float) -> Array:
+    """The site's position (au) in its own (east, north, up) frame: the same for every track at the site (read-only)."""
+    import erfa
+
+    site = enu_matrix(latitude, longitude) @ (erfa.gd2gc(1, math.radians(longitude), math.radians(latitude), elevation) / erfa.DAU)
+    site.setflags(write=False)
+    return site
 
 
 @functools.lru_cache(maxsize=8)

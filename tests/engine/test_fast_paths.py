@@ -11,9 +11,16 @@
   tests/engine/test_skygrid.py and test_sky_checks.py.
 - The nights a schedule takes away are described from per-night kinds worked out
   once per schedule: held to a plain look-up of each lost night's schedule entry.
+- A moving target's topocentric directions are worked out component by component from the
+  segments' coefficients repeated over each segment's instants: held to the plain
+  per-instant form (``cubic_at``, the site's position subtracted, ``np.linalg.norm``)
+  for planets, bodies given by elements and an ephemeris table, whole view and one night.
+- A track's right ascensions and declinations are rounded vectorised, going through
+  Python's ``round`` only near a half: held to ``round`` itself on random values, values
+  that look like halves in decimal, exact binary halves and non-finite ones.
 
-Differences allowed: none (both shortcuts choose exactly the instants and nights
-the exact path does; no grid step at a crossing may differ).
+Differences allowed: none (the shortcuts choose exactly the instants and nights
+the exact path does, no grid step at a crossing may differ, and give the same floats bit for bit).
 """
 
 from __future__ import annotations
@@ -27,11 +34,14 @@ import numpy as np
 import pytest
 
 from feasibility.documents import InstrumentSchedule, ObservationRequest, Observatory, parse_document
+from feasibility.documents.moving_targets import EphemerisTableTarget, MajorBodyTarget, OrbitalElementsTarget
 from feasibility.engine import sky_findings
 from feasibility.engine import wording as w
 from feasibility.engine.airmass import limit_altitude
+from feasibility.engine.moving import _rounded_where
 from feasibility.engine.sky_checks import measure_sky, night_availability
 from feasibility.engine.sky_masks import in_windows, visible_mask
+from feasibility.engine.tracks import cubic_at, forget_tracks, track_for
 
 REQUESTS = 300
 LIMITS = [k / 10 for k in range(11, 61)]
@@ -148,3 +158,60 @@ def test_nights_lost_to_the_schedule_match_a_plain_look_up(measured, demo_schedu
         assert text.endswith(": " + ", ".join(f"{count} {kind}" for kind, count in kinds.most_common()))
         described += 1
     assert described > REQUESTS // 4
+
+
+def _moving_targets() -> list[MajorBodyTarget | OrbitalElementsTarget | EphemerisTableTarget]:
+    rows = [{"time": f"2027-{m:02d}-{d:02d}T00:00:00Z", "ra": 100.0 + m + d / 30, "dec": -20.0 + m, "magnitude": 17.0} for m in range(4, 8) for d in (1, 15)]
+    return [
+        MajorBodyTarget(kind="major_body", name="Moon", body="moon"),
+        MajorBodyTarget(kind="major_body", name="Mars", body="mars"),
+        OrbitalElementsTarget.model_validate(
+            {
+                "kind": "orbital_elements",
+                "name": "near body",
+                "epoch": "2027-06-01",
+                "semi_major_axis": 1.1,
+                "eccentricity": 0.2,
+                "inclination": 5.0,
+                "ascending_node_longitude": 40.0,
+                "perihelion_argument": 120.0,
+                "mean_anomaly": 10.0,
+            }
+        ),
+        EphemerisTableTarget.model_validate({"kind": "ephemeris_table", "name": "table body", "ephemeris_table": rows}),
+    ]
+
+
+@pytest.mark.parametrize("target", _moving_targets(), ids=lambda t: t.kind + ":" + t.name)
+def test_moving_directions_match_the_per_instant_form(target, grid_2027a) -> None:
+    forget_tracks()
+    track = track_for(target, grid_2027a)
+    for view in (grid_2027a.samples(-18.0), grid_2027a.samples(0.0)):
+        night = grid_2027a.n_nights // 3
+        for start, stop in ((0, view.size), (int(view.night_starts[night]), int(view.night_starts[night + 1]))):
+            mjd, up = view.mjd[start:stop], view.up[start:stop]
+            position = cubic_at(track.mjd, track.position, mjd)  # the plain per-instant form
+            if track.parallax:
+                offset = track.site_offset
+                position = position - (offset[0] * view.east[start:stop] + offset[1] * view.north[start:stop] + offset[2] * up)
+            exact = position / np.linalg.norm(position, axis=-1, keepdims=True)
+            known = track.known_at(mjd)
+            exact[~known] = -up[~known]
+            assert np.array_equal(track.directions(view, start, stop), exact)
+
+
+def test_rounded_track_figures_match_python_round() -> None:
+    rng = np.random.default_rng(2027)
+    values = np.concatenate(
+        [
+            rng.uniform(-90.0, 360.0, 200_000),
+            np.round(rng.uniform(-90.0, 360.0, 20_000), 4),  # decimal halves at 3 digits, as near as binary gets
+            np.array([0.0625, 0.1875, -0.0, 1e-9, -1e-9, np.nan, np.inf, -np.inf]),  # exact binary halves, zeros, non-finite
+        ]
+    )
+    keep = rng.random(values.size) > 0.1
+    for digits in (2, 3):
+        got = _rounded_where(values, digits, keep)
+        expected = [round(float(x), digits) if k else None for x, k in zip(values, keep)]
+        same = [a is None and b is None or a == b and math.copysign(1.0, a) == math.copysign(1.0, b) or a != a and b != b for a, b in zip(got, expected)]
+        assert all(same)
