@@ -135,9 +135,9 @@ class SkyMeasure:
     sun_note: str | None = None
     """A moving target's remark for the sun-safety finding (a comet near perihelion warns plainly)."""
     sun_note_warns: bool = False
-    instants: NDArray[np.int32] | None = field(default=None, repr=False, compare=False)
-    """Per night, the instants visible, usable and observable (rows of 3 x nights): ``visible``, ``usable`` and
-    ``observable`` are these times the grid's step, so their rounded series come from a table by count."""
+    instants: tuple[NDArray[np.int32], NDArray[np.int32]] | None = field(default=None, repr=False, compare=False)
+    """Per night, the instants visible and observable: ``visible``, ``observable`` and ``usable`` are these (the
+    latter times ``available``) times the grid's step, so their rounded series come from a table by count."""
     step_hours: float = 0.0
 
     total_visible: float = field(init=False, default=0.0)
@@ -164,7 +164,9 @@ class SkyMeasure:
         """
         if self.instants is None:
             return np.round(np.stack([self.visible, self.usable, self.observable]), 3).tolist()
-        return _rounded_steps(self.step_hours, int(self.instants.max(initial=0)) + 1)[self.instants].tolist()
+        visible, observable = self.instants
+        counts = np.stack([visible, observable * self.available, observable])
+        return _rounded_steps(self.step_hours, int(counts.max(initial=0)) + 1)[counts].tolist()
 
 
 def _rounded_steps(step_hours: float, size: int) -> NDArray[np.object_]:
@@ -420,7 +422,7 @@ def measure_sky(
         midnight_mjd=grid.midnight_mjd if track is not None else None,
         sun_note=sun_note[0],
         sun_note_warns=sun_note[1],
-        instants=np.stack([visible_per_night, observable_per_night * available, observable_per_night]),
+        instants=(visible_per_night, observable_per_night),
         step_hours=step_hours,
     )
 
