@@ -504,14 +504,14 @@ def _night_curve(
     # The target's altitude, its distance from the Moon and the horizon below it: one array, rounded and
     # converted to lists at once (the same values as row by row, in a third of the calls).
     horizon = bool(marks.site.horizon)
-    cosines = _unit_clip(np.stack((up, moon)))
-    angles = np.empty((3 if horizon else 2, cosines.shape[1]))
-    np.arcsin(cosines[0], out=angles[0])
-    np.arccos(cosines[1], out=angles[1])
+    angles = np.empty((3 if horizon else 2, int(hi - lo)))
+    for row, cosines, inverse in ((angles[0], up, np.arcsin), (angles[1], moon, np.arccos)):
+        np.minimum(np.maximum(cosines, -1.0, out=row), 1.0, out=row)  # np.clip's values without its dispatch
+        inverse(row, out=row)
     np.degrees(angles[:2], out=angles[:2])
     if horizon:
         angles[2] = horizon_altitude(marks.site, np.degrees(np.arctan2(east, north)))
-    rows = angles.round(2).tolist()
+    rows = angles.round(2, out=angles).tolist()
     curve["target_alt_deg"] = rows[0]
     start, stop = marks.view.night_starts[night], marks.view.night_starts[night + 1]
     # The usable instants are some of this night's Sun-down instants (the same grid times): their places among
