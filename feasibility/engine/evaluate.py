@@ -231,7 +231,7 @@ def check_request(
 
 def _series(sky: SkyMeasure, exposure_series: dict[str, Any], motion: MotionOutcome | None, context: _SemesterContext) -> dict[str, Any]:
     """The request's plot series: hours per night at each stage, the night's length, weather, Moon, curves."""
-    visible, usable, observable = np.round(np.stack([sky.visible, sky.usable, sky.observable]), 3).tolist()
+    visible, usable, observable = sky.hours_series()
     return {
         "nights": list(context.night_names),
         "hours_visible": visible,

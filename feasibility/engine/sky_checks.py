@@ -135,6 +135,10 @@ class SkyMeasure:
     sun_note: str | None = None
     """A moving target's remark for the sun-safety finding (a comet near perihelion warns plainly)."""
     sun_note_warns: bool = False
+    instants: tuple[NDArray[np.int32], NDArray[np.int32]] | None = field(default=None, repr=False, compare=False)
+    """Per night, the instants visible and observable: ``visible``, ``observable`` and ``usable`` are these (the
+    latter times ``available``) times the grid's step, so their rounded series come from a table by count."""
+    step_hours: float = 0.0
 
     total_visible: float = field(init=False, default=0.0)
     total_observable: float = field(init=False, default=0.0)
@@ -151,6 +155,31 @@ class SkyMeasure:
     def clear(self, per_night: NDArray[np.float64]) -> float:
         """Expected clear hours: each night's hours times its month's usable-night fraction."""
         return float(per_night @ self.weather)
+
+    def hours_series(self) -> list[list[float]]:
+        """Visible, usable and observable hours per night rounded to 3 decimals (the plot series).
+
+        With the counts of instants kept, each value is looked up in a table of rounded multiples of
+        the step (the same float products, rounded the same way), not rounded and converted anew.
+        """
+        if self.instants is None:
+            return np.round(np.stack([self.visible, self.usable, self.observable]), 3).tolist()
+        visible, observable = self.instants
+        counts = np.stack([visible, observable * self.available, observable])
+        return _rounded_steps(self.step_hours, int(counts.max(initial=0)) + 1)[counts].tolist()
+
+
+def _rounded_steps(step_hours: float, size: int) -> NDArray[np.object_]:
+    """``np.round(k * step_hours, 3)`` for k = 0, 1, ... as Python floats (an object array, cached per step)."""
+    table = _ROUNDED_STEPS.get(step_hours)
+    if table is None or table.size < size:
+        counts = np.arange(max(size, 4096 if table is None else 2 * table.size), dtype=np.int32)
+        table = _ROUNDED_STEPS[step_hours] = np.array(np.round(counts * step_hours, 3).tolist(), dtype=object)
+    return table
+
+
+#: Per grid step, the rounded hours of every count of instants a night can hold (:meth:`SkyMeasure.hours_series`).
+_ROUNDED_STEPS: dict[float, NDArray[np.object_]] = {}
 
 
 def night_availability(grid: SkyGrid, instrument: str, schedule: InstrumentSchedule | None) -> NDArray[np.bool_]:
@@ -224,7 +253,8 @@ def measure_sky(
     # Stage 3, usable: nights the instrument is mounted and the telescope open.
     everywhere = bool(available.all())
     usable = observable if everywhere else observable & view.on_nights(available)
-    hours_visible = view.per_night(visible) * step_hours
+    visible_per_night = view.per_night(visible)
+    hours_visible = visible_per_night * step_hours
     observable_per_night = view.per_night(observable)
     hours_observable = observable_per_night * step_hours
     hours_usable = hours_observable * available
@@ -254,7 +284,7 @@ def measure_sky(
         step = -(-chosen.size // _SKY_SAMPLES)  # at most _SKY_SAMPLES, evenly spread in time
         sampled = chosen[::step]
         # (With the Moon down its term is zero, whatever the separation.)
-        separation = np.degrees(np.arccos(np.clip(along(np.take(view.moon, sampled, axis=0), vector, sampled), -1.0, 1.0)))
+        separation = np.degrees(np.arccos(_unit_clip(along(np.take(view.moon, sampled, axis=0), vector, sampled))))
         if sky_model.per_band:
             terms = view.moon_term(k)[sampled]
         else:  # a spectrum's own extinction: eq. 15's I* 10^(-0.4 k X(Z_moon)) from the cached k = 0 term, per sample
@@ -392,7 +422,15 @@ def measure_sky(
         midnight_mjd=grid.midnight_mjd if track is not None else None,
         sun_note=sun_note[0],
         sun_note_warns=sun_note[1],
+        instants=(visible_per_night, observable_per_night),
+        step_hours=step_hours,
     )
+
+
+def _unit_clip(cosines: NDArray[np.float64]) -> NDArray[np.float64]:
+    """``np.clip(cosines, -1, 1)`` as two plain ufuncs: the same values, without ``np.clip``'s dispatch (several
+    microseconds a call on these short arrays)."""
+    return np.minimum(np.maximum(cosines, -1.0), 1.0)
 
 
 def _median(values: NDArray[np.float64]) -> float:
@@ -459,11 +497,22 @@ def _night_curve(
     curve: dict[str, object] = {
         "night": shared["night"],
         **{name: list(shared[name]) for name in ("hours_from_midnight", "moon_alt_deg", "sun_alt_deg")},  # type: ignore[call-overload]
-        "target_alt_deg": np.degrees(np.arcsin(np.minimum(np.maximum(up, -1.0), 1.0))).round(2).tolist(),
     }
     if marks is None:
+        curve["target_alt_deg"] = np.degrees(np.arcsin(np.minimum(np.maximum(up, -1.0), 1.0))).round(2).tolist()
         return curve
-    moon_cos = np.clip(moon, -1.0, 1.0)
+    # The target's altitude, its distance from the Moon and the horizon below it: one array, rounded and
+    # converted to lists at once (the same values as row by row, in a third of the calls).
+    horizon = bool(marks.site.horizon)
+    angles = np.empty((3 if horizon else 2, int(hi - lo)))
+    for row, cosines, inverse in ((angles[0], up, np.arcsin), (angles[1], moon, np.arccos)):
+        np.minimum(np.maximum(cosines, -1.0, out=row), 1.0, out=row)  # np.clip's values without its dispatch
+        inverse(row, out=row)
+    np.degrees(angles[:2], out=angles[:2])
+    if horizon:
+        angles[2] = horizon_altitude(marks.site, np.degrees(np.arctan2(east, north)))
+    rows = angles.round(2, out=angles).tolist()
+    curve["target_alt_deg"] = rows[0]
     start, stop = marks.view.night_starts[night], marks.view.night_starts[night + 1]
     # The usable instants are some of this night's Sun-down instants (the same grid times): their places among
     # them, by one sorted search, mark them (np.isin would sort both arrays for the same answer).
@@ -476,13 +525,12 @@ def _night_curve(
             "airmass_formula": marks.formula,
             "limit_altitude_deg": round(marks.limit_alt, 4),
             "floor_altitude_deg": marks.floor_alt,
-            "moon_separation_deg": np.degrees(np.arccos(moon_cos)).round(2).tolist(),
+            "moon_separation_deg": rows[1],
             "usable": usable.tolist(),
         }
     )
-    if marks.site.horizon:
-        azimuth = np.degrees(np.arctan2(east, north))
-        curve["horizon_alt_deg"] = horizon_altitude(marks.site, azimuth).round(2).tolist()
+    if horizon:
+        curve["horizon_alt_deg"] = rows[2]
     return curve
 
 

@@ -19,6 +19,9 @@
   Python's ``round`` only near a half: held to ``round`` itself on random values, values
   that look like halves in decimal, exact binary halves and non-finite ones.
 
+- The plot series' hours per night come from a table of rounded multiples of the grid's step, looked up by
+  each night's count of instants: held to ``np.round`` of the hours themselves.
+
 Differences allowed: none (the shortcuts choose exactly the instants and nights
 the exact path does, no grid step at a crossing may differ, and give the same floats bit for bit).
 """
@@ -133,6 +136,15 @@ def test_the_suggested_airmass_limit_is_the_first_that_fits(measured) -> None:
 def test_the_request_limit_matches_the_measured_visible_hours(measured) -> None:
     for _, sky in measured:
         assert np.array_equal(sky.probe.visible().per_night, sky.visible)
+
+
+def test_hours_series_from_counts_match_rounding_the_hours(measured) -> None:
+    """The plot series' hours looked up by count of instants are ``np.round(hours, 3)`` itself, float for float."""
+    for _, sky in measured:
+        expected = np.round(np.stack([sky.visible, sky.usable, sky.observable]), 3).tolist()
+        assert sky.instants is not None
+        assert sky.hours_series() == expected
+        assert all(type(value) is float for row in sky.hours_series() for value in row)
 
 
 def test_nights_lost_to_the_schedule_match_a_plain_look_up(measured, demo_schedule: InstrumentSchedule) -> None:
