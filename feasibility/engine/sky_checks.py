@@ -108,6 +108,9 @@ class SkyMeasure:
     visible: NDArray[np.float64]
     observable: NDArray[np.float64]
     usable: NDArray[np.float64]
+    instants: tuple[NDArray[np.int32], NDArray[np.int32]]
+    """Per night, the instants visible and observable: ``visible``, ``observable`` and ``usable`` are these (the
+    latter times ``available``) times the grid's step, so their rounded series come from a table by count."""
     weather: NDArray[np.float64]
     nights_scheduled: int
     lowest_airmass: float
@@ -135,10 +138,6 @@ class SkyMeasure:
     sun_note: str | None = None
     """A moving target's remark for the sun-safety finding (a comet near perihelion warns plainly)."""
     sun_note_warns: bool = False
-    instants: tuple[NDArray[np.int32], NDArray[np.int32]] | None = field(default=None, repr=False, compare=False)
-    """Per night, the instants visible and observable: ``visible``, ``observable`` and ``usable`` are these (the
-    latter times ``available``) times the grid's step, so their rounded series come from a table by count."""
-    step_hours: float = 0.0
 
     total_visible: float = field(init=False, default=0.0)
     total_observable: float = field(init=False, default=0.0)
@@ -162,11 +161,9 @@ class SkyMeasure:
         With the counts of instants kept, each value is looked up in a table of rounded multiples of
         the step (the same float products, rounded the same way), not rounded and converted anew.
         """
-        if self.instants is None:
-            return np.round(np.stack([self.visible, self.usable, self.observable]), 3).tolist()
         visible, observable = self.instants
         counts = np.stack([visible, observable * self.available, observable])
-        return _rounded_steps(self.step_hours, int(counts.max(initial=0)) + 1)[counts].tolist()
+        return _rounded_steps(self.step_minutes / 60.0, int(counts.max(initial=0)) + 1)[counts].tolist()
 
 
 def _rounded_steps(step_hours: float, size: int) -> NDArray[np.object_]:
@@ -363,6 +360,7 @@ def measure_sky(
         visible=hours_visible,
         observable=hours_observable,
         usable=hours_usable,
+        instants=(visible_per_night, observable_per_night),
         weather=weather,
         nights_scheduled=int(available.sum()),
         lowest_airmass=lowest_airmass,
@@ -422,8 +420,6 @@ def measure_sky(
         midnight_mjd=grid.midnight_mjd if track is not None else None,
         sun_note=sun_note[0],
         sun_note_warns=sun_note[1],
-        instants=(visible_per_night, observable_per_night),
-        step_hours=step_hours,
     )
 
 
@@ -499,7 +495,7 @@ def _night_curve(
         **{name: list(shared[name]) for name in ("hours_from_midnight", "moon_alt_deg", "sun_alt_deg")},  # type: ignore[call-overload]
     }
     if marks is None:
-        curve["target_alt_deg"] = np.degrees(np.arcsin(np.minimum(np.maximum(up, -1.0), 1.0))).round(2).tolist()
+        curve["target_alt_deg"] = np.degrees(np.arcsin(_unit_clip(up))).round(2).tolist()
         return curve
     # The target's altitude, its distance from the Moon and the horizon below it: one array, rounded and
     # converted to lists at once (the same values as row by row, in a third of the calls).
