@@ -38,21 +38,26 @@ __all__ = [
 
 
 def current_observatory(session: Session) -> ObservatoryVersion | None:
-    """The observatory description in force: the newest stored version."""
-    query = select(ObservatoryVersion).options(defer(ObservatoryVersion.document)).order_by(ObservatoryVersion.id.desc()).limit(1)
+    """The observatory description in force: the newest stored version (:func:`_newest_observatory`)."""
+    query = select(ObservatoryVersion).options(defer(ObservatoryVersion.document)).where(ObservatoryVersion.id == _newest_observatory().c.id)
     return session.scalars(query).first()
 
 
 def current_schedule(session: Session, semester: str) -> ScheduleVersion | None:
-    """The instrument schedule in force for ``semester``, or None when none was uploaded."""
-    query = (
-        select(ScheduleVersion)
-        .options(defer(ScheduleVersion.document))
-        .where(ScheduleVersion.semester == semester)
-        .order_by(ScheduleVersion.id.desc())
-        .limit(1)
-    )
+    """The instrument schedule in force for ``semester`` (:func:`_newest_schedules`), or None when none was uploaded."""
+    newest = _newest_schedules(ScheduleVersion.semester == semester)
+    query = select(ScheduleVersion).options(defer(ScheduleVersion.document)).where(ScheduleVersion.id.in_(select(newest.c.id)))
     return session.scalars(query).first()
+
+
+def _newest_observatory() -> Any:
+    """What is in force, for the observatory: its newest stored version (id and content hash, as a subquery)."""
+    return select(ObservatoryVersion.id, ObservatoryVersion.content_hash).order_by(ObservatoryVersion.id.desc()).limit(1).subquery()
+
+
+def _newest_schedules(semesters: Any) -> Any:
+    """What is in force, for schedules: the newest stored version of each semester meeting ``semesters`` (semester, id)."""
+    return select(ScheduleVersion.semester, func.max(ScheduleVersion.id).label("id")).where(semesters).group_by(ScheduleVersion.semester).subquery()
 
 
 @dataclass(frozen=True)
@@ -88,13 +93,8 @@ def in_force(session: Session, semesters: Iterable[str]) -> InForce | None:
 
 def _in_force_query() -> Any:
     """The newest observatory version joined to the newest schedule version of each semester asked (built once)."""
-    observatory = select(ObservatoryVersion.id, ObservatoryVersion.content_hash).order_by(ObservatoryVersion.id.desc()).limit(1).subquery()
-    schedules = (
-        select(ScheduleVersion.semester, func.max(ScheduleVersion.id).label("id"))
-        .where(ScheduleVersion.semester.in_(bindparam("semesters", expanding=True)))
-        .group_by(ScheduleVersion.semester)
-        .subquery()
-    )
+    observatory = _newest_observatory()
+    schedules = _newest_schedules(ScheduleVersion.semester.in_(bindparam("semesters", expanding=True)))
     return select(observatory.c.id, observatory.c.content_hash, schedules.c.semester, schedules.c.id).select_from(observatory.outerjoin(schedules, true()))
 
 
